@@ -1,0 +1,212 @@
+"""The command line: parse, load, call the study functions, write. No numerics here."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from pathlib import Path
+
+from spillgauge.errors import ResultsError, ScenarioError, SpillgaugeError
+
+__all__ = ["main", "build_parser"]
+
+_TICK = 0.2  # seconds between progress-bar redraws
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line and exit with 2."""
+
+    def error(self, message: str) -> None:  # noqa: D401 - argparse's hook
+        self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
+
+
+class _ProgressBar:
+    """Replications done and time left, on stderr, only when it is a terminal."""
+
+    def __init__(self, label: str, *, enabled: bool) -> None:
+        self.label = label
+        self.enabled = enabled and sys.stderr.isatty()
+        self.start = time.monotonic()
+        self.first_done: int | None = None
+        self.last_draw = 0.0
+
+    def __call__(self, done: int, total: int) -> None:
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if self.first_done is None:
+            self.first_done, self.start = done, now
+        if done < total and now - self.last_draw < _TICK:
+            return
+        self.last_draw = now
+        width = 28
+        filled = int(width * done / max(total, 1))
+        run = done - self.first_done
+        left = (now - self.start) / run * (total - done) if run > 0 else float("nan")
+        eta = f"{left:5.0f} s left" if left == left else "  estimating"
+        sys.stderr.write(f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] "
+                         f"{done}/{total} replications, {eta}")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
+def _load(path: str):
+    from spillgauge.scenario import find_scenario, load_scenario
+
+    return load_scenario(find_scenario(path))
+
+
+def _workers(args) -> int | None:
+    return args.workers
+
+
+def _cmd_check(args) -> int:
+    from spillgauge.evaluation.market_summary import summarise_market
+    from spillgauge.model.market import build_market
+    from spillgauge.report.text import market_text
+
+    scenario = _load(args.scenario)
+    market = build_market(scenario, args.seed)
+    print(market_text(scenario, summarise_market(market)))
+    return 0
+
+
+def _cmd_truth(args) -> int:
+    from spillgauge.evaluation.study import run_truth
+    from spillgauge.report.text import truth_text
+
+    scenario = _load(args.scenario)
+    bar = _ProgressBar("truth", enabled=not args.quiet and not args.json)
+    truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=_workers(args),
+                      scheduler=args.scheduler, progress=bar)
+    seed = scenario.study.seed if args.seed is None else args.seed
+    if args.json:
+        from spillgauge.evaluation.store import dumps
+
+        print(dumps({"scenario": scenario.name, "seed": seed, **truth.to_dict()}))
+    else:
+        print(truth_text(scenario.name, seed, truth))
+    return 0
+
+
+def _cmd_run(args) -> int:
+    from spillgauge.evaluation.study import run_study
+    from spillgauge.report.text import study_text
+
+    scenario = _load(args.scenario)
+    out = Path(args.out) if args.out else Path("results") / scenario.name
+    bar = _ProgressBar(scenario.name, enabled=not args.quiet)
+    try:
+        study = run_study(scenario, reps=args.reps, seed=args.seed, workers=_workers(args),
+                          scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
+    except KeyboardInterrupt:
+        sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
+                         "run the same command with --resume to continue\n")
+        return 130
+    written = _write_reports(study, out)
+    print(study_text(study))
+    print(f"\nresults: {out}/ ({', '.join(written)})")
+    return 0
+
+
+def _write_reports(study, out: Path) -> list[str]:
+    from spillgauge.report import write_report
+
+    return write_report(study, out)
+
+
+def _add_common(p: argparse.ArgumentParser, *, reps: bool = True) -> None:
+    p.add_argument("scenario", help="a scenario TOML file, or the name of a bundled scenario "
+                   "(see `spillgauge list`)")
+    if reps:
+        p.add_argument("--reps", type=int, metavar="N",
+                       help="replications (default: the scenario's study.reps)")
+    p.add_argument("--seed", type=int, metavar="S",
+                   help="study seed (default: the scenario's study.seed)")
+
+
+def _add_compute(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--workers", type=int, metavar="N", default=None,
+                   help="local processes for the replications (default: every core)")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run replications on this Dask scheduler, e.g. tcp://10.0.0.5:8786 "
+                   "(needs the 'dask' extra)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _cmd_list(args) -> int:
+    from spillgauge.scenario import bundled_scenarios, load_scenario
+
+    for path in bundled_scenarios():
+        scenario = load_scenario(path)
+        summary = scenario.description.strip().splitlines()[0] if scenario.description else ""
+        print(f"{scenario.name:<22} {summary}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the parser of the ``spillgauge`` command."""
+    parser = _Parser(prog="spillgauge", description=(
+        "Simulate your market with interference (shared stock, a social graph, carryover), "
+        "run candidate experiment designs in it many times against the true global "
+        "treatment effect, and recommend a randomization unit."))
+    from spillgauge import __version__
+
+    parser.add_argument("--version", action="version", version=f"spillgauge {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("check", help="validate a scenario and describe its market",
+                       description="Validate a scenario file and print its market: users, "
+                       "pools, graph degree and clustering, stock per pool against expected "
+                       "demand, cluster counts.")
+    _add_common(p, reps=False)
+    p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("truth", help="the true global treatment effect (GTE)",
+                       description="Run the all-control and all-treated worlds on common "
+                       "random numbers and print the GTE with its Monte Carlo standard error, "
+                       "both worlds' orders, fill rates and lost-order shares.")
+    _add_common(p)
+    _add_compute(p)
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_truth)
+
+    p = sub.add_parser("run", help="run the study and recommend a randomization unit",
+                       description="Run every design of the scenario against the truth over "
+                       "many replications; write summary.json, replications.csv and the "
+                       "reports; print the design table and the recommendation.")
+    _add_common(p)
+    _add_compute(p)
+    p.add_argument("--out", metavar="DIR", help="results folder (default results/<scenario name>)")
+    p.add_argument("--resume", action="store_true",
+                   help="continue an interrupted run from the replications saved in DIR")
+    p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("list", help="list the bundled scenarios")
+    p.set_defaults(func=_cmd_list)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the ``spillgauge`` command; return its exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        code = args.func(args)
+    except ScenarioError as exc:
+        sys.stderr.write(f"spillgauge: error: {exc}\n")
+        return 2
+    except (ResultsError, SpillgaugeError) as exc:
+        sys.stderr.write(f"spillgauge: error: {exc}\n")
+        return 2
+    except BrokenPipeError:
+        return 0
+    return code
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

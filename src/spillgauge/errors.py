@@ -1,0 +1,53 @@
+"""Exceptions and warnings raised by spillgauge."""
+
+from __future__ import annotations
+
+__all__ = [
+    "SpillgaugeError",
+    "ScenarioError",
+    "ResultsError",
+    "DegenerateEstimateWarning",
+]
+
+
+class SpillgaugeError(Exception):
+    """Base class of every error spillgauge raises on purpose."""
+
+
+class ScenarioError(SpillgaugeError, ValueError):
+    """A scenario value (file key, CSV column, CLI option) is missing or not allowed.
+
+    Parameters
+    ----------
+    field : str
+        Dotted path of the offending value, e.g. ``"pools.lead_time_hours"``.
+    expected : str
+        What is allowed, in words.
+    got : object
+        The value received. Strings are quoted in the message.
+
+    Examples
+    --------
+    >>> err = ScenarioError("pools.lead_time_hours", "in [0, restock_every_hours=12)", 30)
+    >>> str(err)
+    'pools.lead_time_hours must be in [0, restock_every_hours=12); got 30'
+    >>> err.field
+    'pools.lead_time_hours'
+    """
+
+    def __init__(self, field: str, expected: str, got: object) -> None:
+        self.field = field
+        self.expected = expected
+        self.got = got
+        shown = repr(got) if isinstance(got, str) else str(got)
+        if len(shown) > 120:
+            shown = shown[:117] + "..."
+        super().__init__(f"{field} must be {expected}; got {shown}")
+
+
+class ResultsError(SpillgaugeError):
+    """A results folder cannot be used (it belongs to another study, or is incomplete)."""
+
+
+class DegenerateEstimateWarning(RuntimeWarning):
+    """An estimator got legal but degenerate input (an empty arm, one cluster) and returned NaN."""

@@ -1,0 +1,38 @@
+"""Estimators: pure functions from an outcome panel and a schedule to an :class:`Estimate`.
+
+One module per estimator family: :mod:`~spillgauge.estimators.user_level`,
+:mod:`~spillgauge.estimators.cluster_level`, :mod:`~spillgauge.estimators.exposure`
+and :mod:`~spillgauge.estimators.switchback`. Every estimator takes
+``(panel, schedule, *, confidence=0.95, ...)`` and returns its estimate on the
+GTE's scale, fulfilled orders per user over the horizon.
+"""
+
+from __future__ import annotations
+
+from spillgauge.estimators.cluster_level import hajek_cluster, horvitz_thompson_cluster
+from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.exposure import (
+    exposure_probabilities,
+    hajek_exposure,
+    horvitz_thompson_exposure,
+)
+from spillgauge.estimators.switchback import (
+    switchback_difference,
+    switchback_exposure_probabilities,
+    switchback_optimal_points,
+)
+from spillgauge.estimators.user_level import difference_in_means, regression_adjusted_difference
+
+__all__ = [
+    "Estimate",
+    "difference_in_means",
+    "regression_adjusted_difference",
+    "hajek_cluster",
+    "horvitz_thompson_cluster",
+    "exposure_probabilities",
+    "horvitz_thompson_exposure",
+    "hajek_exposure",
+    "switchback_difference",
+    "switchback_optimal_points",
+    "switchback_exposure_probabilities",
+]

@@ -1,0 +1,299 @@
+"""Switchback estimator and the minimax switchback design helpers.
+
+A switchback schedule treats whole units (the market, or each stock pool) in
+time blocks: period ``k`` of unit ``u`` is one *block*. Carryover makes the first
+ticks after a switch look like the previous arm, so :func:`switchback_difference`
+can leave out ``burn_in_ticks`` at the start of every block that switched arm.
+
+:func:`switchback_optimal_points` and :func:`switchback_exposure_probabilities`
+reproduce the minimax design and exposure probabilities of Bojinov, Simchi-Levi
+& Zhao (2023) for an outcome with carryover of order ``m`` (as presented in
+Facure 2023, ch. 10). They count ticks from **1**, as the paper does: point ``t``
+is tick ``t - 1`` of a schedule's ``period_start_ticks``.
+"""
+
+from __future__ import annotations
+
+import numbers
+
+import numpy as np
+
+from spillgauge.estimators._inference import (
+    build_estimate,
+    check_common_inputs,
+    degenerate_estimate,
+)
+from spillgauge.estimators.estimate import Estimate
+from spillgauge.panel import OutcomePanel
+from spillgauge.schedule import AssignmentSchedule
+
+__all__ = [
+    "switchback_difference",
+    "switchback_optimal_points",
+    "switchback_exposure_probabilities",
+]
+
+
+def _is_int(value: object) -> bool:
+    return isinstance(value, numbers.Integral) and not isinstance(value, (bool, np.bool_))
+
+
+def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
+                  burn_in_ticks: int, method: str) -> float:
+    confidence = check_common_inputs(panel, schedule, confidence, method)
+    if panel.n_ticks != schedule.n_ticks:
+        raise ValueError(f"{method}: panel has {panel.n_ticks} ticks but schedule has "
+                         f"{schedule.n_ticks}; both must cover the same horizon")
+    if schedule.unit_kind == "market":
+        if schedule.n_units != 1:
+            raise ValueError(f"{method}: a market schedule must have one unit; got "
+                             f"{schedule.n_units}")
+    elif schedule.unit_kind == "pool":
+        if schedule.n_units != panel.n_pools or not np.array_equal(panel.pool_of_user,
+                                                                    schedule.unit_of_user):
+            raise ValueError(f"{method}: a pool schedule's units must be the panel's pools "
+                             "(schedule.unit_of_user == panel.pool_of_user, one unit per pool)")
+    else:
+        raise ValueError(f"{method} needs units 'market' or 'pool'; got "
+                         f"unit_kind={schedule.unit_kind!r}")
+    if not _is_int(burn_in_ticks) or burn_in_ticks < 0:
+        raise ValueError(f"{method}: burn_in_ticks must be an int >= 0; got {burn_in_ticks!r}")
+    return confidence
+
+
+def _kept_ticks(schedule: AssignmentSchedule, burn_in_ticks: int) -> np.ndarray:
+    """Return which unit-ticks are kept, shape ``(n_units, n_ticks)``.
+
+    A block is *switched* when its arm differs from the unit's previous block;
+    before the horizon every unit is in control, so a treated first block is
+    switched too. The first ``burn_in_ticks`` of a switched block are dropped.
+    """
+    is_treated = schedule.is_treated
+    before = np.zeros((schedule.n_units, 1), dtype=bool)
+    switched = is_treated != np.concatenate((before, is_treated[:, :-1]), axis=1)
+    period = schedule.period_of_tick()
+    position = np.arange(schedule.n_ticks) - schedule.period_start_ticks[period]
+    return ~(switched[:, period] & (position < burn_in_ticks)[None, :])
+
+
+def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                          confidence: float = 0.95, burn_in_ticks: int = 0) -> Estimate:
+    """Estimate the GTE by comparing treated and control ticks of a switchback.
+
+    Parameters
+    ----------
+    panel : OutcomePanel
+        Outcomes of the world; the unit-tick outcome is the sum of
+        ``panel.pool_fulfilled`` over the unit's pools divided by its users.
+    schedule : AssignmentSchedule
+        A schedule over time blocks with ``unit_kind`` ``"market"`` (one unit, all
+        users) or ``"pool"`` (unit ``u`` is pool ``u``, so
+        ``schedule.unit_of_user == panel.pool_of_user``).
+    confidence : float, default 0.95
+        Level of the confidence interval, in (0, 1).
+    burn_in_ticks : int, default 0
+        Ticks left out at the start of every block whose arm differs from the
+        previous block of the same unit. Before the horizon every unit counts as
+        in control, so a first block is trimmed when treated and kept whole when
+        in control.
+
+    Returns
+    -------
+    Estimate
+        ``method="switchback_difference"``; ``n_units`` is the number of blocks
+        (unit, period) with at least one kept tick.
+
+    Raises
+    ------
+    ValueError
+        If panel and schedule disagree on users or ticks, the units are neither
+        the market nor the pools, ``burn_in_ticks`` is not an int >= 0, or
+        ``confidence`` is outside (0, 1).
+
+    Warns
+    -----
+    DegenerateEstimateWarning
+        If an arm keeps no tick (every field NaN) or fewer than 2 blocks (point
+        kept, standard error and interval NaN).
+
+    Notes
+    -----
+    With ``F_ut`` the orders fulfilled in unit ``u`` at tick ``t``, ``N_u`` its
+    users and ``T`` the horizon in ticks,
+
+    ``point = T * [sum_{kept treated} F_ut / sum_{kept treated} N_u
+    - sum_{kept control} F_ut / sum_{kept control} N_u]``,
+
+    the difference of the arms' per-user-tick rates (unit-ticks weighted by
+    users), scaled to orders per user over the horizon. With burn-in it
+    targets the steady-state effect of staying in one arm, times ``T``.
+
+    Each block ``b`` with kept ticks is one observation, with total ``F_b`` over
+    ``n_b`` kept user-ticks. The variance is the linearization of the two
+    ratios with a Neyman-style factor per arm,
+
+    ``V = T^2 sum_{arm a} B_a / (B_a - 1) sum_{b in a} (F_b - rate_a n_b)^2 / (sum_{b in a} n_b)^2``,
+
+    which equals ``T^2 (s1^2 / B_1 + s0^2 / B_0)``, the Neyman variance of block
+    means, whenever blocks have equal ``n_b``. The interval uses Student's t
+    with ``B - 2`` degrees of freedom (``B`` blocks), as for cluster designs.
+
+    Examples
+    --------
+    One market of 2 users, 4 periods of 2 ticks, arms T C C T:
+
+    >>> per_user = np.array([2, 3, 1, 1, 0, 3, 4, 3])
+    >>> panel = OutcomePanel.from_arrays(fulfilled=np.stack([per_user, per_user]))
+    >>> schedule = AssignmentSchedule(
+    ...     unit_of_user=np.zeros(2, int), is_treated=np.array([[1, 0, 0, 1]], bool),
+    ...     period_start_ticks=[0, 2, 4, 6], n_ticks=8, treated_probability=0.5,
+    ...     unit_kind="market", randomization="complete")
+    >>> est = switchback_difference(panel, schedule)
+    >>> est.point, round(est.standard_error ** 2, 6), est.n_units  # 8 * (3 - 1.25)
+    (14.0, 20.0, 4)
+    >>> switchback_difference(panel, schedule, burn_in_ticks=1).point  # 8 * (3 - 4/3)
+    13.333333333333334
+    """
+    method = "switchback_difference"
+    confidence = _check_inputs(panel, schedule, confidence, burn_in_ticks, method)
+    n_ticks, n_periods = schedule.n_ticks, schedule.n_periods
+    fulfilled = np.asarray(panel.pool_fulfilled, dtype=float)
+    if schedule.unit_kind == "market":
+        unit_totals = fulfilled.sum(axis=0, keepdims=True)
+        unit_users = np.array([panel.n_users], dtype=float)
+    else:
+        unit_totals = fulfilled
+        unit_users = panel.users_per_pool().astype(float)
+    kept = _kept_ticks(schedule, burn_in_ticks) & (unit_users > 0)[:, None]
+    user_ticks = np.broadcast_to(unit_users[:, None], kept.shape)
+    block = np.arange(schedule.n_units)[:, None] * n_periods + schedule.period_of_tick()[None, :]
+    block_totals = np.bincount(block[kept], weights=unit_totals[kept],
+                               minlength=schedule.n_units * n_periods)
+    block_sizes = np.bincount(block[kept], weights=user_ticks[kept],
+                              minlength=schedule.n_units * n_periods)
+    used = block_sizes > 0
+    block_treated = schedule.is_treated.ravel()
+    arms = (used & block_treated, used & ~block_treated)
+    n_blocks = int(used.sum())
+    if not (arms[0].any() and arms[1].any()):
+        arm = "treated" if not arms[0].any() else "control"
+        return degenerate_estimate(method, f"the {arm} arm keeps no tick", n_units=n_blocks)
+    rates = [block_totals[arm].sum() / block_sizes[arm].sum() for arm in arms]
+    point = float((rates[0] - rates[1]) * n_ticks)
+    counts = [int(arm.sum()) for arm in arms]
+    if min(counts) < 2:
+        return degenerate_estimate(method, "an arm keeps a single block, so the block-level "
+                                   "variance is undefined", n_units=n_blocks, point=point)
+    variance = 0.0
+    for arm, rate, count in zip(arms, rates, counts):
+        residuals = block_totals[arm] - rate * block_sizes[arm]
+        variance += count / (count - 1) * np.sum(residuals ** 2) / block_sizes[arm].sum() ** 2
+    return build_estimate(point, variance * n_ticks ** 2, confidence=confidence, method=method,
+                          n_units=n_blocks, df=n_blocks - 2)
+
+
+def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:
+    """Return the minimax randomization points of a switchback with carryover order ``m``.
+
+    Parameters
+    ----------
+    n_ticks : int
+        Horizon ``T`` in ticks; must be a multiple of ``m``.
+    m : int
+        Carryover order: an outcome depends on the current and ``m`` previous
+        assignments.
+
+    Returns
+    -------
+    ndarray of int
+        The points, **1-based**: ``{1, 2m+1, 3m+1, ..., (n-2)m+1}`` with ``n = T/m``,
+        i.e. a first and a last block of ``2m`` ticks and blocks of ``m`` in
+        between; every tick ``1..T`` when ``m = 0``.
+
+    Raises
+    ------
+    ValueError
+        If the values are not ints, ``m < 0``, ``T`` is not a multiple of ``m``,
+        or ``n = T/m < 4`` (the design needs at least 4 blocks of ``m``).
+
+    Notes
+    -----
+    Bojinov, Simchi-Levi & Zhao (2023), Theorem on the minimax design for
+    ``T = n m``, ``n >= 4``; the same points as ``[1] + [i*m+1 for i in range(2, n-1)]``
+    in Facure (2023, ch. 10). Subtract 1 to get ``period_start_ticks``.
+
+    Examples
+    --------
+    >>> switchback_optimal_points(12, 2).tolist()
+    [1, 5, 7, 9]
+    """
+    if not (_is_int(n_ticks) and _is_int(m)) or n_ticks < 1 or m < 0:
+        raise ValueError(f"n_ticks must be an int >= 1 and m an int >= 0; got n_ticks="
+                         f"{n_ticks!r}, m={m!r}")
+    if m == 0:
+        return np.arange(1, n_ticks + 1)
+    if n_ticks % m:
+        raise ValueError(f"n_ticks={n_ticks} must be a multiple of m={m}")
+    n_blocks = n_ticks // m
+    if n_blocks < 4:
+        raise ValueError(f"the minimax design needs n_ticks / m >= 4; got {n_ticks}/{m} = "
+                         f"{n_blocks}")
+    return np.concatenate(([1], np.arange(2, n_blocks - 1) * m + 1)).astype(np.int64)
+
+
+def switchback_exposure_probabilities(points: np.ndarray, n_ticks: int, m: int,
+                                      p: float = 0.5) -> tuple[np.ndarray, np.ndarray]:
+    """Return the probabilities that ticks ``t-m..t`` are all treated or all in control.
+
+    Parameters
+    ----------
+    points : array of int
+        Randomization points, **1-based**, strictly increasing, starting at 1; the
+        arm drawn at a point (treated with probability ``p``) holds until the next.
+    n_ticks : int
+        Horizon ``T`` in ticks (``points`` must be ``<= T``).
+    m : int
+        Carryover order, ``0 <= m < T``.
+    p : float, default 0.5
+        Probability that a block is treated, in (0, 1).
+
+    Returns
+    -------
+    pi1, pi0 : ndarray of float, shape (n_ticks,)
+        Entry ``t - 1`` is ``p^k`` (``(1 - p)^k``), ``k`` the number of blocks
+        meeting ``[t - m, t]``; NaN for ``t <= m``, whose window starts before
+        the horizon.
+
+    Raises
+    ------
+    ValueError
+        If ``points`` is not as described, ``m`` is outside ``[0, T)`` or ``p`` is
+        outside (0, 1).
+
+    Notes
+    -----
+    ``P(W_{t-m:t} = 1) = p^{number of randomization blocks intersecting [t-m, t]}``
+    (Bojinov, Simchi-Levi & Zhao 2023; Facure 2023, ch. 10).
+
+    Examples
+    --------
+    >>> pi1, pi0 = switchback_exposure_probabilities([1, 4], n_ticks=6, m=2)
+    >>> pi1.tolist()
+    [nan, nan, 0.5, 0.25, 0.25, 0.5]
+    """
+    points = np.asarray(points)
+    if not (_is_int(n_ticks) and _is_int(m)) or n_ticks < 1 or not 0 <= m < n_ticks:
+        raise ValueError(f"n_ticks must be an int >= 1 and m an int in [0, n_ticks); got "
+                         f"n_ticks={n_ticks!r}, m={m!r}")
+    if (points.ndim != 1 or points.size == 0 or not np.issubdtype(points.dtype, np.integer)
+            or points[0] != 1 or np.any(np.diff(points) <= 0) or points[-1] > n_ticks):
+        raise ValueError("points must be strictly increasing ints starting at 1 and at most "
+                         f"n_ticks={n_ticks}")
+    if not (isinstance(p, numbers.Real) and 0.0 < float(p) < 1.0):
+        raise ValueError(f"p must be in (0, 1); got {p!r}")
+    ticks = np.arange(1, n_ticks + 1)
+    block = np.searchsorted(points, ticks, side="right")
+    window_start = np.searchsorted(points, np.maximum(ticks - m, 1), side="right")
+    n_blocks = (block - window_start + 1).astype(float)
+    n_blocks[:m] = np.nan
+    return float(p) ** n_blocks, (1.0 - float(p)) ** n_blocks

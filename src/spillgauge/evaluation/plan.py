@@ -1,0 +1,90 @@
+"""Compose a design from its scenario table: draw its schedule from the market, pick its estimator.
+
+This is the one place where the market, the designs and the estimators meet:
+designs get arrays (cluster labels, pool ids, neighbourhood incidence), and
+estimators get only the world's outcome panel and the schedule.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from spillgauge import estimators
+from spillgauge.designs import draw_cluster_schedule, draw_switchback_schedule, draw_user_schedule
+from spillgauge.estimators import Estimate
+from spillgauge.model.graph import closed_neighbourhood_units
+from spillgauge.model.market import Market
+from spillgauge.panel import OutcomePanel
+from spillgauge.scenario import DesignSpec
+from spillgauge.schedule import AssignmentSchedule
+
+__all__ = ["draw_design_schedule", "estimate_design", "estimator_name", "describe_unit"]
+
+
+def _cluster_labels(market: Market, spec: DesignSpec) -> np.ndarray:
+    return market.clusters(spec.clusters, resolution=spec.resolution)
+
+
+def _exposure_units(market: Market, spec: DesignSpec):
+    cache = market._clusters
+    key = ("exposure", spec.clusters, spec.resolution)
+    if key not in cache:
+        labels = _cluster_labels(market, spec)
+        cache[key] = closed_neighbourhood_units(market.adjacency, labels, int(labels.max()) + 1)
+    return cache[key]
+
+
+def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Generator
+                         ) -> AssignmentSchedule:
+    """Draw one schedule of a design in a market."""
+    calendar = market.scenario.calendar
+    n_ticks = calendar.n_ticks
+    if spec.kind == "user":
+        return draw_user_schedule(market.n_users, n_ticks, share=spec.share,
+                                  randomization=spec.randomization, rng=rng)
+    if spec.kind == "cluster":
+        exposure = _exposure_units(market, spec) if spec.exposure == "neighbourhood" else None
+        return draw_cluster_schedule(_cluster_labels(market, spec), n_ticks, share=spec.share,
+                                     randomization=spec.randomization, rng=rng,
+                                     exposure_units=exposure,
+                                     unit_kind="pool" if spec.clusters == "pools" else "cluster")
+    unit_of_user = (market.pool_of_user if spec.per == "pool"
+                    else np.zeros(market.n_users, dtype=np.int64))
+    return draw_switchback_schedule(unit_of_user, n_ticks,
+                                    block_ticks=spec.block_hours // calendar.tick_hours,
+                                    share=spec.share, rng=rng)
+
+
+def estimator_name(spec: DesignSpec) -> str:
+    """Return the full name of the estimator that analyses a design."""
+    if spec.kind == "user":
+        return "regression_adjusted_difference" if spec.adjust else "difference_in_means"
+    if spec.kind == "cluster":
+        if spec.exposure == "neighbourhood":
+            return "horvitz_thompson_exposure" if spec.estimator == "horvitz_thompson" \
+                else "hajek_exposure"
+        return "horvitz_thompson_cluster" if spec.estimator == "horvitz_thompson" \
+            else "hajek_cluster"
+    return "switchback_difference"
+
+
+def estimate_design(spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                    confidence: float, tick_hours: int) -> Estimate:
+    """Analyse one design's world with its estimator."""
+    function = getattr(estimators, estimator_name(spec))
+    if spec.kind == "switchback":
+        return function(panel, schedule, confidence=confidence,
+                        burn_in_ticks=spec.burn_in_hours // tick_hours)
+    return function(panel, schedule, confidence=confidence)
+
+
+def describe_unit(spec: DesignSpec) -> str:
+    """Return the randomization unit in words, e.g. ``"pool"`` or ``"market block of 24 h"``."""
+    if spec.kind == "user":
+        return "user"
+    if spec.kind == "cluster":
+        return {"pools": "stock pool", "graph": "graph community",
+                "pools+graph": "pool with its communities"}[spec.clusters]
+    where = "pool" if spec.per == "pool" else "market"
+    burn = f", first {spec.burn_in_hours} h after a switch left out" if spec.burn_in_hours else ""
+    return f"{where} time block of {spec.block_hours} h{burn}"

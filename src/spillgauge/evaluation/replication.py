@@ -1,0 +1,157 @@
+"""One replication: the two truth worlds and every design's world on the same random numbers."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from spillgauge.errors import DegenerateEstimateWarning
+from spillgauge.evaluation.plan import draw_design_schedule, estimate_design
+from spillgauge.evaluation.truth import ReplicationTruth, replication_truth
+from spillgauge.model.market import Market, build_market
+from spillgauge.model.world import simulate_worlds
+from spillgauge.panel import OutcomePanel
+from spillgauge.scenario import Scenario
+from spillgauge.schedule import AssignmentSchedule
+from spillgauge.seeding import ASSIGNMENT, DEMAND, design_key, stream
+
+__all__ = ["ReplicationResult", "run_replication", "result_to_record", "result_from_record",
+           "SAMPLE_POOLS"]
+
+SAMPLE_POOLS = 4  # pools whose stock paths are kept for the report
+
+
+@dataclass(frozen=True, slots=True)
+class ReplicationResult:
+    """What one replication leaves behind: the truth, and one estimate per design.
+
+    ``estimates`` maps a design label to a dict with ``estimate``, ``se``,
+    ``ci_low``, ``ci_high`` and ``n_units``. ``traces`` (first replication only)
+    holds small arrays for the report: sample pools' stock and lost orders per
+    world, and each switchback's effect by ticks since a switch.
+    """
+
+    replication: int
+    truth: ReplicationTruth
+    estimates: dict
+    traces: dict = field(default_factory=dict)
+
+    def rows(self) -> list[dict]:
+        """Return one flat record per design (for replications.csv)."""
+        return [{"replication": self.replication, "label": label, **values,
+                 "gte": self.truth.gte} for label, values in self.estimates.items()]
+
+
+def _switch_profile(panel: OutcomePanel, schedule: AssignmentSchedule) -> np.ndarray:
+    """Return treated minus control mean orders per user-tick, by ticks since the block start.
+
+    Only blocks whose arm differs from the unit's previous block count, so the
+    profile shows how the effect builds up after a switch (and where carryover
+    from the previous arm fades).
+    """
+    lengths = schedule.period_lengths()
+    block = int(lengths.max())
+    users = np.bincount(schedule.unit_of_user, minlength=schedule.n_units).astype(float)
+    pool_to_unit = np.zeros(panel.n_pools, dtype=np.int64)
+    pool_to_unit[panel.pool_of_user] = schedule.unit_of_user
+    unit_tick = np.zeros((schedule.n_units, panel.n_ticks))
+    np.add.at(unit_tick, pool_to_unit, panel.pool_fulfilled)
+    per_user = unit_tick / np.maximum(users, 1)[:, None]
+    sums = np.zeros((2, block))
+    counts = np.zeros((2, block))
+    treated = schedule.is_treated
+    for k, (start, length) in enumerate(zip(schedule.period_start_ticks, lengths)):
+        switched = treated[:, k] != treated[:, k - 1] if k else np.ones(schedule.n_units, bool)
+        for arm in (0, 1):
+            rows = switched & (treated[:, k] == bool(arm))
+            if rows.any():
+                sums[arm, :length] += per_user[rows, start:start + length].sum(axis=0)
+                counts[arm, :length] += rows.sum()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return sums[1] / counts[1] - sums[0] / counts[0]
+
+
+def _pool_traces(panel: OutcomePanel, pools: np.ndarray) -> dict:
+    return {"stock": panel.pool_stock[pools].tolist(), "lost": panel.pool_lost[pools].tolist(),
+            "demanded": panel.pool_demanded[pools].tolist()}
+
+
+def run_replication(scenario: Scenario, seed: int, replication: int, *,
+                    market: Market | None = None, keep_traces: bool | None = None,
+                    designs: tuple | None = None) -> ReplicationResult:
+    """Run one replication of a study.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    seed : int
+        Study seed; the replication's streams derive from (seed, replication).
+    replication : int
+    market : Market, optional
+        The scenario's market (built and cached when not given).
+    keep_traces : bool, optional
+        Keep the small arrays the report draws; by default only for replication 0.
+    designs : tuple of DesignSpec, optional
+        Designs to run; by default the scenario's. ``()`` runs only the truth worlds.
+    """
+    designs = scenario.designs if designs is None else tuple(designs)
+    market = market if market is not None else build_market(scenario, seed)
+    n_users, n_ticks = market.n_users, scenario.calendar.n_ticks
+    schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),
+                 AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=True)]
+    for spec in designs:
+        rng = np.random.default_rng(stream(seed, replication, ASSIGNMENT, design_key(spec.label)))
+        schedules.append(draw_design_schedule(market, spec, rng=rng))
+    demand_rng = np.random.default_rng(stream(seed, replication, DEMAND))
+    panels = simulate_worlds(market, schedules, rng=demand_rng)
+    truth = replication_truth(panels[0], panels[1])
+    confidence = 1.0 - scenario.study.alpha
+    estimates = {}
+    for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DegenerateEstimateWarning)
+            result = estimate_design(spec, panel, schedule, confidence=confidence,
+                                     tick_hours=scenario.calendar.tick_hours)
+        estimates[spec.label] = {"estimate": result.point, "se": result.standard_error,
+                                 "ci_low": result.ci_low, "ci_high": result.ci_high,
+                                 "n_units": result.n_units}
+    keep = replication == 0 if keep_traces is None else keep_traces
+    traces = {}
+    if keep:
+        demand = panels[0].pool_demanded.sum(axis=1)
+        pools = np.sort(np.argsort(-demand, kind="stable")[:SAMPLE_POOLS])
+        traces["pools"] = pools.tolist()
+        traces["worlds"] = {"all control": _pool_traces(panels[0], pools),
+                            "all treated": _pool_traces(panels[1], pools)}
+        for spec, panel in zip(designs, panels[2:]):
+            traces["worlds"][spec.label] = _pool_traces(panel, pools)
+    profiles = {}
+    for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
+        if spec.kind == "switchback":
+            profile = _switch_profile(panel, schedule)
+            profiles[spec.label] = [x if math.isfinite(x) else None for x in profile.tolist()]
+    traces["switch_profiles"] = profiles
+    return ReplicationResult(replication=replication, truth=truth, estimates=estimates,
+                             traces=traces)
+
+
+def result_to_record(result: ReplicationResult) -> dict:
+    """Return a replication result as JSON-ready data."""
+    return {"replication": result.replication, "truth": result.truth.to_dict(),
+            "estimates": {label: {k: (None if isinstance(v, float) and not math.isfinite(v)
+                                      else v) for k, v in values.items()}
+                          for label, values in result.estimates.items()},
+            "traces": result.traces}
+
+
+def result_from_record(record: dict) -> ReplicationResult:
+    """Rebuild a replication result saved with :func:`result_to_record`."""
+    estimates = {label: {k: (float("nan") if v is None else v) for k, v in values.items()}
+                 for label, values in record["estimates"].items()}
+    truth = ReplicationTruth(**{k: (float("nan") if v is None else v)
+                                for k, v in record["truth"].items()})
+    return ReplicationResult(replication=int(record["replication"]), truth=truth,
+                             estimates=estimates, traces=record.get("traces", {}))

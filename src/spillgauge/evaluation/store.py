@@ -1,0 +1,146 @@
+"""The results folder: append-only replication log, atomic final files, resume."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from pathlib import Path
+
+from spillgauge.errors import ResultsError
+from spillgauge.evaluation.replication import (
+    ReplicationResult,
+    result_from_record,
+    result_to_record,
+)
+from spillgauge.scenario import Scenario, scenario_to_dict
+
+__all__ = ["ResultsFolder", "write_atomic", "FORMAT_VERSION"]
+
+FORMAT_VERSION = 1
+_STUDY = "study.json"
+_LOG = "replications.jsonl"
+
+
+def write_atomic(path: str | Path, text: str) -> None:
+    """Write a text file atomically: a temporary file in the same folder, then a rename."""
+    path = Path(path)
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8") as stream:
+            stream.write(text)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
+
+
+def _json_default(value):
+    if hasattr(value, "item"):
+        return value.item()
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    raise TypeError(f"cannot write {type(value).__name__} as JSON")
+
+
+def dumps(data: object) -> str:
+    """Return standard JSON (NaN written as null)."""
+    def clean(x):
+        if isinstance(x, float) and not math.isfinite(x):
+            return None
+        if isinstance(x, dict):
+            return {k: clean(v) for k, v in x.items()}
+        if isinstance(x, (list, tuple)):
+            return [clean(v) for v in x]
+        return x
+    return json.dumps(clean(data), default=_json_default, indent=2, allow_nan=False)
+
+
+class ResultsFolder:
+    """A study's results folder.
+
+    ``study.json`` fingerprints the study (scenario settings except the number
+    of replications, and the seed); a folder holding another study is refused,
+    never overwritten.
+    """
+
+    def __init__(self, path: str | Path, scenario: Scenario, seed: int) -> None:
+        self.path = Path(path)
+        settings = scenario_to_dict(scenario)
+        settings["study"] = {k: v for k, v in settings["study"].items() if k != "reps"}
+        self.fingerprint = {"format": FORMAT_VERSION, "scenario": scenario.name,
+                            "seed": int(seed), "settings": settings}
+
+    @property
+    def log_path(self) -> Path:
+        """The append-only replication log."""
+        return self.path / _LOG
+
+    def _check_owner(self) -> bool:
+        study = self.path / _STUDY
+        if not study.exists():
+            if (self.path / "summary.json").exists():
+                raise ResultsError(f"{self.path} holds results without a study.json; "
+                                   "choose another --out folder")
+            return False
+        try:
+            saved = json.loads(study.read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError) as exc:
+            raise ResultsError(f"{study} cannot be read ({exc}); choose another --out folder") \
+                from None
+        if saved != json.loads(dumps(self.fingerprint)):
+            raise ResultsError(
+                f"{self.path} holds a study of scenario {saved.get('scenario')!r} with seed "
+                f"{saved.get('seed')}, not this one (scenario {self.fingerprint['scenario']!r}, "
+                f"seed {self.fingerprint['seed']}, or other settings differ); "
+                "choose another --out folder or delete it")
+        return True
+
+    def open(self, *, resume: bool) -> list[ReplicationResult]:
+        """Prepare the folder; return the replications already saved when resuming."""
+        self.path.mkdir(parents=True, exist_ok=True)
+        ours = self._check_owner()
+        if not ours:
+            write_atomic(self.path / _STUDY, dumps(self.fingerprint))
+        if not resume or not self.log_path.exists():
+            write_atomic(self.log_path, "")
+            return []
+        saved = self.read()
+        # Rewrite the log without a torn last line, so new lines append cleanly.
+        write_atomic(self.log_path, "".join(
+            json.dumps(json.loads(dumps(result_to_record(r))), separators=(",", ":")) + "\n"
+            for r in saved))
+        return saved
+
+    def read(self) -> list[ReplicationResult]:
+        """Return the saved replications (a torn last line from a kill is skipped)."""
+        results = {}
+        if not self.log_path.exists():
+            return []
+        with open(self.log_path, encoding="utf-8") as stream:
+            for line in stream:
+                try:
+                    record = json.loads(line)
+                except json.JSONDecodeError:
+                    continue
+                result = result_from_record(record)
+                results[result.replication] = result
+        return [results[k] for k in sorted(results)]
+
+    def append(self, result: ReplicationResult) -> None:
+        """Append one finished replication, flushed and fsynced."""
+        line = json.dumps(json.loads(dumps(result_to_record(result))), separators=(",", ":"))
+        with open(self.log_path, "a", encoding="utf-8") as stream:
+            stream.write(line + "\n")
+            stream.flush()
+            os.fsync(stream.fileno())
+
+    def finish(self, study) -> None:
+        """Write ``summary.json`` and ``replications.csv`` atomically."""
+        write_atomic(self.path / "summary.json", dumps(study.summary()))
+        write_atomic(self.path / "replications.csv",
+                     study.replications_frame().to_csv(index=False))

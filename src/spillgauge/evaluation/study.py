@@ -1,0 +1,259 @@
+"""The study: replications x designs -> metrics -> recommendation, saved as it goes.
+
+Replications are independent. They run serially, on local processes
+(``workers``) or on a Dask cluster (``scheduler``); every stream derives from
+(seed, replication), so the same seed gives the same bits whatever runs them.
+Each finished replication is appended to ``replications.jsonl`` (flushed and
+fsynced) in the results folder, so an interrupted study resumes and loses
+nothing; the final files are written atomically.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+
+from spillgauge.evaluation.metrics import DesignMetrics, design_metrics
+from spillgauge.evaluation.plan import describe_unit, estimator_name
+from spillgauge.evaluation.recommend import Candidate, Recommendation, recommend
+from spillgauge.evaluation.replication import ReplicationResult, run_replication
+from spillgauge.evaluation.store import ResultsFolder
+from spillgauge.evaluation.truth import TruthSummary, summarise_truth
+from spillgauge.model.market import build_market
+from spillgauge.scenario import Scenario, design_to_dict, scenario_to_dict
+
+__all__ = ["StudyResult", "run_study", "run_truth", "summarise_study", "default_workers"]
+
+Progress = Callable[[int, int], None]
+
+
+def default_workers() -> int:
+    """Return the number of local processes used by default: the machine's cores."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - platforms without affinity
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True, eq=False)
+class StudyResult:
+    """Everything a study produced.
+
+    Attributes
+    ----------
+    scenario : Scenario
+    seed, reps : int
+    truth : TruthSummary
+    metrics : dict of str to DesignMetrics
+        Per design label, in scenario order.
+    recommendation : Recommendation
+    replications : list of ReplicationResult
+        Sorted by replication index.
+    """
+
+    scenario: Scenario
+    seed: int
+    reps: int
+    truth: TruthSummary
+    metrics: dict
+    recommendation: Recommendation
+    replications: list = field(repr=False)
+    market_summary: dict = field(default_factory=dict, repr=False)
+
+    def designs_frame(self):
+        """Return the design table (one row per design, all metrics) as a DataFrame."""
+        import pandas as pd
+
+        return pd.DataFrame(self.summary()["designs"])
+
+    def replications_frame(self):
+        """Return one row per replication x design as a DataFrame."""
+        import pandas as pd
+
+        rows = [row for rep in self.replications for row in rep.rows()]
+        return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
+                                           "ci_high", "n_units", "gte"])
+
+    def switch_profiles(self) -> dict:
+        """Return each switchback's mean effect per user-tick by ticks since a switch."""
+        out = {}
+        for rep in self.replications:
+            for label, profile in rep.traces.get("switch_profiles", {}).items():
+                values = np.array([np.nan if v is None else v for v in profile], dtype=float)
+                out.setdefault(label, []).append(values)
+        return {label: np.nanmean(np.stack(rows), axis=0) if rows else np.array([])
+                for label, rows in out.items()}
+
+    def summary(self) -> dict:
+        """Return the content of ``summary.json``."""
+        designs = []
+        for spec in self.scenario.designs:
+            m = self.metrics[spec.label]
+            designs.append({"label": spec.label, "kind": spec.kind,
+                            "estimator": estimator_name(spec), "unit": describe_unit(spec),
+                            **_finite(m.to_dict())})
+        truth = _finite(self.truth.to_dict())
+        return {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
+                "truth": truth, "designs": designs,
+                "recommendation": {"label": self.recommendation.label,
+                                   "reason": self.recommendation.reason,
+                                   "is_trustworthy": self.recommendation.is_trustworthy},
+                "market": self.market_summary,
+                "scenario_settings": scenario_to_dict(self.scenario)}
+
+
+def _finite(values: dict) -> dict:
+    """Replace NaN and infinities by None so the JSON is standard."""
+    return {k: (None if isinstance(v, float) and not math.isfinite(v) else v)
+            for k, v in values.items()}
+
+
+def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
+                    market_summary: dict | None = None) -> StudyResult:
+    """Turn finished replications into metrics and a recommendation."""
+    results = sorted(results, key=lambda r: r.replication)
+    truth = summarise_truth([r.truth for r in results])
+    gte = np.array([r.truth.gte for r in results])
+    alpha = scenario.study.alpha
+    metrics: dict[str, DesignMetrics] = {}
+    candidates = []
+    for spec in scenario.designs:
+        rows = [r.estimates[spec.label] for r in results]
+        column = {k: np.array([row[k] for row in rows], dtype=float)
+                  for k in ("estimate", "se", "ci_low", "ci_high", "n_units")}
+        m = design_metrics(column["estimate"], column["se"], column["ci_low"],
+                           column["ci_high"], gte, alpha=alpha)
+        metrics[spec.label] = m
+        candidates.append(Candidate(label=spec.label, kind=spec.kind, unit=describe_unit(spec),
+                                    n_units=float(np.nanmean(column["n_units"])), metrics=m,
+                                    params=_design_params(spec)))
+    advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
+    return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
+                       metrics=metrics, recommendation=advice, replications=results,
+                       market_summary=market_summary or {})
+
+
+def _design_params(spec) -> dict:
+    return {k: v for k, v in design_to_dict(spec).items() if k not in ("kind", "label")}
+
+
+def _run_task(scenario: Scenario, seed: int, replication: int,
+              designs: tuple | None = None) -> ReplicationResult:
+    """Run one replication in a worker (the market comes from the worker's cache)."""
+    return run_replication(scenario, seed, replication, designs=designs)
+
+
+def _run_replications(scenario: Scenario, seed: int, todo: list[int], *, workers: int | None,
+                      scheduler: str | None, finished: Callable[[ReplicationResult], None],
+                      designs: tuple | None = None) -> None:
+    if scheduler is not None:
+        _run_on_dask(scheduler, scenario, seed, todo, finished, designs)
+        return
+    n_workers = default_workers() if workers is None else max(1, int(workers))
+    if n_workers == 1 or len(todo) <= 1:
+        market = build_market(scenario, seed)
+        for r in todo:
+            finished(run_replication(scenario, seed, r, market=market, designs=designs))
+        return
+    import multiprocessing
+
+    context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
+    with ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context) as pool:
+        futures = [pool.submit(_run_task, scenario, seed, r, designs) for r in todo]
+        for future in as_completed(futures):
+            finished(future.result())
+
+
+def run_truth(scenario: Scenario, *, reps: int | None = None, seed: int | None = None,
+              workers: int | None = 1, scheduler: str | None = None,
+              progress: Progress | None = None) -> TruthSummary:
+    """Run only the two counterfactual worlds of each replication and summarise the truth."""
+    reps = scenario.study.reps if reps is None else int(reps)
+    seed = scenario.study.seed if seed is None else int(seed)
+    build_market(scenario, seed)
+    truths = []
+
+    def finished(result: ReplicationResult) -> None:
+        truths.append(result)
+        if progress:
+            progress(len(truths), reps)
+
+    _run_replications(scenario, seed, list(range(reps)), workers=workers, scheduler=scheduler,
+                      finished=finished, designs=())
+    truths.sort(key=lambda r: r.replication)
+    return summarise_truth([r.truth for r in truths])
+
+
+def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None = None,
+              workers: int | None = 1, scheduler: str | None = None,
+              out: str | Path | None = None, resume: bool = False,
+              progress: Progress | None = None) -> StudyResult:
+    """Run a study: every replication's truth worlds and design worlds, then the metrics.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    reps, seed : int, optional
+        Override ``study.reps`` and ``study.seed``.
+    workers : int, optional
+        Local processes; 1 runs in this process, ``None`` uses every core.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler (needs ``spillgauge[dask]``).
+    out : path, optional
+        Results folder: finished replications are saved there as they complete.
+    resume : bool
+        Continue from the replications already saved in ``out``.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each replication.
+
+    Returns
+    -------
+    StudyResult
+    """
+    reps = scenario.study.reps if reps is None else int(reps)
+    seed = scenario.study.seed if seed is None else int(seed)
+    scenario = replace(scenario, study=replace(scenario.study, reps=reps, seed=seed))
+    market = build_market(scenario, seed)
+    from spillgauge.evaluation.market_summary import summarise_market
+
+    market_summary = summarise_market(market)
+    folder = ResultsFolder(out, scenario, seed) if out is not None else None
+    done: dict[int, ReplicationResult] = {}
+    if folder is not None:
+        done = {r.replication: r for r in folder.open(resume=resume) if r.replication < reps}
+    todo = [r for r in range(reps) if r not in done]
+    total = reps
+    if progress:
+        progress(len(done), total)
+
+    def finished(result: ReplicationResult) -> None:
+        done[result.replication] = result
+        if folder is not None:
+            folder.append(result)
+        if progress:
+            progress(len(done), total)
+
+    _run_replications(scenario, seed, todo, workers=workers, scheduler=scheduler,
+                      finished=finished)
+    result = summarise_study(scenario, seed, list(done.values()), market_summary)
+    if folder is not None:
+        folder.finish(result)
+    return result
+
+
+def _run_on_dask(address: str, scenario: Scenario, seed: int, todo: list[int],
+                 finished: Callable[[ReplicationResult], None], designs: tuple | None) -> None:
+    try:
+        from dask.distributed import Client, as_completed as dask_completed
+    except ImportError as exc:  # pragma: no cover - depends on the environment
+        raise RuntimeError("--scheduler needs Dask: pip install 'spillgauge[dask]'") from exc
+    with Client(address) as client:
+        futures = [client.submit(_run_task, scenario, seed, r, designs, pure=False) for r in todo]
+        for future in dask_completed(futures):
+            finished(future.result())

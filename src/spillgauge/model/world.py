@@ -1,0 +1,293 @@
+"""The engine: simulate the worlds of one replication on common random numbers.
+
+Every world of a replication (all control, all treated, each design's) draws
+its demand from the same candidate order events: a Poisson process per user at
+the user's highest possible rate, with one uniform per event. A world keeps an
+event when its uniform falls below the world's rate / the highest rate
+(thinning; Lewis & Shedler 1979), so the worlds differ only where their rates
+differ. Kept orders are served from their home pool's stock in arrival order;
+within a tick that order is random. simpy holds the stock calendar (reviews,
+deliveries after the lead time); between two stock events the arithmetic is
+vectorized numpy over all order events and all worlds at once, so the cost
+grows with the number of order events, not with users x ticks.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import simpy
+
+from spillgauge.model.calendar import day_of_tick, diurnal_multiplier, segment_bounds
+from spillgauge.model.market import Market
+from spillgauge.model.treatment import own_dose_of_events, peer_exposure_of_events, unit_dose
+from spillgauge.panel import OutcomePanel
+from spillgauge.schedule import AssignmentSchedule
+from spillgauge.seeding import check_rng
+
+__all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
+
+
+@dataclass(frozen=True, eq=False, slots=True)
+class CandidateEvents:
+    """The candidate order events of one replication, shared by all its worlds.
+
+    Events are sorted by (segment, home pool, arrival time).
+
+    Attributes
+    ----------
+    user, pool, tick, day : ndarray of int, shape (n_events,)
+    hour : ndarray of float, shape (n_events,)
+        Arrival time in hours since the start.
+    base_accept : ndarray of float, shape (n_events,)
+        ``diurnal(hour) / peak``: the acceptance probability of an untreated,
+        unexposed user.
+    uniform : ndarray of float, shape (n_events,)
+        The thinning uniform of each event.
+    segment_starts : ndarray of int, shape (n_segments + 1,)
+        Index of the first event of each segment, then ``n_events``.
+    """
+
+    user: np.ndarray
+    pool: np.ndarray
+    tick: np.ndarray
+    day: np.ndarray
+    hour: np.ndarray
+    base_accept: np.ndarray
+    uniform: np.ndarray
+    segment_starts: np.ndarray
+    substitute_uniform: np.ndarray | None
+    substitute_pool: np.ndarray | None
+
+    @property
+    def n_events(self) -> int:
+        """Number of candidate events."""
+        return int(self.user.size)
+
+
+def _peak_factor(market: Market) -> float:
+    """Bound every world's rate multiplier (peers count only when the graph has edges)."""
+    effect = market.scenario.effect
+    amplitude = market.scenario.calendar.diurnal_amplitude
+    peer = max(1.0, 1.0 + effect.peer_lift) if market.adjacency.nnz else 1.0
+    return (1.0 + amplitude) * max(1.0, 1.0 + effect.lift) * peer
+
+
+def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEvents:
+    """Draw the candidate order events of one replication.
+
+    Each user gets ``Poisson(peak * rate_i * horizon_hours)`` candidates at
+    uniform times, where ``peak`` bounds every world's rate multiplier.
+    """
+    check_rng(rng)
+    scenario = market.scenario
+    calendar, pools = scenario.calendar, scenario.pools
+    population = market.population
+    horizon = float(calendar.horizon_hours)
+    peak = _peak_factor(market)
+    counts = rng.poisson(population.rate_per_hour * (peak * horizon))
+    user = np.repeat(np.arange(population.n_users, dtype=np.int64), counts)
+    hour = rng.random(user.size) * horizon
+    substitute = pools.on_stockout == "substitute" and population.n_pools > 1
+    bounds = segment_bounds(pools, calendar, every_tick=substitute)
+    tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
+    segment = np.searchsorted(bounds, tick, side="right") - 1
+    pool = population.pool_of_user[user]
+    key = (segment * population.n_pools + pool).astype(float) + hour / horizon
+    order = np.argsort(key)
+    user, hour, tick, pool, segment = (a[order] for a in (user, hour, tick, pool, segment))
+    uniform = rng.random(user.size)
+    segment_starts = np.searchsorted(segment, np.arange(bounds.size))
+    substitute_uniform = substitute_pool = None
+    if substitute:
+        substitute_uniform = rng.random(user.size)
+        shift = 1 + np.floor(rng.random(user.size) * (population.n_pools - 1)).astype(np.int64)
+        substitute_pool = (pool + shift) % population.n_pools
+    day = day_of_tick(calendar)[tick]
+    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) / peak
+    return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
+                           base_accept=base_accept, uniform=uniform,
+                           segment_starts=segment_starts, substitute_uniform=substitute_uniform,
+                           substitute_pool=substitute_pool)
+
+
+def _accepted(market: Market, events: CandidateEvents, schedule: AssignmentSchedule
+              ) -> np.ndarray:
+    """Return which candidate events become orders in a world, shape ``(n_events,)``."""
+    effect = market.scenario.effect
+    calendar = market.scenario.calendar
+    if schedule.n_users != market.n_users or schedule.n_ticks != calendar.n_ticks:
+        raise ValueError("the schedule does not match the market (users or ticks differ)")
+    probability = events.base_accept
+    if not schedule.is_treated.any():
+        return events.uniform < probability
+    dose = unit_dose(schedule, half_life_hours=effect.carryover_half_life_hours,
+                     tick_hours=calendar.tick_hours)
+    probability = probability * (1.0 + effect.lift * own_dose_of_events(
+        dose, schedule.unit_of_user, events.user, events.tick))
+    if effect.peer_lift != 0 and market.adjacency.nnz:
+        exposure = peer_exposure_of_events(market.adjacency, schedule.unit_of_user, dose,
+                                           events.user, events.tick)
+        probability = probability * (1.0 + effect.peer_lift * exposure)
+    return events.uniform < probability
+
+
+def _serve_in_order(accepted: np.ndarray, pools: np.ndarray, level: np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Serve accepted orders grouped by pool, in order, from each pool's stock level.
+
+    Parameters
+    ----------
+    accepted : ndarray of bool, shape (n_worlds, n)
+    pools : ndarray of int, shape (n,)
+        Pool of each order; equal pools are contiguous.
+    level : ndarray of int, shape (n_worlds, n_pools)
+        Stock at the start; not modified.
+
+    Returns
+    -------
+    served : ndarray of bool, shape (n_worlds, n)
+    sold : ndarray of int, shape (n_worlds, n_pools)
+    """
+    n_worlds, n = accepted.shape
+    if n == 0:
+        return accepted.copy(), np.zeros_like(level)
+    running = np.cumsum(accepted, axis=1, dtype=np.int64)
+    is_first = np.empty(n, dtype=bool)
+    is_first[0] = True
+    np.not_equal(pools[1:], pools[:-1], out=is_first[1:])
+    first = np.flatnonzero(is_first)
+    group_of = np.cumsum(is_first) - 1
+    before = np.where(first > 0, running[:, np.maximum(first - 1, 0)], 0)  # (n_worlds, groups)
+    rank = running - before[:, group_of]
+    served = accepted & (rank <= np.take_along_axis(level, np.broadcast_to(pools, (n_worlds, n)),
+                                                    axis=1))
+    sold = np.zeros_like(level)
+    last = np.append(first[1:], n) - 1
+    demand = running[:, last] - before
+    group_pool = pools[first]
+    sold[:, group_pool] = np.minimum(demand, level[:, group_pool])
+    return served, sold
+
+
+def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
+                    rng: np.random.Generator, events: CandidateEvents | None = None
+                    ) -> list[OutcomePanel]:
+    """Simulate one world per schedule on the same candidate order events.
+
+    Parameters
+    ----------
+    market : Market
+    schedules : list of AssignmentSchedule
+        One per world, e.g. all control, all treated and each design's draw.
+    rng : numpy.random.Generator
+        The replication's demand stream; every world shares its draws.
+    events : CandidateEvents, optional
+        Candidates already drawn with :func:`draw_candidates` (then ``rng`` is
+        not used).
+
+    Returns
+    -------
+    list of OutcomePanel
+        One per schedule, in order.
+    """
+    check_rng(rng)
+    if events is None:
+        events = draw_candidates(market, rng=rng)
+    scenario = market.scenario
+    calendar, pools = scenario.calendar, scenario.pools
+    population = market.population
+    n_worlds, n_pools, n_ticks = len(schedules), population.n_pools, calendar.n_ticks
+    accepted = np.stack([_accepted(market, events, s) for s in schedules]) if n_worlds else \
+        np.zeros((0, events.n_events), dtype=bool)
+    served = np.zeros_like(accepted)
+    substituted = np.zeros_like(accepted)
+    level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
+    order_up_to = population.order_up_to
+    substitute = events.substitute_pool is not None
+    bounds = segment_bounds(pools, calendar, every_tick=substitute)
+    n_segments = bounds.size - 1
+    level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
+
+    env = simpy.Environment()
+
+    def deliver(quantity: np.ndarray):
+        yield env.timeout(pools.lead_time_hours)
+        level[:] += quantity
+
+    def restock():
+        while True:
+            quantity = np.maximum(order_up_to[None, :] - level, 0)
+            if pools.lead_time_hours == 0:
+                level[:] += quantity
+            else:
+                env.process(deliver(quantity))
+            yield env.timeout(pools.restock_every_hours)
+
+    env.process(restock())
+    for s in range(n_segments):
+        start_hour = bounds[s] * calendar.tick_hours
+        while env.peek() <= start_hour:
+            env.step()
+        level_at_start[s] = level
+        lo, hi = events.segment_starts[s], events.segment_starts[s + 1]
+        if hi == lo:
+            continue
+        home = events.pool[lo:hi]
+        done, sold = _serve_in_order(accepted[:, lo:hi], home, level)
+        served[:, lo:hi] = done
+        level -= sold
+        if substitute:
+            _substitute(events, accepted, served, substituted, level, lo, hi, pools)
+    return [_panel(market, events, accepted[w], served[w] | substituted[w], substituted[w],
+                   level_at_start[:, w, :], bounds) for w in range(n_worlds)]
+
+
+def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarray,
+                substituted: np.ndarray, level: np.ndarray, lo: int, hi: int, pools) -> None:
+    """Send a share of one tick's lost orders to another pool, served from what it has left."""
+    lost = accepted[:, lo:hi] & ~served[:, lo:hi]
+    tries = lost & (events.substitute_uniform[lo:hi] < pools.substitute_share)
+    if not tries.any():
+        return
+    target = events.substitute_pool[lo:hi]
+    order = np.lexsort((events.hour[lo:hi], target))
+    done, sold = _serve_in_order(tries[:, order], target[order], level)
+    got = np.zeros_like(done)
+    got[:, order] = done
+    substituted[:, lo:hi] = got
+    level -= sold
+
+
+def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
+           fulfilled: np.ndarray, substituted: np.ndarray, level_at_start: np.ndarray,
+           bounds: np.ndarray) -> OutcomePanel:
+    calendar = market.scenario.calendar
+    population = market.population
+    n_users, n_pools, n_ticks = population.n_users, population.n_pools, calendar.n_ticks
+    n_days = calendar.days
+
+    def per_user_day(mask: np.ndarray) -> np.ndarray:
+        index = events.user[mask] * n_days + events.day[mask]
+        return np.bincount(index, minlength=n_users * n_days).reshape(n_users, n_days).astype(
+            np.int32)
+
+    def per_pool_tick(mask: np.ndarray, pool: np.ndarray) -> np.ndarray:
+        index = pool[mask] * n_ticks + events.tick[mask]
+        return np.bincount(index, minlength=n_pools * n_ticks).reshape(n_pools, n_ticks)
+
+    pool_fulfilled = per_pool_tick(fulfilled, events.pool)
+    pool_demanded = per_pool_tick(accepted, events.pool)
+    sold = per_pool_tick(fulfilled & ~substituted, events.pool)
+    if events.substitute_pool is not None and substituted.any():
+        sold += per_pool_tick(substituted, events.substitute_pool)
+    stock = np.empty((n_pools, n_ticks), dtype=np.int64)
+    for s in range(bounds.size - 1):
+        a, b = bounds[s], bounds[s + 1]
+        stock[:, a:b] = level_at_start[s][:, None] - np.cumsum(sold[:, a:b], axis=1)
+    return OutcomePanel(fulfilled=per_user_day(fulfilled), demanded=per_user_day(accepted),
+                        pool_of_user=population.pool_of_user, history=population.history,
+                        pool_fulfilled=pool_fulfilled, pool_demanded=pool_demanded,
+                        pool_lost=pool_demanded - pool_fulfilled, pool_stock=stock,
+                        tick_hours=calendar.tick_hours)

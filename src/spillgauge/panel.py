@@ -1,0 +1,126 @@
+"""OutcomePanel: what one world produced, per user and per pool."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["OutcomePanel"]
+
+
+@dataclass(frozen=True, eq=False, slots=True)
+class OutcomePanel:
+    """Outcomes of one world.
+
+    Parameters
+    ----------
+    fulfilled : ndarray of int, shape (n_users, n_days)
+        Orders of each user fulfilled on each day (from any pool).
+    demanded : ndarray of int, shape (n_users, n_days)
+        Orders each user placed on each day (fulfilled or not).
+    pool_of_user : ndarray of int, shape (n_users,)
+        Home stock pool of each user.
+    history : ndarray of float, shape (n_users,)
+        Orders of each user in the pre-period (before the experiment); zeros when
+        the scenario has no pre-period.
+    pool_fulfilled, pool_demanded, pool_lost : ndarray of int, shape (n_pools, n_ticks)
+        Orders of each pool's users fulfilled, placed and lost in each tick.
+    pool_stock : ndarray of int, shape (n_pools, n_ticks)
+        Stock level of each pool at the end of each tick.
+    tick_hours : int
+        Length of one tick in hours.
+    """
+
+    fulfilled: np.ndarray
+    demanded: np.ndarray
+    pool_of_user: np.ndarray
+    history: np.ndarray
+    pool_fulfilled: np.ndarray
+    pool_demanded: np.ndarray
+    pool_lost: np.ndarray
+    pool_stock: np.ndarray
+    tick_hours: int = 1
+
+    def __post_init__(self) -> None:
+        n_users, n_days = self.fulfilled.shape
+        if self.demanded.shape != (n_users, n_days):
+            raise ValueError("demanded must have the shape of fulfilled")
+        if self.pool_of_user.shape != (n_users,) or self.history.shape != (n_users,):
+            raise ValueError("pool_of_user and history must have shape (n_users,)")
+        shape = self.pool_fulfilled.shape
+        for name in ("pool_demanded", "pool_lost", "pool_stock"):
+            if getattr(self, name).shape != shape:
+                raise ValueError(f"{name} must have the shape of pool_fulfilled {shape}")
+        for name in ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
+                     "pool_demanded", "pool_lost", "pool_stock"):
+            getattr(self, name).setflags(write=False)
+
+    @property
+    def n_users(self) -> int:
+        """Number of users."""
+        return int(self.fulfilled.shape[0])
+
+    @property
+    def n_days(self) -> int:
+        """Number of days."""
+        return int(self.fulfilled.shape[1])
+
+    @property
+    def n_pools(self) -> int:
+        """Number of stock pools."""
+        return int(self.pool_fulfilled.shape[0])
+
+    @property
+    def n_ticks(self) -> int:
+        """Number of ticks."""
+        return int(self.pool_fulfilled.shape[1])
+
+    def user_fulfilled(self) -> np.ndarray:
+        """Return each user's fulfilled orders over the horizon, shape ``(n_users,)``."""
+        return self.fulfilled.sum(axis=1, dtype=np.int64).astype(float)
+
+    def user_demanded(self) -> np.ndarray:
+        """Return each user's placed orders over the horizon, shape ``(n_users,)``."""
+        return self.demanded.sum(axis=1, dtype=np.int64).astype(float)
+
+    def users_per_pool(self) -> np.ndarray:
+        """Return the number of users whose home is each pool, shape ``(n_pools,)``."""
+        return np.bincount(self.pool_of_user, minlength=self.n_pools)
+
+    @classmethod
+    def from_arrays(cls, **arrays: np.ndarray | int) -> OutcomePanel:
+        """Build a panel; missing per-pool arrays are derived from the user arrays.
+
+        Meant for tests and for estimators' worked examples: ``fulfilled`` (and
+        optionally ``demanded``, ``pool_of_user``, ``history``) per user and day.
+        Per-pool tables then have one tick per day.
+
+        >>> p = OutcomePanel.from_arrays(fulfilled=np.array([[1], [2], [3]]))
+        >>> p.user_fulfilled().tolist(), p.n_pools
+        ([1.0, 2.0, 3.0], 1)
+        """
+        fulfilled = np.asarray(arrays.pop("fulfilled"))
+        if fulfilled.ndim == 1:
+            fulfilled = fulfilled[:, None]
+        n_users, n_days = fulfilled.shape
+        demanded = np.asarray(arrays.pop("demanded", fulfilled))
+        if demanded.ndim == 1:
+            demanded = demanded[:, None]
+        pool_of_user = np.asarray(arrays.pop("pool_of_user", np.zeros(n_users, dtype=np.int64)))
+        history = np.asarray(arrays.pop("history", np.zeros(n_users)), dtype=float)
+        n_pools = int(pool_of_user.max()) + 1 if n_users else 1
+
+        def by_pool(values: np.ndarray) -> np.ndarray:
+            out = np.zeros((n_pools, n_days), dtype=np.int64)
+            np.add.at(out, pool_of_user, values)
+            return out
+
+        pool_fulfilled = arrays.pop("pool_fulfilled", by_pool(fulfilled))
+        pool_demanded = arrays.pop("pool_demanded", by_pool(demanded))
+        pool_lost = arrays.pop("pool_lost", np.asarray(pool_demanded) - np.asarray(pool_fulfilled))
+        pool_stock = arrays.pop("pool_stock", np.zeros_like(np.asarray(pool_fulfilled)))
+        return cls(fulfilled=fulfilled, demanded=demanded, pool_of_user=pool_of_user,
+                   history=history, pool_fulfilled=np.asarray(pool_fulfilled),
+                   pool_demanded=np.asarray(pool_demanded), pool_lost=np.asarray(pool_lost),
+                   pool_stock=np.asarray(pool_stock), **arrays)

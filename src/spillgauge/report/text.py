@@ -1,0 +1,129 @@
+"""Plain-text and Markdown renderings of a market, a truth and a study. No statistics here."""
+
+from __future__ import annotations
+
+__all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows"]
+
+_COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
+            ("mean_estimate", "estimate", "{:.3f}"), ("bias", "bias", "{:+.3f}"),
+            ("relative_bias", "rel.bias", "{:+.0%}"), ("sd", "SD", "{:.3f}"),
+            ("rmse", "RMSE", "{:.3f}"), ("coverage", "coverage", "{:.0%}"),
+            ("power", "power", "{:.0%}")]
+
+
+def _fmt(template: str, value) -> str:
+    if value is None:
+        return "n/a"
+    try:
+        return template.format(value)
+    except (ValueError, TypeError):
+        return str(value)
+
+
+def market_text(scenario, market: dict) -> str:
+    """Describe a market for ``spillgauge check``."""
+    users_per_pool = market["users_per_pool"]
+    lines = [f"scenario {scenario.name}: valid", ""]
+    if scenario.description:
+        lines += ["  " + line for line in scenario.description.strip().splitlines()] + [""]
+    cal = scenario.calendar
+    lines += [
+        f"calendar    {cal.days} days of {cal.n_ticks} ticks ({cal.tick_hours} h each), "
+        f"diurnal amplitude {cal.diurnal_amplitude:g}",
+        f"users       {market['users']:,}, {market['orders_per_user_week']:.2f} orders per user "
+        "per week on average",
+        f"pools       {market['pools']:,} ({users_per_pool['min']}-{users_per_pool['max']} users "
+        f"each), restock every {scenario.pools.restock_every_hours} h, lead time "
+        f"{scenario.pools.lead_time_hours} h, stock-outs: {scenario.pools.on_stockout}",
+        f"graph       {market['graph_model']}, mean degree {market['mean_degree']:.2f}, "
+        f"clustering {market['clustering']:.3f}, isolated users {market['isolated_share']:.1%}",
+        f"stock       order-up-to level S per pool {market['order_up_to']['min']}-"
+        f"{market['order_up_to']['max']} (mean {market['order_up_to']['mean']:.1f})",
+    ]
+    cc, ct = market["cover_all_control"], market["cover_all_treated"]
+    if cc["median"] is not None:
+        lines.append(f"supply      S / expected demand per cycle: median {cc['median']:.2f} "
+                     f"(min {cc['min']:.2f}) if no one is treated, median {ct['median']:.2f} "
+                     f"(min {ct['min']:.2f}) if everyone is")
+        tight = ("stock binds on an average cycle even with no one treated"
+                 if cc["median"] < 1 else
+                 "stock binds when everyone is treated" if ct["median"] < 1 else
+                 "stock covers expected demand in both worlds (stock-outs only by chance)")
+        lines.append(f"            -> {tight}")
+    clusters = ", ".join(f"{k} {v:,}" for k, v in market["clusters"].items())
+    lines.append(f"clusters    {clusters}")
+    lines.append("effect      lift {0.lift:+g}, peer lift {0.peer_lift:+g}, carryover half-life "
+                 "{0.carryover_half_life_hours:g} h".format(scenario.effect))
+    lines.append("designs     " + ", ".join(d.label for d in scenario.designs))
+    return "\n".join(lines)
+
+
+def truth_text(name: str, seed: int, truth) -> str:
+    """Describe the truth for ``spillgauge truth``."""
+    t = truth
+    se = "n/a (one replication)" if t.gte_se != t.gte_se else f"{t.gte_se:.4f}"
+    rows = [("fulfilled orders / user", t.control_mean, t.treated_mean, "{:.4f}"),
+            ("demanded orders / user", t.control_demanded, t.treated_demanded, "{:.4f}"),
+            ("fill rate", t.control_fill_rate, t.treated_fill_rate, "{:.2%}"),
+            ("lost-order share", t.control_lost_share, t.treated_lost_share, "{:.2%}")]
+    lines = [f"scenario {name}: {t.reps} replications, seed {seed}", "",
+             f"GTE = {t.gte:.4f} fulfilled orders per user over the horizon "
+             f"(Monte Carlo SE {se})", "",
+             f"{'':<26}{'all control':>14}{'all treated':>14}"]
+    for label, c, tr, template in rows:
+        lines.append(f"{label:<26}{_fmt(template, c):>14}{_fmt(template, tr):>14}")
+    return "\n".join(lines)
+
+
+def design_rows(summary: dict) -> list[list[str]]:
+    """Return the design table as formatted cells, header first."""
+    rows = [[header for _, header, _ in _COLUMNS]]
+    for design in summary["designs"]:
+        rows.append([_fmt(template, design.get(key)) for key, _, template in _COLUMNS])
+    return rows
+
+
+def _table(rows: list[list[str]]) -> list[str]:
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    out = []
+    for k, row in enumerate(rows):
+        cells = [c.ljust(w) if i < 2 else c.rjust(w) for i, (c, w) in enumerate(zip(row, widths))]
+        out.append("  ".join(cells))
+        if k == 0:
+            out.append("  ".join("-" * w for w in widths))
+    return out
+
+
+def study_text(study) -> str:
+    """Describe a study: the truth, the design table and the recommendation."""
+    summary = study.summary()
+    truth = summary["truth"]
+    se = truth.get("gte_se")
+    lines = [f"scenario {summary['scenario']}: {summary['reps']} replications, "
+             f"seed {summary['seed']}",
+             f"true GTE {truth['gte']:.4f} orders per user"
+             + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
+    lines += _table(design_rows(summary))
+    rec = summary["recommendation"]
+    lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
+              rec["reason"]]
+    return "\n".join(lines)
+
+
+def study_markdown(study) -> str:
+    """Return the study summary as Markdown."""
+    summary = study.summary()
+    truth = summary["truth"]
+    rows = design_rows(summary)
+    lines = [f"# {summary['scenario']}: which randomization unit?", "",
+             f"{summary['reps']} replications, seed {summary['seed']}. True GTE "
+             f"**{truth['gte']:.4f}** fulfilled orders per user over the horizon.", "",
+             "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
+    lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
+    rec = summary["recommendation"]
+    lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
+              + rec["reason"], "",
+              "_Results follow from the model's assumptions; a simulated recommendation is an "
+              "input to, not a substitute for, the team's own review of an experiment that "
+              "touches real users._"]
+    return "\n".join(lines)

@@ -1,0 +1,29 @@
+"""Shared test helpers: small scenarios built from dicts."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from spillgauge.scenario import parse_scenario
+
+
+def make_scenario(**sections):
+    """Return a validated scenario from keyword sections (``users={...}`` etc.)."""
+    base_dir = sections.pop("base_dir", None)
+    data = {"name": sections.pop("name", "test")}
+    designs = sections.pop("design", None)
+    data.update(sections)
+    if designs is not None:
+        data["design"] = designs
+    return parse_scenario(data, base_dir=base_dir)
+
+
+@pytest.fixture
+def scenario_factory():
+    return make_scenario
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(20261202)
