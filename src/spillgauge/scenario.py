@@ -56,6 +56,8 @@ class Calendar:
     days: int = 28
     tick_hours: int = 1
     diurnal_amplitude: float = 0.0
+    daily_shock_sd: float = 0.0
+    daily_shock_autocorrelation: float = 0.5
 
     def __post_init__(self) -> None:
         _check(self.days >= 1, "calendar.days", "an int >= 1", self.days)
@@ -63,6 +65,11 @@ class Calendar:
                "an int >= 1 that divides 24 (1, 2, 3, 4, 6, 8, 12 or 24)", self.tick_hours)
         _check(0.0 <= self.diurnal_amplitude < 1.0, "calendar.diurnal_amplitude",
                "in [0, 1)", self.diurnal_amplitude)
+        _check(0.0 <= self.daily_shock_sd <= 1.0, "calendar.daily_shock_sd", "in [0, 1]",
+               self.daily_shock_sd)
+        _check(-1.0 < self.daily_shock_autocorrelation < 1.0,
+               "calendar.daily_shock_autocorrelation", "in (-1, 1)",
+               self.daily_shock_autocorrelation)
 
     @property
     def n_ticks(self) -> int:

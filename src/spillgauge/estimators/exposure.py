@@ -148,7 +148,7 @@ def exposure_probabilities(schedule: AssignmentSchedule) -> tuple[np.ndarray, np
 def _pair_sum(incidence: sparse.csr_array, rows: np.ndarray, values: np.ndarray,
               probabilities: np.ndarray, all_in_arm: np.ndarray) -> float:
     """Return sum over ordered pairs i, j of ``rows`` with S_i, S_j overlapping of
-    ``(1 - pi_i pi_j / pi_ij) v_i v_j`` (the pair i = i included)."""
+    ``(1 - pi_i pi_j / pi_ij) (v_i / pi_i) (v_j / pi_j)`` (the pair i = i included)."""
     if rows.size == 0:
         return 0.0
     sub = incidence[rows]
@@ -156,8 +156,9 @@ def _pair_sum(incidence: sparse.csr_array, rows: np.ndarray, values: np.ndarray,
     size = np.diff(sub.indptr)
     i, j = shared.row, shared.col
     joint = all_in_arm[size[i] + size[j] - shared.data]
-    pi, v = probabilities[rows], values[rows]
-    return float(np.sum((1.0 - pi[i] * pi[j] / joint) * v[i] * v[j]))
+    pi = probabilities[rows]
+    weighted = values[rows] / pi
+    return float(np.sum((1.0 - pi[i] * pi[j] / joint) * weighted[i] * weighted[j]))
 
 
 def _aronow_samii_variance(design: _ExposureDesign, kept: np.ndarray, exposed: tuple,

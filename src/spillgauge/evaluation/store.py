@@ -60,6 +60,19 @@ def dumps(data: object) -> str:
     return json.dumps(clean(data), default=_json_default, indent=2, allow_nan=False)
 
 
+def _first_difference(a: object, b: object, prefix: str = "") -> str:
+    """Return the dotted key of the first place where two JSON values differ."""
+    if isinstance(a, dict) and isinstance(b, dict):
+        for key in list(a) + [k for k in b if k not in a]:
+            if a.get(key) != b.get(key):
+                return _first_difference(a.get(key), b.get(key), f"{prefix}{key}.")
+    if isinstance(a, list) and isinstance(b, list) and len(a) == len(b):
+        for i, (x, y) in enumerate(zip(a, b)):
+            if x != y:
+                return _first_difference(x, y, f"{prefix[:-1]}[{i}].")
+    return prefix[:-1] or "the settings"
+
+
 class ResultsFolder:
     """A study's results folder.
 
@@ -92,12 +105,16 @@ class ResultsFolder:
         except (OSError, json.JSONDecodeError) as exc:
             raise ResultsError(f"{study} cannot be read ({exc}); choose another --out folder") \
                 from None
-        if saved != json.loads(dumps(self.fingerprint)):
-            raise ResultsError(
-                f"{self.path} holds a study of scenario {saved.get('scenario')!r} with seed "
-                f"{saved.get('seed')}, not this one (scenario {self.fingerprint['scenario']!r}, "
-                f"seed {self.fingerprint['seed']}, or other settings differ); "
-                "choose another --out folder or delete it")
+        mine = json.loads(dumps(self.fingerprint))
+        if saved != mine:
+            if (saved.get("scenario"), saved.get("seed")) != (mine["scenario"], mine["seed"]):
+                what = (f"scenario {saved.get('scenario')!r} with seed {saved.get('seed')}, "
+                        f"not scenario {mine['scenario']!r} with seed {mine['seed']}")
+            else:
+                key = _first_difference(saved.get("settings", {}), mine["settings"])
+                what = f"scenario {mine['scenario']!r} with other settings ({key} differs)"
+            raise ResultsError(f"{self.path} holds a study of {what}; choose another --out "
+                               "folder or delete it")
         return True
 
     def open(self, *, resume: bool) -> list[ReplicationResult]:

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
+from spillgauge.evaluation.market_summary import summarise_market
 from spillgauge.evaluation.metrics import DesignMetrics, design_metrics
 from spillgauge.evaluation.plan import describe_unit, estimator_name
 from spillgauge.evaluation.recommend import Candidate, Recommendation, recommend
@@ -219,14 +220,11 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     reps = scenario.study.reps if reps is None else int(reps)
     seed = scenario.study.seed if seed is None else int(seed)
     scenario = replace(scenario, study=replace(scenario.study, reps=reps, seed=seed))
-    market = build_market(scenario, seed)
-    from spillgauge.evaluation.market_summary import summarise_market
-
-    market_summary = summarise_market(market)
     folder = ResultsFolder(out, scenario, seed) if out is not None else None
     done: dict[int, ReplicationResult] = {}
     if folder is not None:
         done = {r.replication: r for r in folder.open(resume=resume) if r.replication < reps}
+    market_summary = summarise_market(build_market(scenario, seed))
     todo = [r for r in range(reps) if r not in done]
     total = reps
     if progress:

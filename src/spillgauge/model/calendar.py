@@ -6,7 +6,8 @@ import numpy as np
 
 from spillgauge.scenario import Calendar, Pools
 
-__all__ = ["diurnal_multiplier", "day_of_tick", "stock_event_hours", "segment_bounds"]
+__all__ = ["diurnal_multiplier", "day_of_tick", "stock_event_hours", "segment_bounds",
+           "draw_daily_shocks"]
 
 _TWO_PI_24 = 2.0 * np.pi / 24.0
 
@@ -78,3 +79,26 @@ def segment_bounds(pools: Pools, calendar: Calendar, *, every_tick: bool) -> np.
     reviews, deliveries = stock_event_hours(pools, calendar.horizon_hours)
     hours = np.union1d(reviews, deliveries)
     return np.append(hours // calendar.tick_hours, n_ticks).astype(np.int64)
+
+
+def draw_daily_shocks(calendar: Calendar, *, rng: np.random.Generator) -> np.ndarray:
+    """Draw the market-wide demand multiplier of each day, shape ``(days,)``.
+
+    ``log m_d = s_d - sd^2 / 2`` with ``s_d`` a stationary AR(1) process of
+    standard deviation ``daily_shock_sd`` and autocorrelation
+    ``daily_shock_autocorrelation``, so ``E[m_d] = 1``. All ones when the SD is 0
+    (then nothing is drawn).
+
+    >>> draw_daily_shocks(Calendar(days=3), rng=np.random.default_rng(0)).tolist()
+    [1.0, 1.0, 1.0]
+    """
+    sd, rho = calendar.daily_shock_sd, calendar.daily_shock_autocorrelation
+    if sd == 0:
+        return np.ones(calendar.days)
+    noise = rng.standard_normal(calendar.days)
+    state = np.empty(calendar.days)
+    state[0] = sd * noise[0]
+    innovation = sd * np.sqrt(1.0 - rho * rho)
+    for day in range(1, calendar.days):
+        state[day] = rho * state[day - 1] + innovation * noise[day]
+    return np.exp(state - sd * sd / 2.0)

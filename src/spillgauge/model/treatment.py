@@ -20,7 +20,9 @@ __all__ = ["unit_dose", "peer_exposure_of_events", "own_dose_of_events"]
 
 def unit_dose(schedule: AssignmentSchedule, *, half_life_hours: float, tick_hours: int
               ) -> np.ndarray:
-    """Return each unit's dose in each tick, shape ``(n_units, n_ticks)``.
+    """Return each unit's dose in each tick, shape ``(n_units, n_ticks)``, or ``(n_units, 1)``.
+
+    A static schedule (one period) gives one column: the dose never changes.
 
     The dose is 1 in a treated tick. In an untreated tick ``k`` after the unit's
     last treated tick ``j`` it is ``2 ** (-(k - j) * tick_hours / half_life_hours)``
@@ -33,6 +35,8 @@ def unit_dose(schedule: AssignmentSchedule, *, half_life_hours: float, tick_hour
     >>> unit_dose(s, half_life_hours=1.0, tick_hours=1).tolist()
     [[1.0, 1.0, 0.5, 0.25, 0.125]]
     """
+    if schedule.is_static:
+        return schedule.is_treated.astype(float)
     treated = schedule.unit_tick_treated()
     ticks = np.arange(schedule.n_ticks)
     last = np.maximum.accumulate(np.where(treated, ticks, -1), axis=1)
@@ -46,7 +50,7 @@ def unit_dose(schedule: AssignmentSchedule, *, half_life_hours: float, tick_hour
 def own_dose_of_events(dose: np.ndarray, unit_of_user: np.ndarray, users: np.ndarray,
                        ticks: np.ndarray) -> np.ndarray:
     """Return the dose of each order event's user at the event's tick, shape ``(n_events,)``."""
-    if dose.shape[1] == 1 or np.all(dose == dose[:, :1]):
+    if dose.shape[1] == 1:
         return dose[unit_of_user, 0][users]
     return dose[unit_of_user[users], ticks]
 
@@ -72,7 +76,7 @@ def peer_exposure_of_events(adjacency: sparse.csr_array, unit_of_user: np.ndarra
     is events x (units touching a neighbourhood), never users x ticks.
     """
     n_users = adjacency.shape[0]
-    if dose.shape[1] == 1 or np.all(dose == dose[:, :1]):
+    if dose.shape[1] == 1:
         return treated_neighbour_share(adjacency, dose[unit_of_user, 0])[users]
     degree = np.diff(adjacency.indptr).astype(float)
     membership = sparse.csr_array((np.ones(n_users), (np.arange(n_users), unit_of_user)),

@@ -19,7 +19,12 @@ from dataclasses import dataclass
 import numpy as np
 import simpy
 
-from spillgauge.model.calendar import day_of_tick, diurnal_multiplier, segment_bounds
+from spillgauge.model.calendar import (
+    day_of_tick,
+    diurnal_multiplier,
+    draw_daily_shocks,
+    segment_bounds,
+)
 from spillgauge.model.market import Market
 from spillgauge.model.treatment import own_dose_of_events, peer_exposure_of_events, unit_dose
 from spillgauge.panel import OutcomePanel
@@ -78,14 +83,16 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     """Draw the candidate order events of one replication.
 
     Each user gets ``Poisson(peak * rate_i * horizon_hours)`` candidates at
-    uniform times, where ``peak`` bounds every world's rate multiplier.
+    uniform times, where ``peak`` bounds every world's rate multiplier
+    (including the largest daily demand shock of the replication).
     """
     check_rng(rng)
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
     horizon = float(calendar.horizon_hours)
-    peak = _peak_factor(market)
+    shocks = draw_daily_shocks(calendar, rng=rng)
+    peak = _peak_factor(market) * float(shocks.max())
     counts = rng.poisson(population.rate_per_hour * (peak * horizon))
     user = np.repeat(np.arange(population.n_users, dtype=np.int64), counts)
     hour = rng.random(user.size) * horizon
@@ -96,7 +103,11 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     pool = population.pool_of_user[user]
     key = (segment * population.n_pools + pool).astype(float) + hour / horizon
     order = np.argsort(key)
-    user, hour, tick, pool, segment = (a[order] for a in (user, hour, tick, pool, segment))
+    del key, segment, pool, tick
+    user, hour = user[order], hour[order]
+    tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
+    segment = np.searchsorted(bounds, tick, side="right") - 1
+    pool = population.pool_of_user[user]
     uniform = rng.random(user.size)
     segment_starts = np.searchsorted(segment, np.arange(bounds.size))
     substitute_uniform = substitute_pool = None
@@ -105,7 +116,7 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
         shift = 1 + np.floor(rng.random(user.size) * (population.n_pools - 1)).astype(np.int64)
         substitute_pool = (pool + shift) % population.n_pools
     day = day_of_tick(calendar)[tick]
-    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) / peak
+    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) * (shocks[day] / peak)
     return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
                            base_accept=base_accept, uniform=uniform,
                            segment_starts=segment_starts, substitute_uniform=substitute_uniform,
