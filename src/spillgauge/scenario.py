@@ -319,8 +319,9 @@ class Scenario:
         _check(len(self.designs) >= 1, "design", "at least one [[design]] table", 0)
         for i, spec in enumerate(self.designs):
             at = f"design[{i}]"
-            _check(labels.count(spec.label) == 1, f"{at}.label",
-                   "unique among the designs", spec.label)
+            _check(spec.label not in labels[:i], f"{at}.label",
+                   "unique among the designs (set label = \"...\" to tell them apart)",
+                   spec.label)
             _check(all(c.isalnum() or c in "-_." for c in spec.label), f"{at}.label",
                    "letters, digits, '-', '_' or '.'", spec.label)
             if spec.kind == "switchback":
@@ -508,10 +509,20 @@ def load_scenario(path: str | Path) -> Scenario:
 
 
 def scenario_to_dict(scenario: Scenario) -> dict:
-    """Return the scenario as plain data (for JSON results and reports)."""
+    """Return the scenario as plain data; :func:`parse_scenario` reads it back.
+
+    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
+    >>> parse_scenario(scenario_to_dict(s)) == s
+    True
+    """
     out = {"name": scenario.name, "description": scenario.description}
     for key in _SECTIONS:
-        out[key] = dataclasses.asdict(getattr(scenario, key))
+        out[key] = {k: v for k, v in dataclasses.asdict(getattr(scenario, key)).items()
+                    if v is not None}
+    users = out["users"]
+    if "file" in users:
+        for key in ("count", "orders_per_week", "rate_shape"):
+            users.pop(key, None)
     out["design"] = [design_to_dict(d) for d in scenario.designs]
     return out
 

@@ -113,7 +113,8 @@ def test_node_level_probability_is_p_to_degree_plus_one():
     # REFERENCES check 1: node-level Bernoulli gives p^(d+1); d = 10 -> 4.8828125e-4
     graph = nx.star_graph(10)
     singletons = np.arange(11)
-    pi1, _ = exposure_probabilities(_schedule(singletons, np.zeros(11), _exposure_units(graph, singletons)))
+    units = _exposure_units(graph, singletons)
+    pi1, _ = exposure_probabilities(_schedule(singletons, np.zeros(11), units))
     assert pi1[0] == 4.8828125e-4
     assert np.all(pi1[1:] == 0.25)
 
@@ -159,7 +160,8 @@ def _random_clustered_graph(seed: int) -> tuple[nx.Graph, np.ndarray]:
     for block in range(8):
         members = range(3 * block, 3 * block + 3)
         graph.add_edges_from(itertools.combinations(members, 2))
-        graph.add_edge(3 * block + int(rng.integers(3)), (3 * block + 3 + int(rng.integers(3))) % 24)
+        start, end = 3 * block + int(rng.integers(3)), 3 * block + 3 + int(rng.integers(3))
+        graph.add_edge(start, end % 24)
     return graph, clusters
 
 

@@ -48,7 +48,7 @@ def check_common_inputs(panel: object, schedule: object, confidence: object,
     >>> check_common_inputs(panel, schedule, 0.95, "difference_in_means")
     Traceback (most recent call last):
     ...
-    ValueError: difference_in_means: panel has 2 users but schedule has 3; both must describe the same users
+    ValueError: difference_in_means: panel has 2 users but schedule has 3; both must ...
     """
     if not isinstance(panel, OutcomePanel):
         raise TypeError(f"{method}: panel must be an OutcomePanel; got {type(panel).__name__}")

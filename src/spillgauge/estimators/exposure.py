@@ -239,9 +239,12 @@ def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule,
     analogue, over the pairs of users whose ``S`` overlap, plus Young's bound
     ``Y_i(1) Y_j(0) <= (Y_i(1)^2 + Y_j(0)^2) / 2`` for the overlapping pairs, which
     can never be in opposite exposures together. Pairs whose ``S`` are disjoint
-    are independent under Bernoulli clusters; under complete randomization their
-    terms have the sign that makes leaving them out conservative for
-    non-negative outcomes such as fulfilled orders.
+    are independent under Bernoulli clusters. Under complete randomization their
+    terms, and those of pairs too large to be fully treated (or in control)
+    together, have the sign that makes leaving them out conservative for
+    non-negative outcomes such as fulfilled orders. So ``E[V-hat] >= Var`` holds
+    exactly for Bernoulli clusters, and under complete randomization when
+    outcomes are non-negative.
 
     Examples
     --------

@@ -49,10 +49,10 @@ def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence:
             raise ValueError(f"{method}: a market schedule must have one unit; got "
                              f"{schedule.n_units}")
     elif schedule.unit_kind == "pool":
-        if schedule.n_units != panel.n_pools or not np.array_equal(panel.pool_of_user,
-                                                                    schedule.unit_of_user):
+        if schedule.n_units > panel.n_pools or not np.array_equal(panel.pool_of_user,
+                                                                   schedule.unit_of_user):
             raise ValueError(f"{method}: a pool schedule's units must be the panel's pools "
-                             "(schedule.unit_of_user == panel.pool_of_user, one unit per pool)")
+                             "(schedule.unit_of_user == panel.pool_of_user)")
     else:
         raise ValueError(f"{method} needs units 'market' or 'pool'; got "
                          f"unit_kind={schedule.unit_kind!r}")
@@ -88,7 +88,8 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     schedule : AssignmentSchedule
         A schedule over time blocks with ``unit_kind`` ``"market"`` (one unit, all
         users) or ``"pool"`` (unit ``u`` is pool ``u``, so
-        ``schedule.unit_of_user == panel.pool_of_user``).
+        ``schedule.unit_of_user == panel.pool_of_user``; trailing pools without
+        users may have no unit).
     confidence : float, default 0.95
         Level of the confidence interval, in (0, 1).
     burn_in_ticks : int, default 0
@@ -132,7 +133,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     ``n_b`` kept user-ticks. The variance is the linearization of the two
     ratios with a Neyman-style factor per arm,
 
-    ``V = T^2 sum_{arm a} B_a / (B_a - 1) sum_{b in a} (F_b - rate_a n_b)^2 / (sum_{b in a} n_b)^2``,
+    ``V = T^2 sum_a B_a / (B_a - 1) sum_{b in a} (F_b - rate_a n_b)^2 / (sum_{b in a} n_b)^2``,
 
     which equals ``T^2 (s1^2 / B_1 + s0^2 / B_0)``, the Neyman variance of block
     means, whenever blocks have equal ``n_b``. The interval uses Student's t
@@ -161,9 +162,9 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     if schedule.unit_kind == "market":
         unit_totals = fulfilled.sum(axis=0, keepdims=True)
         unit_users = np.array([panel.n_users], dtype=float)
-    else:
-        unit_totals = fulfilled
-        unit_users = panel.users_per_pool().astype(float)
+    else:  # unit u is pool u; pools past the last unit hold no user and are left out
+        unit_totals = fulfilled[: schedule.n_units]
+        unit_users = panel.users_per_pool()[: schedule.n_units].astype(float)
     kept = _kept_ticks(schedule, burn_in_ticks) & (unit_users > 0)[:, None]
     user_ticks = np.broadcast_to(unit_users[:, None], kept.shape)
     block = np.arange(schedule.n_units)[:, None] * n_periods + schedule.period_of_tick()[None, :]

@@ -16,7 +16,7 @@ from spillgauge.evaluation.replication import (
 )
 from spillgauge.scenario import Scenario, scenario_to_dict
 
-__all__ = ["ResultsFolder", "write_atomic", "FORMAT_VERSION"]
+__all__ = ["ResultsFolder", "write_atomic", "load_study", "dumps", "FORMAT_VERSION"]
 
 FORMAT_VERSION = 1
 _STUDY = "study.json"
@@ -161,3 +161,42 @@ class ResultsFolder:
         write_atomic(self.path / "summary.json", dumps(study.summary()))
         write_atomic(self.path / "replications.csv",
                      study.replications_frame().to_csv(index=False))
+
+
+def load_study(path: str | Path):
+    """Rebuild a finished (or interrupted) study from its results folder, without simulating.
+
+    Raises
+    ------
+    ResultsError
+        When the folder holds no study or no finished replication.
+    """
+    from spillgauge.evaluation.study import summarise_study
+    from spillgauge.scenario import parse_scenario
+
+    path = Path(path)
+    study_file = path / _STUDY
+    if not study_file.is_file():
+        raise ResultsError(f"{path} is not a results folder (no {_STUDY}); run "
+                           "`spillgauge run SCENARIO --out DIR` first")
+    try:
+        saved = json.loads(study_file.read_text(encoding="utf-8"))
+        scenario = parse_scenario(saved["settings"])
+    except (OSError, json.JSONDecodeError, KeyError) as exc:
+        raise ResultsError(f"{study_file} cannot be read ({exc})") from None
+    folder = ResultsFolder(path, scenario, saved["seed"])
+    results = folder.read()
+    if not results:
+        raise ResultsError(f"{path} holds no finished replication yet")
+    market = {}
+    summary_file = path / "summary.json"
+    if summary_file.is_file():
+        try:
+            market = json.loads(summary_file.read_text(encoding="utf-8")).get("market", {})
+        except json.JSONDecodeError:
+            market = {}
+    import dataclasses
+
+    scenario = dataclasses.replace(scenario, study=dataclasses.replace(
+        scenario.study, reps=len(results)))
+    return summarise_study(scenario, saved["seed"], results, market)

@@ -1,0 +1,244 @@
+"""Tests of estimators/switchback.py: the switchback difference and the design helpers."""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pytest
+
+from spillgauge.errors import DegenerateEstimateWarning
+from spillgauge.estimators import (
+    switchback_difference,
+    switchback_exposure_probabilities,
+    switchback_optimal_points,
+)
+from spillgauge.panel import OutcomePanel
+from spillgauge.schedule import AssignmentSchedule
+
+
+def _market_schedule(arms, period_ticks: int) -> AssignmentSchedule:
+    arms = np.asarray(arms, dtype=bool)
+    return AssignmentSchedule(unit_of_user=np.zeros(1, int), is_treated=arms[None, :],
+                              period_start_ticks=np.arange(arms.size) * period_ticks,
+                              n_ticks=arms.size * period_ticks, treated_probability=0.5,
+                              unit_kind="market", randomization="complete")
+
+
+def _one_user_panel(per_tick: np.ndarray) -> OutcomePanel:
+    # one user, one pool, one tick per "day": pool_fulfilled is the per-tick series
+    return OutcomePanel.from_arrays(fulfilled=np.asarray(per_tick, dtype=np.int64)[None, :])
+
+
+@pytest.fixture
+def hand_case():
+    # one market of 2 users, 4 periods of 2 ticks, arms T C C T; pool totals per tick
+    # 4 6 | 2 2 | 0 6 | 8 6
+    per_user = np.array([2, 3, 1, 1, 0, 3, 4, 3])
+    panel = OutcomePanel.from_arrays(fulfilled=np.stack([per_user, per_user]))
+    schedule = AssignmentSchedule(
+        unit_of_user=np.zeros(2, int), is_treated=np.array([[1, 0, 0, 1]], bool),
+        period_start_ticks=[0, 2, 4, 6], n_ticks=8, treated_probability=0.5,
+        unit_kind="market", randomization="complete")
+    return panel, schedule
+
+
+def test_hand_case_without_burn_in(hand_case):
+    # by hand: treated rate 24 / 8 user-ticks = 3, control 10 / 8 = 1.25, point 8 * 1.75 = 14;
+    # block means 2.5, 3.5 (T) and 1, 1.5 (C): Neyman 0.5/2 + 0.125/2 = 0.3125, times 8^2 = 20
+    est = switchback_difference(*hand_case)
+    assert est.point == pytest.approx(14.0, abs=1e-12)
+    assert est.standard_error ** 2 == pytest.approx(20.0, abs=1e-12)
+    assert est.n_units == 4 and est.method == "switchback_difference"
+
+
+def test_hand_case_with_burn_in(hand_case):
+    # by hand: burn-in 1 drops ticks 0 (a treated first block switches from the pre-horizon
+    # control), 2 and 6; block 2 repeats the control arm and is kept whole.
+    # treated: ticks 1, 7 -> 12 / 4 = 3; control: ticks 3, 4, 5 -> 8 / 6 = 4/3;
+    # point 8 * 5/3 = 40/3. Control blocks (F, n) = (2, 2), (6, 4): residuals -2/3, 2/3,
+    # V = 2/1 * (8/9) / 6^2 = 4/81 per user-tick; treated residuals 0; SE = 8 * 2/9 = 16/9.
+    est = switchback_difference(*hand_case, burn_in_ticks=1)
+    assert est.point == pytest.approx(40 / 3, abs=1e-12)
+    assert est.standard_error == pytest.approx(16 / 9, abs=1e-12)
+    assert est.n_units == 4
+
+
+def test_burn_in_longer_than_a_block_drops_the_block(hand_case):
+    # burn-in 2 removes every switched block (0, 1 and 3) whole: the treated arm keeps no tick
+    with pytest.warns(DegenerateEstimateWarning, match="treated arm keeps no tick"):
+        est = switchback_difference(*hand_case, burn_in_ticks=2)
+    assert math.isnan(est.point)
+
+
+def test_pool_units_weight_by_users():
+    # pool 0 has 1 user, pool 1 has 3; 2 periods of 2 ticks; pool 0 arms T C, pool 1 C T.
+    # by hand: treated rate (3 + 1 + 6 + 6) / (2*1 + 2*3) = 2, control (0 + 2 + 3 + 0) / 8
+    # = 5/8, point 4 * (2 - 5/8) = 5.5. Treated block residuals 4 - 2*2 = 0 and 12 - 2*6 = 0;
+    # control blocks (F, n) = (2, 2), (3, 6): residuals 0.75, -0.75, V = 2 * 1.125 / 8^2,
+    # SE = 4 * sqrt(0.03515625) = 0.75.
+    fulfilled = np.array([[3, 1, 0, 2], [1, 0, 2, 2], [1, 0, 2, 2], [1, 0, 2, 2]])
+    pools = np.array([0, 1, 1, 1])
+    panel = OutcomePanel.from_arrays(fulfilled=fulfilled, pool_of_user=pools)
+    schedule = AssignmentSchedule(unit_of_user=pools, is_treated=np.array([[1, 0], [0, 1]], bool),
+                                  period_start_ticks=[0, 2], n_ticks=4, treated_probability=0.5,
+                                  unit_kind="pool", randomization="complete")
+    est = switchback_difference(panel, schedule)
+    assert est.point == pytest.approx(5.5, abs=1e-12)
+    assert est.standard_error == pytest.approx(0.75, abs=1e-12)
+    assert est.n_units == 4
+
+
+def test_equal_blocks_give_the_neyman_se_of_block_means():
+    # documented identity: with equal user-ticks per block the SE is Neyman's
+    # sqrt(s1^2/B1 + s0^2/B0) on block means (Neyman 1923), times the horizon
+    rng = np.random.default_rng(31)
+    arms = np.array([1, 0, 0, 1, 1, 0, 1, 0, 1, 1], bool)
+    series = rng.poisson(6.0, size=arms.size * 5)
+    est = switchback_difference(_one_user_panel(series), _market_schedule(arms, 5))
+    means = series.reshape(arms.size, 5).mean(axis=1)
+    neyman = np.var(means[arms], ddof=1) / arms.sum() + np.var(means[~arms], ddof=1) / (~arms).sum()
+    assert est.standard_error == pytest.approx(50 * math.sqrt(neyman), rel=1e-12)
+    assert est.point == pytest.approx(50 * (means[arms].mean() - means[~arms].mean()), rel=1e-12)
+
+
+N_BLOCKS, BLOCK_TICKS = 6, 3
+HORIZON = N_BLOCKS * BLOCK_TICKS
+
+
+def _carryover_series(arms, mu, delta, order):
+    # REFERENCES §3 model: Y_t = mu_t + delta (w_t + ... + w_{t-order}); w = 0 before tick 0
+    w = np.repeat(np.asarray(arms, dtype=int), BLOCK_TICKS)
+    lagged = sum(np.concatenate((np.zeros(lag, int), w[: w.size - lag]))
+                 for lag in range(order + 1))
+    return mu + delta * lagged
+
+
+def _complete_assignments():
+    # complete randomization of 3 of 6 equal blocks: all C(6, 3) = 20 assignments
+    return [np.isin(np.arange(N_BLOCKS), c) for c in itertools.combinations(range(N_BLOCKS), 3)]
+
+
+MU = np.random.default_rng(41).integers(10, 31, size=HORIZON)  # arbitrary baseline, >= 10
+
+
+def test_no_carryover_is_unbiased_under_complete_randomization():
+    # derived here: with Y_t = mu_t + delta w_t, equal blocks and B/2 of B treated, each arm
+    # holds B/2 * L ticks in every assignment and P(w_t = 1) = 1/2, so E[mean_T - mean_C] =
+    # delta exactly for any mu_t; on the GTE scale delta * T
+    points = [switchback_difference(_one_user_panel(_carryover_series(a, MU, -1, 0)),
+                                    _market_schedule(a, BLOCK_TICKS)).point
+              for a in _complete_assignments()]
+    assert np.mean(points) == pytest.approx(-1 * HORIZON, abs=1e-10)
+
+
+def test_carryover_without_burn_in_is_biased_toward_zero():
+    # derived here (checked by this enumeration): for Y_t = mu_t + delta (w_t + w_{t-1} +
+    # w_{t-2}), complete randomization of B/2 of B blocks of length L >= 2 and no burn-in,
+    # E[w_t (2 w_s - 1)] is 1/2 within a block, -1/(2(B-1)) across blocks and 0 before the
+    # horizon, so E[point] = delta (3T - 3B - 3): |E| < 3 |delta| T (REFERENCES §3: biased
+    # toward the short-run effect)
+    delta = -1
+    points = [switchback_difference(_one_user_panel(_carryover_series(a, MU, delta, 2)),
+                                    _market_schedule(a, BLOCK_TICKS)).point
+              for a in _complete_assignments()]
+    expected = delta * (3 * HORIZON - 3 * N_BLOCKS - 3)
+    assert np.mean(points) == pytest.approx(expected, abs=1e-10)
+    assert abs(np.mean(points)) < 3 * abs(delta) * HORIZON
+
+
+def test_burn_in_of_the_carryover_order_removes_carryover_exactly():
+    # derived here: with burn-in >= 2 (the carryover order) and blocks of L >= 3, every kept
+    # treated tick has all of w_{t-2..t} = 1 and every kept control tick all 0 (the pre-horizon
+    # counts as control), so the carryover adds exactly 3 delta T to the point in every
+    # assignment; burn-in 1 is not enough for some assignment
+    delta = -1
+    gaps = {1: [], 2: []}
+    for arms in _complete_assignments():
+        schedule = _market_schedule(arms, BLOCK_TICKS)
+        for burn_in in gaps:
+            with_effect = switchback_difference(
+                _one_user_panel(_carryover_series(arms, MU, delta, 2)), schedule,
+                burn_in_ticks=burn_in)
+            baseline = switchback_difference(_one_user_panel(_carryover_series(arms, MU, 0, 2)),
+                                             schedule, burn_in_ticks=burn_in)
+            gaps[burn_in].append(with_effect.point - baseline.point)
+    assert np.allclose(gaps[2], 3 * delta * HORIZON, rtol=0, atol=1e-10)
+    assert not np.allclose(gaps[1], 3 * delta * HORIZON, rtol=0, atol=1e-10)
+
+
+def test_optimal_points_match_the_book():
+    # REFERENCES check 5 (Bojinov, Simchi-Levi & Zhao 2023 via Facure 2023 ch. 10):
+    # (T=12, m=2) -> {1,5,7,9}; (T=15, m=3) -> {1,7,10}; (T=120, m=2) -> 58 points; m=0 -> all
+    assert switchback_optimal_points(12, 2).tolist() == [1, 5, 7, 9]
+    assert switchback_optimal_points(15, 3).tolist() == [1, 7, 10]
+    assert switchback_optimal_points(120, 2).size == 58
+    assert switchback_optimal_points(5, 0).tolist() == [1, 2, 3, 4, 5]
+
+
+@pytest.mark.parametrize("n_ticks, m", [(6, 2), (9, 3), (7, 2), (12, -1), (12.0, 2), (True, 1)])
+def test_optimal_points_reject_short_or_invalid_horizons(n_ticks, m):
+    # REFERENCES check 5: n = T/m < 4 must be rejected; T not a multiple of m is not covered
+    with pytest.raises(ValueError):
+        switchback_optimal_points(n_ticks, m)
+
+
+def test_exposure_probabilities_match_the_book():
+    # REFERENCES check 6 (Facure 2023 ch. 10 examples, m = 2, p = 1/2)
+    nan = float("nan")
+    every_three, _ = switchback_exposure_probabilities([1, 4], n_ticks=6, m=2)
+    np.testing.assert_array_equal(every_three, [nan, nan, 0.5, 0.25, 0.25, 0.5])
+    every_tick, _ = switchback_exposure_probabilities(np.arange(1, 8), n_ticks=7, m=2)
+    np.testing.assert_array_equal(every_tick, [nan, nan] + [0.125] * 5)
+    points_146, control = switchback_exposure_probabilities([1, 4, 6], n_ticks=7, m=2)
+    np.testing.assert_array_equal(points_146, [nan, nan, 0.5, 0.25, 0.25, 0.25, 0.25])
+    np.testing.assert_array_equal(control, points_146)  # p = 1/2: both arms alike
+
+
+@pytest.mark.parametrize("points", [[1, 5, 7, 9], [1, 4, 7, 10], list(range(1, 13))])
+def test_horvitz_thompson_with_these_probabilities_is_unbiased(points):
+    # REFERENCES check 7 [CALC]: T = 12, m = 2, Y_t = mu_t + delta (w_t + w_{t-1} + w_{t-2}),
+    # delta = -1, mu arbitrary: the HT estimator of Bojinov et al. (2023),
+    # (T-m)^-1 sum_{t>m} Y_t [1{W=1}/P1 - 1{W=0}/P0], has E = 3 delta = -3 exactly under
+    # any design with p = 1/2; enumerate every arm sequence of the blocks.
+    n_ticks, m, delta = 12, 2, -1
+    mu = np.random.default_rng(77).integers(0, 20, size=n_ticks)
+    pi1, pi0 = switchback_exposure_probabilities(points, n_ticks=n_ticks, m=m)
+    block_lengths = np.diff(np.append(points, n_ticks + 1))
+    arms = np.array(list(itertools.product([0, 1], repeat=len(points))))
+    w = np.repeat(arms, block_lengths, axis=1)  # (assignments, ticks)
+    lagged = w[:, m:] + w[:, m - 1:-1] + w[:, :-2]
+    outcome = mu[m:] + delta * lagged
+    tau_hat = np.mean(outcome * ((lagged == 3) / pi1[m:] - (lagged == 0) / pi0[m:]), axis=1)
+    assert tau_hat.mean() == pytest.approx(3 * delta, abs=1e-10)
+
+
+def test_switchback_inputs_are_validated(hand_case):
+    panel, schedule = hand_case
+    with pytest.raises(ValueError, match="burn_in_ticks"):
+        switchback_difference(panel, schedule, burn_in_ticks=-1)
+    with pytest.raises(ValueError, match="burn_in_ticks"):
+        switchback_difference(panel, schedule, burn_in_ticks=True)
+    with pytest.raises(ValueError, match="ticks"):
+        switchback_difference(_one_user_panel(np.ones(7)), _market_schedule([1, 0], 4))
+    user_schedule = AssignmentSchedule(unit_of_user=np.arange(2), is_treated=np.ones((2, 2), bool),
+                                       period_start_ticks=[0, 4], n_ticks=8, unit_kind="user")
+    with pytest.raises(ValueError, match="'market' or 'pool'"):
+        switchback_difference(panel, user_schedule)
+    wrong_pools = AssignmentSchedule(unit_of_user=np.array([0, 1]),
+                                     is_treated=np.ones((2, 2), bool), period_start_ticks=[0, 4],
+                                     n_ticks=8, unit_kind="pool")
+    with pytest.raises(ValueError, match="pool_of_user"):
+        switchback_difference(panel, wrong_pools)
+    with pytest.raises(ValueError, match="points"):
+        switchback_exposure_probabilities([2, 4], n_ticks=6, m=2)
+    with pytest.raises(ValueError, match="p must be"):
+        switchback_exposure_probabilities([1, 4], n_ticks=6, m=2, p=1.0)
+
+
+def test_single_block_per_arm_keeps_point_without_se():
+    with pytest.warns(DegenerateEstimateWarning, match="single block"):
+        est = switchback_difference(_one_user_panel([3, 3, 1, 1]), _market_schedule([1, 0], 2))
+    assert est.point == pytest.approx(4 * (3 - 1), abs=1e-12)  # by hand
+    assert math.isnan(est.standard_error)
