@@ -54,22 +54,27 @@ def test_hand_case_without_burn_in(hand_case):
 
 
 def test_hand_case_with_burn_in(hand_case):
-    # by hand: burn-in 1 drops ticks 0 (a treated first block switches from the pre-horizon
-    # control), 2 and 6; block 2 repeats the control arm and is kept whole.
-    # treated: ticks 1, 7 -> 12 / 4 = 3; control: ticks 3, 4, 5 -> 8 / 6 = 4/3;
-    # point 8 * 5/3 = 40/3. Control blocks (F, n) = (2, 2), (6, 4): residuals -2/3, 2/3,
-    # V = 2/1 * (8/9) / 6^2 = 4/81 per user-tick; treated residuals 0; SE = 8 * 2/9 = 16/9.
+    # by hand: burn-in 1 leaves out position 0 of switched blocks (0: T after the pre-horizon
+    # control, 1: C after T, 3: T after C); block 2 repeats C. Per-user outcomes by block
+    # (2,3) (1,1) (0,3) (4,3). Position 0: no unswitched treated block, so all treated blocks
+    # are used, (2 + 4)/2 = 3; control uses block 2 only, 0. Position 1: treated 3, control
+    # (1 + 3)/2 = 2. Four periods have each position: point 4*(3 - 0) + 4*(3 - 2) = 16.
+    # Linearization (2 users per block): treated psi = -2, +2; control psi = -2, +2
+    # -> V = 2*8 + 2*8 = 32.
     est = switchback_difference(*hand_case, burn_in_ticks=1)
-    assert est.point == pytest.approx(40 / 3, abs=1e-12)
-    assert est.standard_error == pytest.approx(16 / 9, abs=1e-12)
+    assert est.point == pytest.approx(16.0, abs=1e-12)
+    assert est.standard_error ** 2 == pytest.approx(32.0, abs=1e-12)
     assert est.n_units == 4
 
 
-def test_burn_in_longer_than_a_block_drops_the_block(hand_case):
-    # burn-in 2 removes every switched block (0, 1 and 3) whole: the treated arm keeps no tick
-    with pytest.warns(DegenerateEstimateWarning, match="treated arm keeps no tick"):
+def test_burn_in_as_long_as_a_block_keeps_only_unswitched_blocks(hand_case):
+    # burn-in 2 covers whole blocks: control keeps only block 2 (unswitched), a single block,
+    # so the block-level variance is undefined; treated has no unswitched block and falls
+    # back to blocks 0 and 3: point 4*(3 - 0) + 4*(3 - 3) = 12.
+    with pytest.warns(DegenerateEstimateWarning, match="single block"):
         est = switchback_difference(*hand_case, burn_in_ticks=2)
-    assert math.isnan(est.point)
+    assert est.point == pytest.approx(12.0, abs=1e-12)
+    assert math.isnan(est.standard_error)
 
 
 def test_pool_units_weight_by_users():
@@ -149,13 +154,18 @@ def test_carryover_without_burn_in_is_biased_toward_zero():
 
 
 def test_burn_in_of_the_carryover_order_removes_carryover_exactly():
-    # derived here: with burn-in >= 2 (the carryover order) and blocks of L >= 3, every kept
-    # treated tick has all of w_{t-2..t} = 1 and every kept control tick all 0 (the pre-horizon
-    # counts as control), so the carryover adds exactly 3 delta T to the point in every
-    # assignment; burn-in 1 is not enough for some assignment
+    # derived here: with burn-in >= 2 (the carryover order) and blocks of L >= 3, every used
+    # treated tick has all of w_{t-2..t} = 1 and every used control tick all 0 (positions in
+    # the burn-in come from unswitched blocks; the pre-horizon counts as control), so the
+    # carryover adds exactly 3 delta T to the point in every assignment with an unswitched
+    # block in each arm; burn-in 1 is not enough for some assignment
     delta = -1
     gaps = {1: [], 2: []}
     for arms in _complete_assignments():
+        previous = np.concatenate([[False], np.asarray(arms, bool)[:-1]])
+        same = np.asarray(arms, bool) == previous
+        if not (same & np.asarray(arms, bool)).any() or not (same & ~np.asarray(arms, bool)).any():
+            continue  # the claim needs an unswitched block in each arm
         schedule = _market_schedule(arms, BLOCK_TICKS)
         for burn_in in gaps:
             with_effect = switchback_difference(

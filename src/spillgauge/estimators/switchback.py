@@ -61,24 +61,19 @@ def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence:
     return confidence
 
 
-def _kept_ticks(schedule: AssignmentSchedule, burn_in_ticks: int) -> np.ndarray:
-    """Return which unit-ticks are kept, shape ``(n_units, n_ticks)``.
+def _switched(schedule: AssignmentSchedule) -> np.ndarray:
+    """Return which blocks switched arm, shape ``(n_units, n_periods)``.
 
-    A block is *switched* when its arm differs from the unit's previous block;
-    before the horizon every unit is in control, so a treated first block is
-    switched too. The first ``burn_in_ticks`` of a switched block are dropped.
+    Before the horizon every unit is in control, so a treated first block switched.
     """
     is_treated = schedule.is_treated
     before = np.zeros((schedule.n_units, 1), dtype=bool)
-    switched = is_treated != np.concatenate((before, is_treated[:, :-1]), axis=1)
-    period = schedule.period_of_tick()
-    position = np.arange(schedule.n_ticks) - schedule.period_start_ticks[period]
-    return ~(switched[:, period] & (position < burn_in_ticks)[None, :])
+    return is_treated != np.concatenate((before, is_treated[:, :-1]), axis=1)
 
 
 def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
                           confidence: float = 0.95, burn_in_ticks: int = 0) -> Estimate:
-    """Estimate the GTE by comparing treated and control ticks of a switchback.
+    """Estimate the GTE by comparing treated and control blocks of a switchback.
 
     Parameters
     ----------
@@ -93,16 +88,16 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     confidence : float, default 0.95
         Level of the confidence interval, in (0, 1).
     burn_in_ticks : int, default 0
-        Ticks left out at the start of every block whose arm differs from the
-        previous block of the same unit. Before the horizon every unit counts as
-        in control, so a first block is trimmed when treated and kept whole when
-        in control.
+        The first ``burn_in_ticks`` of every block whose arm differs from the
+        previous block of the same unit are left out: carryover from the previous
+        arm makes them look like it. Before the horizon every unit counts as in
+        control, so a treated first block has switched.
 
     Returns
     -------
     Estimate
         ``method="switchback_difference"``; ``n_units`` is the number of blocks
-        (unit, period) with at least one kept tick.
+        (unit, period) used.
 
     Raises
     ------
@@ -114,30 +109,37 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     Warns
     -----
     DegenerateEstimateWarning
-        If an arm keeps no tick (every field NaN) or fewer than 2 blocks (point
+        If an arm has no block (every field NaN) or fewer than 2 blocks (point
         kept, standard error and interval NaN).
 
     Notes
     -----
-    With ``F_ut`` the orders fulfilled in unit ``u`` at tick ``t``, ``N_u`` its
-    users and ``T`` the horizon in ticks,
+    The estimate is stratified by the position ``j`` of a tick within its block
+    (ticks since the block started). With ``F_bj`` the orders fulfilled in block
+    ``b`` at position ``j``, ``N_b`` its unit's users, ``A_aj`` the blocks of arm
+    ``a`` used at position ``j`` and ``c_j`` the number of periods that have a
+    position ``j``,
 
-    ``point = T * [sum_{kept treated} F_ut / sum_{kept treated} N_u
-    - sum_{kept control} F_ut / sum_{kept control} N_u]``,
+    ``point = sum_j c_j (r_1j - r_0j)``,  ``r_aj = sum_{A_aj} F_bj / sum_{A_aj} N_b``:
 
-    the difference of the arms' per-user-tick rates (unit-ticks weighted by
-    users), scaled to orders per user over the horizon. With burn-in it
-    targets the steady-state effect of staying in one arm, times ``T``.
+    the per-user-tick effect at every position within a block, summed over the
+    horizon (orders per user). Without burn-in every block is used at every
+    position, and with equal blocks the point is the horizon times the
+    difference of the arms' per-user-tick rates. With burn-in, a position inside
+    the burn-in uses only blocks that did *not* switch (their first ticks are
+    free of the previous arm), so the early hours of a block are still
+    represented: simply dropping them would scale the effect of the later hours
+    up to the whole horizon, which is biased whenever the effect varies within a
+    block (a diurnal rhythm, a shelf that empties by evening). A position with
+    no unswitched block in an arm falls back to all of that arm's blocks.
 
-    Each block ``b`` with kept ticks is one observation, with total ``F_b`` over
-    ``n_b`` kept user-ticks. The variance is the linearization of the two
-    ratios with a Neyman-style factor per arm,
-
-    ``V = T^2 sum_a B_a / (B_a - 1) sum_{b in a} (F_b - rate_a n_b)^2 / (sum_{b in a} n_b)^2``,
-
-    which equals ``T^2 (s1^2 / B_1 + s0^2 / B_0)``, the Neyman variance of block
-    means, whenever blocks have equal ``n_b``. The interval uses Student's t
-    with ``B - 2`` degrees of freedom (``B`` blocks), as for cluster designs.
+    The variance treats blocks as clusters: with the linearization
+    ``psi_b = s_a sum_j c_j (F_bj - r_aj N_b) / W_aj`` (``W_aj`` the users of
+    ``A_aj``, ``s_a`` = +1 treated, -1 control), ``V = sum_a B_a / (B_a - 1)
+    sum_{b in a} psi_b^2``, which with equal blocks and no burn-in is the Neyman
+    variance of block means times the horizon squared. The interval uses
+    Student's t with ``B - 2`` degrees of freedom (``B`` blocks), as for cluster
+    designs (Bojinov, Simchi-Levi & Zhao 2023 analyse switchbacks block by block).
 
     Examples
     --------
@@ -152,12 +154,12 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     >>> est = switchback_difference(panel, schedule)
     >>> est.point, round(est.standard_error ** 2, 6), est.n_units  # 8 * (3 - 1.25)
     (14.0, 20.0, 4)
-    >>> switchback_difference(panel, schedule, burn_in_ticks=1).point  # 8 * (3 - 4/3)
-    13.333333333333334
+    >>> switchback_difference(panel, schedule, burn_in_ticks=1).point  # 4 * (3 - 0 + 3 - 2)
+    16.0
     """
     method = "switchback_difference"
     confidence = _check_inputs(panel, schedule, confidence, burn_in_ticks, method)
-    n_ticks, n_periods = schedule.n_ticks, schedule.n_periods
+    n_periods = schedule.n_periods
     fulfilled = np.asarray(panel.pool_fulfilled, dtype=float)
     if schedule.unit_kind == "market":
         unit_totals = fulfilled.sum(axis=0, keepdims=True)
@@ -165,31 +167,61 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     else:  # unit u is pool u; pools past the last unit hold no user and are left out
         unit_totals = fulfilled[: schedule.n_units]
         unit_users = panel.users_per_pool()[: schedule.n_units].astype(float)
-    kept = _kept_ticks(schedule, burn_in_ticks) & (unit_users > 0)[:, None]
-    user_ticks = np.broadcast_to(unit_users[:, None], kept.shape)
-    block = np.arange(schedule.n_units)[:, None] * n_periods + schedule.period_of_tick()[None, :]
-    block_totals = np.bincount(block[kept], weights=unit_totals[kept],
-                               minlength=schedule.n_units * n_periods)
-    block_sizes = np.bincount(block[kept], weights=user_ticks[kept],
-                              minlength=schedule.n_units * n_periods)
-    used = block_sizes > 0
-    block_treated = schedule.is_treated.ravel()
-    arms = (used & block_treated, used & ~block_treated)
-    n_blocks = int(used.sum())
-    if not (arms[0].any() and arms[1].any()):
-        arm = "treated" if not arms[0].any() else "control"
-        return degenerate_estimate(method, f"the {arm} arm keeps no tick", n_units=n_blocks)
-    rates = [block_totals[arm].sum() / block_sizes[arm].sum() for arm in arms]
-    point = float((rates[0] - rates[1]) * n_ticks)
-    counts = [int(arm.sum()) for arm in arms]
-    if min(counts) < 2:
-        return degenerate_estimate(method, "an arm keeps a single block, so the block-level "
-                                   "variance is undefined", n_units=n_blocks, point=point)
+    lengths = schedule.period_lengths()
+    block_length = int(lengths.max())
+    position = np.arange(block_length)
+    exists = position[None, :] < lengths[:, None]                     # (n_periods, L)
+    ticks = np.minimum(schedule.period_start_ticks[:, None] + position[None, :],
+                       schedule.n_ticks - 1)
+    values = np.where(exists[None], unit_totals[:, ticks], 0.0)       # (units, periods, L)
+    has_users = unit_users > 0
+    cell = exists[None] & has_users[:, None, None]
+    clean = cell & ~(_switched(schedule)[:, :, None] & (position < burn_in_ticks))
+    treated = np.broadcast_to(schedule.is_treated[:, :, None], cell.shape)
+    weights = np.broadcast_to(unit_users[:, None, None], cell.shape)
+    count = exists.sum(axis=0).astype(float)                           # c_j
+    point = 0.0
+    used = np.zeros(cell.shape, dtype=bool)
+    rates, totals = [], []
+    for arm in (treated, ~treated):
+        in_arm = cell & arm
+        chosen = clean & arm
+        fallback = ~chosen.any(axis=(0, 1))
+        chosen = chosen | (in_arm & fallback[None, None, :])
+        users = (weights * chosen).sum(axis=(0, 1))
+        orders = (values * chosen).sum(axis=(0, 1))
+        if not (users > 0).any():
+            name = "treated" if arm is treated else "control"
+            return degenerate_estimate(method, f"the {name} arm has no block",
+                                       n_units=int(cell.any(axis=2).sum()))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rate = np.where(users > 0, orders / users, np.nan)
+        rates.append(rate)
+        totals.append(users)
+        used |= chosen
+    difference = rates[0] - rates[1]
+    missing = ~np.isfinite(difference) & (count > 0)
+    if missing.any():
+        return degenerate_estimate(method, "some position within a block has no block of one "
+                                   "arm", n_units=int(used.any(axis=2).sum()))
+    point = float(np.sum(count * np.nan_to_num(difference)))
+    block_used = used.any(axis=2)
+    n_blocks = int(block_used.sum())
     variance = 0.0
-    for arm, rate, count in zip(arms, rates, counts):
-        residuals = block_totals[arm] - rate * block_sizes[arm]
-        variance += count / (count - 1) * np.sum(residuals ** 2) / block_sizes[arm].sum() ** 2
-    return build_estimate(point, variance * n_ticks ** 2, confidence=confidence, method=method,
+    for k, arm in enumerate((schedule.is_treated, ~schedule.is_treated)):
+        blocks = block_used & arm
+        n_arm = int(blocks.sum())
+        if n_arm < 2:
+            return degenerate_estimate(method, "an arm has a single block, so the block-level "
+                                       "variance is undefined", n_units=n_blocks, point=point)
+        chosen = used & arm[:, :, None]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.where(totals[k] > 0, count / totals[k], 0.0)
+        residual = np.where(chosen, values - np.nan_to_num(rates[k])[None, None, :] * weights,
+                            0.0)
+        psi = (residual * share[None, None, :]).sum(axis=2)[blocks]
+        variance += n_arm / (n_arm - 1) * float(np.sum(psi ** 2))
+    return build_estimate(point, variance, confidence=confidence, method=method,
                           n_units=n_blocks, df=n_blocks - 2)
 
 

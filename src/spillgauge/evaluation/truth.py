@@ -33,7 +33,7 @@ class ReplicationTruth:
 
 
 def _fill_rate(fulfilled: float, demanded: float) -> float:
-    return fulfilled / demanded if demanded > 0 else float("nan")
+    return float(fulfilled / demanded) if demanded > 0 else float("nan")
 
 
 def replication_truth(control: OutcomePanel, treated: OutcomePanel) -> ReplicationTruth:

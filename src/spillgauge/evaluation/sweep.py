@@ -1,0 +1,541 @@
+"""The sweep: run the same study over a grid of one or two scenario values.
+
+A sweep asks where a design stops being trustworthy: the stock cover below
+which user-level randomization overstates the effect, the block length that
+minimises a switchback's RMSE, the peer lift past which graph clusters win.
+Each grid point is a full study (:func:`~spillgauge.evaluation.study.run_study`)
+of the scenario with the swept keys set by :func:`with_value`.
+
+Every point runs from the same study seed: common random numbers across
+points. The users, their rates and (where the scenario's highest demand rate
+is unchanged, e.g. over ``pools.stock_cover``) the candidate order events are
+the same at every point, so curves along a swept key are smoother than
+independent runs would give; the Monte Carlo errors of neighbouring points are
+correlated, so a difference between two points is not judged by their two SEs
+as if they were independent.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import itertools
+import math
+import typing
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from spillgauge.errors import ScenarioError
+from spillgauge.evaluation.plan import describe_unit, estimator_name
+from spillgauge.evaluation.recommend import is_trusted
+from spillgauge.evaluation.store import dumps, write_atomic
+from spillgauge.evaluation.study import StudyResult, run_study
+from spillgauge.scenario import (
+    Calendar,
+    DesignSpec,
+    Effect,
+    Graph,
+    Pools,
+    Scenario,
+    Study,
+    Users,
+    design_to_dict,
+    scenario_to_dict,
+)
+
+__all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys", "run_sweep",
+           "write_sweep"]
+
+_SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
+             "effect": Effect, "study": Study}
+_NOT_SWEPT = {"study.reps", "study.seed"}  # arguments of the sweep itself
+_DESIGN_FIELDS = ("share", "resolution", "block_hours", "burn_in_hours")
+_GRAPH_USES = {"small_world": {"mean_degree", "rewire_share"},
+               "pool_blocks": {"mean_degree", "within_pool_share"},
+               "communities": {"mean_degree", "community_count", "within_community_share"}}
+_SYNTAX = "KEY=START:STOP:N (N evenly spaced values) or KEY=V1,V2,... with distinct values"
+
+
+@dataclass(frozen=True, slots=True)
+class SweepAxis:
+    """One swept key and its values.
+
+    Parameters
+    ----------
+    key : str
+        Dotted scenario key, e.g. ``"pools.stock_cover"`` or ``"design.sb.block_hours"``.
+    values : tuple of float or int
+        Distinct values, in the order given (ints for integer keys).
+    """
+
+    key: str
+    values: tuple
+
+    @property
+    def is_integer(self) -> bool:
+        """Whether the key holds an integer (its values are ints)."""
+        return _field_type(self.key) is int
+
+
+def _field_type(key: str) -> type | None:
+    """Return int or float for a numeric key's field (by name alone), else None."""
+    parts = key.split(".")
+    if len(parts) == 2 and parts[0] in _SECTIONS and key not in _NOT_SWEPT:
+        hint = _hints(_SECTIONS[parts[0]]).get(parts[1])
+    elif len(parts) == 3 and parts[0] == "design" and parts[1] and parts[2] in _DESIGN_FIELDS:
+        hint = _hints(DesignSpec)[parts[2]]
+    else:
+        return None
+    return hint if hint in (int, float) else None
+
+
+def _hints(cls: type) -> dict:
+    return typing.get_type_hints(cls)
+
+
+def valid_keys(scenario: Scenario | None = None) -> list[str]:
+    """Return the numeric keys a sweep can vary (design keys need the scenario's labels).
+
+    >>> "pools.stock_cover" in valid_keys()
+    True
+    """
+    keys = [f"{name}.{f}" for name, cls in _SECTIONS.items() for f, tp in _hints(cls).items()
+            if tp in (int, float) and f"{name}.{f}" not in _NOT_SWEPT]
+    if scenario is None:
+        return keys + [f"design.<label>.{f}" for f in _DESIGN_FIELDS]
+    for spec in scenario.designs:
+        keys += [f"design.{spec.label}.{f}" for f in design_to_dict(spec) if f in _DESIGN_FIELDS]
+    return keys
+
+
+def _number(text: str, whole: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise ScenarioError("--vary", _SYNTAX, whole) from None
+    if not math.isfinite(value):
+        raise ScenarioError("--vary", _SYNTAX + " (finite numbers)", whole)
+    return value
+
+
+def parse_vary(text: str) -> SweepAxis:
+    """Parse a ``--vary`` option: ``KEY=START:STOP:N`` or ``KEY=V1,V2,...``.
+
+    ``START:STOP:N`` gives ``N`` evenly spaced values from START to STOP inclusive
+    (as :func:`numpy.linspace`); ``N = 1`` gives START alone. Values of an
+    integer key (``calendar.days``, ``design.<label>.block_hours``, ...) are
+    rounded to ints, and must stay distinct.
+
+    Raises
+    ------
+    ScenarioError
+        With ``field == "--vary"`` for bad syntax, an unknown or non-numeric key,
+        repeated values or ``N < 1``.
+
+    Examples
+    --------
+    >>> parse_vary("pools.stock_cover=0.8:1.6:5").values
+    (0.8, 1.0, 1.2, 1.4, 1.6)
+    >>> parse_vary("design.sb.block_hours=6,12,24").values
+    (6, 12, 24)
+    """
+    if not isinstance(text, str) or text.count("=") != 1:
+        raise ScenarioError("--vary", _SYNTAX, text)
+    key, spec = (part.strip() for part in text.split("="))
+    kind = _field_type(key)
+    if kind is None:
+        raise ScenarioError("--vary", "KEY=... with KEY a numeric scenario key (one of "
+                            + ", ".join(valid_keys()) + ")", text)
+    if not spec:
+        raise ScenarioError("--vary", _SYNTAX, text)
+    if ":" in spec:
+        parts = spec.split(":")
+        if len(parts) != 3:
+            raise ScenarioError("--vary", _SYNTAX, text)
+        start, stop = _number(parts[0], text), _number(parts[1], text)
+        count = _number(parts[2], text)
+        if count != int(count) or count < 1:
+            raise ScenarioError("--vary", _SYNTAX + " with N an int >= 1", text)
+        raw = [start] if count == 1 else np.linspace(start, stop, int(count)).tolist()
+    else:
+        raw = [_number(part, text) for part in spec.split(",")]
+    if kind is int:
+        values = tuple(int(round(v)) for v in raw)
+    else:
+        values = tuple(float(f"{v:.12g}") for v in raw)
+    if len(set(values)) != len(values):
+        what = " after rounding to whole numbers" if kind is int else ""
+        raise ScenarioError("--vary", f"distinct values{what} ({_SYNTAX})", text)
+    return SweepAxis(key=key, values=values)
+
+
+def _csv_has_column(path: str | None, column: str) -> bool:
+    if path is None:
+        return False
+    with open(path, newline="", encoding="utf-8") as handle:
+        header = next(csv.reader(handle), [])
+    return column in (h.strip() for h in header)
+
+
+def _ignored_reason(scenario: Scenario, section: str, name: str) -> str | None:
+    """Return why a section key would change nothing in this scenario, or None."""
+    users, pools, graph = scenario.users, scenario.pools, scenario.graph
+    if section == "users" and name in ("count", "orders_per_week", "rate_shape") and users.file:
+        return "users.file is given (the file sets it)"
+    if section == "pools" and name == "count" and (users.file or pools.file):
+        return "a users or pools file is given (the file sets the pools)"
+    if section == "users" and name == "history_days" and _csv_has_column(users.file,
+                                                                        "history_orders"):
+        return "users.file has a history_orders column"
+    if section == "pools" and name == "stock_cover" and _csv_has_column(pools.file,
+                                                                       "order_up_to"):
+        return "pools.file has an order_up_to column"
+    if section == "graph" and name not in _GRAPH_USES.get(graph.model, set()):
+        return f"graph.model is {graph.model!r}, which does not use it"
+    if section == "effect" and name == "peer_lift" and graph.model == "none":
+        return "graph.model is 'none' (no neighbours to be lifted by)"
+    return None
+
+
+def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
+    """Return the scenario with one numeric key set (validation runs again).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    key : str
+        ``"<section>.<key>"`` (e.g. ``"pools.stock_cover"``, ``"users.count"``) or
+        ``"design.<label>.<key>"`` for ``share``, ``resolution``, ``block_hours``
+        or ``burn_in_hours``. A design keeps its label when its parameters change.
+    value : float or int
+        Integer keys need a whole number.
+
+    Raises
+    ------
+    ScenarioError
+        For an unknown key (the message lists the valid ones), a non-numeric key,
+        a key the scenario does not use (e.g. ``users.count`` with a users file),
+        or a value the scenario rejects (``.field`` names it).
+
+    Examples
+    --------
+    >>> from spillgauge.scenario import parse_scenario
+    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
+    >>> with_value(s, "pools.stock_cover", 0.9).pools.stock_cover
+    0.9
+    >>> t = with_value(s, "design.switchback-24h.block_hours", 12)
+    >>> t.design("switchback-24h").block_hours
+    12
+    """
+    parts = key.split(".") if isinstance(key, str) else []
+    known = valid_keys(scenario)
+    if len(parts) == 3 and parts[0] == "design":
+        labels = [d.label for d in scenario.designs]
+        if parts[1] not in labels:
+            raise ScenarioError(key, "a design label of the scenario (one of "
+                                + ", ".join(labels) + ")", parts[1])
+        spec = scenario.design(parts[1])
+        if parts[2] not in design_to_dict(spec) or parts[2] not in _DESIGN_FIELDS:
+            raise ScenarioError(key, f"a numeric key of a {spec.kind} design (one of "
+                                + ", ".join(k for k in known if k.startswith(
+                                    f"design.{spec.label}.")) + ")", parts[2])
+        new = dataclasses.replace(spec, **{parts[2]: _typed(value, _field_type(key), key)})
+        designs = tuple(new if d is spec else d for d in scenario.designs)
+        return dataclasses.replace(scenario, designs=designs)
+    if len(parts) != 2 or parts[0] not in _SECTIONS or parts[1] not in _hints(
+            _SECTIONS[parts[0]]) or key in _NOT_SWEPT:
+        raise ScenarioError(key, "a numeric scenario key (one of " + ", ".join(known) + ")",
+                            key)
+    kind = _field_type(key)
+    if kind is None:
+        raise ScenarioError(key, "a numeric key to sweep (one of " + ", ".join(known) + ")",
+                            getattr(getattr(scenario, parts[0]), parts[1]))
+    reason = _ignored_reason(scenario, *parts)
+    if reason is not None:
+        raise ScenarioError(key, f"a key the scenario uses ({reason})", value)
+    section = getattr(scenario, parts[0])
+    section = dataclasses.replace(section, **{parts[1]: _typed(value, kind, key)})
+    return dataclasses.replace(scenario, **{parts[0]: section})
+
+
+def _typed(value: object, kind: type, key: str) -> int | float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise ScenarioError(key, "a number", value)
+    if not math.isfinite(float(value)):
+        raise ScenarioError(key, "a finite number", value)
+    if kind is int:
+        if float(value) != round(float(value)):
+            raise ScenarioError(key, "a whole number", value)
+        return int(round(float(value)))
+    return float(value)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class SweepResult:
+    """Every grid point's study of a sweep.
+
+    Attributes
+    ----------
+    scenario : Scenario
+        The scenario before any key was set.
+    axes : list of SweepAxis
+        One or two.
+    points : list of dict
+        Per grid point, the swept key -> value (first axis outermost).
+    studies : list of StudyResult
+        Per grid point, in the order of ``points``.
+    seed, reps : int
+        Shared by every point.
+    """
+
+    scenario: Scenario
+    axes: list
+    points: list
+    studies: list
+    seed: int = 0
+    reps: int = 0
+
+    @property
+    def keys(self) -> list[str]:
+        """The swept keys, in axis order."""
+        return [axis.key for axis in self.axes]
+
+    def frame(self):
+        """Return one row per point x design as a pandas DataFrame.
+
+        Columns: ``point``, the swept keys, ``label``, ``kind``, ``estimator``,
+        ``unit``, every :class:`~spillgauge.evaluation.metrics.DesignMetrics` field
+        (``bias``, ``bias_se``, ``rmse``, ``coverage``, ...), ``gte``, ``gte_se``,
+        ``alpha``, ``recommended`` and ``trusted`` (from
+        :func:`~spillgauge.evaluation.recommend.is_trusted`).
+        """
+        import pandas as pd
+
+        rows = []
+        for index, (point, study) in enumerate(zip(self.points, self.studies)):
+            alpha = study.scenario.study.alpha
+            for spec in study.scenario.designs:
+                m = study.metrics[spec.label]
+                rows.append({"point": index, **point, "label": spec.label, "kind": spec.kind,
+                             "estimator": estimator_name(spec), "unit": describe_unit(spec),
+                             **m.to_dict(), "gte": study.truth.gte, "gte_se": study.truth.gte_se,
+                             "alpha": alpha,
+                             "recommended": study.recommendation.label == spec.label,
+                             "trusted": is_trusted(m, alpha=alpha)})
+        return pd.DataFrame(rows)
+
+    def answer(self) -> str:
+        """Answer the sweep's question in numbers, in a few sentences.
+
+        One axis: for each design, the swept values where it is trusted and where
+        that stops; the recommended design along the axis; for a
+        ``design.<label>.<key>`` axis, the value of lowest RMSE. Two axes: which
+        design is recommended where on the grid.
+        """
+        rows = self.frame().to_dict("records")
+        if len(self.axes) == 1:
+            return _answer_one_axis(rows, self.axes[0].key)
+        return _answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
+
+
+def _fmt(value: object) -> str:
+    return str(value) if isinstance(value, (int, np.integer)) else f"{float(value):g}"
+
+
+def _labels(rows: list[dict]) -> list[str]:
+    return list(dict.fromkeys(row["label"] for row in rows))
+
+
+def _recommended_at(rows: list[dict], where: dict) -> str | None:
+    return next((row["label"] for row in rows if row["recommended"]
+                 and all(row[k] == v for k, v in where.items())), None)
+
+
+def _why_not(row: dict, key: str) -> str:
+    """Say in numbers why a design is not trusted at one value."""
+    nominal = 1 - row["alpha"]
+    at = f"at {_fmt(row[key])}"
+    if not all(map(math.isfinite, (row["coverage"], row["bias"], row["sd"]))):
+        return f"it gave no usable estimates {at}"
+    if row["coverage"] < nominal - 0.05 or not row["sd"] > 0:
+        return f"its CI covers the GTE in {row['coverage']:.0%} of replications {at}"
+    return f"its bias is {row['bias']:+.3g}, {abs(row['bias']) / row['sd']:.1f} times its SD, {at}"
+
+
+def _trust_clause(design_rows: list[dict], key: str) -> str:
+    first = design_rows[0]
+    name = f"the {first['label']} design (randomized by {first['unit']})"
+    values = [_fmt(row[key]) for row in design_rows]
+    trusted = [bool(row["trusted"]) for row in design_rows]
+    span = f"{key} = {values[0]}" if len(values) == 1 else \
+        f"{key} from {values[0]} to {values[-1]}"
+    if all(trusted):
+        return f"{name} is trustworthy at every {span}"
+    if not any(trusted):
+        best = max(design_rows, key=lambda r: r["coverage"] if math.isfinite(r["coverage"])
+                   else -1.0)
+        return f"{name} is not trustworthy at any {span} ({_why_not(best, key)})"
+    k = trusted.index(True)
+    if all(trusted[k:]):
+        return (f"{name} stops being trustworthy below {key} = {values[k]} "
+                f"({_why_not(design_rows[k - 1], key)})")
+    k = len(trusted) - 1 - trusted[::-1].index(True)
+    if all(trusted[:k + 1]):
+        return (f"{name} stops being trustworthy above {key} = {values[k]} "
+                f"({_why_not(design_rows[k + 1], key)})")
+    shown = [v for v, t in zip(values, trusted) if t]
+    return f"{name} is trustworthy only at {key} = " + ", ".join(shown)
+
+
+def _runs(labels: list[str | None], values: list[str]) -> list[tuple[str | None, str, str]]:
+    runs: list[list] = []
+    for label, value in zip(labels, values):
+        if runs and runs[-1][0] == label:
+            runs[-1][2] = value
+        else:
+            runs.append([label, value, value])
+    return [tuple(run) for run in runs]
+
+
+def _answer_one_axis(rows: list[dict], key: str) -> str:
+    rows = sorted(rows, key=lambda r: r[key])
+    values = list(dict.fromkeys(row[key] for row in rows))
+    shown = [_fmt(v) for v in values]
+    clauses = [_trust_clause([r for r in rows if r["label"] == label], key)
+               for label in _labels(rows)]
+    first = "; ".join(clauses)
+    sentences = [first[0].upper() + first[1:] + "."]
+    chosen = [_recommended_at(rows, {key: v}) for v in values]
+    runs = _runs(chosen, shown)
+    if len(runs) == 1 and len(values) > 1:
+        label = runs[0][0]
+        sentences.append(f"{label} is recommended at every value." if label else
+                         "No design is trustworthy at any value.")
+    else:
+        parts = []
+        for label, lo, hi in runs:
+            where = f"{key} = {lo}" if lo == hi else f"{key} from {lo} to {hi}"
+            parts.append(f"{label or 'no design (none is trusted)'} at {where}")
+        sentences.append("Recommended: " + ", then ".join(parts) + ".")
+    parts = key.split(".")
+    if parts[0] == "design" and len(parts) == 3:
+        own = [r for r in rows if r["label"] == parts[1] and math.isfinite(r["rmse"])]
+        if own:
+            best = min(own, key=lambda r: r["rmse"])
+            sentences.append(f"The RMSE of {parts[1]} is lowest at {parts[2]} = "
+                             f"{_fmt(best[key])} ({best['rmse']:.3g} ± {best['rmse_se']:.2g}).")
+    return " ".join(sentences)
+
+
+def _answer_two_axes(rows: list[dict], key_x: str, key_y: str) -> str:
+    grid = list(dict.fromkeys((row[key_x], row[key_y]) for row in rows))
+    xs = sorted({x for x, _ in grid})
+    ys = sorted({y for _, y in grid})
+    chosen = {(x, y): _recommended_at(rows, {key_x: x, key_y: y}) for x, y in grid}
+    parts = []
+    for label in [*_labels(rows), None]:
+        cells = [cell for cell, c in chosen.items() if c == label]
+        if not cells:
+            continue
+        spans = []
+        for i, key in enumerate((key_x, key_y)):
+            lo, hi = min(c[i] for c in cells), max(c[i] for c in cells)
+            spans.append(f"{key} = {_fmt(lo)}" if lo == hi else
+                         f"{key} {_fmt(lo)} to {_fmt(hi)}")
+        name = label if label is not None else "no design is trusted"
+        verb = "" if label is None else " is recommended"
+        parts.append(f"{name}{verb} at {len(cells)} point{'s' * (len(cells) != 1)} "
+                     f"({', '.join(spans)})")
+    head = (f"Over the {len(xs)} x {len(ys)} grid of {key_x} ({_fmt(xs[0])} to {_fmt(xs[-1])}) "
+            f"and {key_y} ({_fmt(ys[0])} to {_fmt(ys[-1])}), ")
+    return head + "; ".join(parts) + "."
+
+
+def _grid(scenario: Scenario, axes: list[SweepAxis]) -> tuple[list[dict], list[Scenario]]:
+    if not 1 <= len(axes) <= 2:
+        raise ScenarioError("--vary", "given once or twice (one or two swept keys)", len(axes))
+    if len(axes) == 2 and axes[0].key == axes[1].key:
+        raise ScenarioError("--vary", "two different keys", axes[1].key)
+    points, scenarios = [], []
+    for values in itertools.product(*(axis.values for axis in axes)):
+        point = {axis.key: value for axis, value in zip(axes, values)}
+        current = scenario
+        for key, value in point.items():
+            current = with_value(current, key, value)
+        points.append(point)
+        scenarios.append(current)
+    return points, scenarios
+
+
+def run_sweep(scenario: Scenario, axes: list[SweepAxis], *, reps: int | None = None,
+              seed: int | None = None, workers: int | None = 1, scheduler: str | None = None,
+              out: str | Path | None = None, resume: bool = False,
+              progress: Callable[[int, int], None] | None = None) -> SweepResult:
+    """Run one study per grid point of one or two swept keys.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    axes : list of SweepAxis
+        One or two axes (see :func:`parse_vary`); the grid is their product, the
+        first axis outermost. Every point is validated before any runs.
+    reps, seed : int, optional
+        Override ``study.reps`` and ``study.seed``; every point uses the same seed
+        (common random numbers across points).
+    workers, scheduler
+        As for :func:`~spillgauge.evaluation.study.run_study`.
+    out : path, optional
+        Results folder: point ``i``'s study goes to ``out/points/<i>/`` as it runs,
+        and ``sweep.csv`` and ``sweep.json`` are written at the end.
+    resume : bool
+        Continue every point from the replications saved under ``out``.
+    progress : callable, optional
+        Called as ``progress(done, total)`` over all points' replications.
+
+    Returns
+    -------
+    SweepResult
+    """
+    points, scenarios = _grid(scenario, list(axes))
+    reps = scenario.study.reps if reps is None else int(reps)
+    seed = scenario.study.seed if seed is None else int(seed)
+    total = reps * len(points)
+    studies: list[StudyResult] = []
+    for index, point_scenario in enumerate(scenarios):
+        offset = index * reps
+        report = (lambda done, _n, offset=offset: progress(offset + done, total)) \
+            if progress else None
+        folder = Path(out) / "points" / str(index) if out is not None else None
+        studies.append(run_study(point_scenario, reps=reps, seed=seed, workers=workers,
+                                 scheduler=scheduler, out=folder, resume=resume,
+                                 progress=report))
+    result = SweepResult(scenario=scenario, axes=list(axes), points=points, studies=studies,
+                         seed=seed, reps=reps)
+    if out is not None:
+        write_sweep(result, out)
+    return result
+
+
+def write_sweep(sweep: SweepResult, out: str | Path) -> list[Path]:
+    """Write ``sweep.csv`` (one row per point x design) and ``sweep.json``, atomically.
+
+    ``sweep.json`` holds the axes, the points with each one's recommendation and
+    results folder, the answer sentence and the base scenario's settings.
+    """
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    write_atomic(out / "sweep.csv", sweep.frame().to_csv(index=False))
+    points = [{"point": i, "values": point, "folder": f"points/{i}",
+               "recommended": study.recommendation.label,
+               "is_trustworthy": study.recommendation.is_trustworthy,
+               "gte": study.truth.gte, "gte_se": study.truth.gte_se}
+              for i, (point, study) in enumerate(zip(sweep.points, sweep.studies))]
+    data = {"scenario": sweep.scenario.name, "seed": sweep.seed, "reps": sweep.reps,
+            "axes": [{"key": a.key, "values": list(a.values)} for a in sweep.axes],
+            "answer": sweep.answer(), "points": points,
+            "scenario_settings": scenario_to_dict(sweep.scenario)}
+    write_atomic(out / "sweep.json", dumps(data))
+    return [out / "sweep.csv", out / "sweep.json"]

@@ -1,0 +1,444 @@
+"""Figures of a study: drift of each design, bias against noise, stock paths, switchbacks.
+
+Every plot draws what the study already holds (estimates, metrics, traces,
+switchback profiles); nothing here computes a statistic. Each ``plot_*``
+function draws on the axes (or figure) it is given, so a notebook can place it
+anywhere, and otherwise makes its own figure, detached from pyplot, at the
+report's size. :func:`save_figures` writes them all as PNG files with the Agg
+renderer. matplotlib is imported inside the functions so ``import spillgauge``
+stays fast.
+
+Colours follow the colour-blind-safe palette of Okabe & Ito (2008), "Color
+Universal Design"; the sample pools use shades of the cividis map (Nuñez,
+Anderton & Renslow 2018), which reads the same under the common colour-vision
+deficiencies.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "figure_names", "plot_estimates",
+           "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
+
+FIGURE_SIZE_PX = (1000, 600)
+FIGURE_DPI = 100
+# Okabe & Ito (2008): blue, vermillion, bluish green, reddish purple, orange, sky blue,
+# black (yellow left out: too pale on white).
+PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
+_TRUTH = "#333333"
+_BAND = "#BBBBBB"
+_UNITS = "fulfilled orders per user over the horizon"
+
+
+def _colour(index: int) -> str:
+    return PALETTE[index % len(PALETTE)]
+
+
+def _new_figure():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    width, height = FIGURE_SIZE_PX
+    fig = Figure(figsize=(width / FIGURE_DPI, height / FIGURE_DPI), dpi=FIGURE_DPI,
+                 layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _axes(ax):
+    return ax if ax is not None else _new_figure().add_subplot()
+
+
+def _labels(study) -> list[str]:
+    return [spec.label for spec in study.scenario.designs]
+
+
+def _spread(n: int, width: float) -> np.ndarray:
+    """Return fixed offsets in [-width/2, width/2) that spread n points (golden-ratio steps)."""
+    return ((np.arange(n) * 0.6180339887) % 1.0 - 0.5) * width
+
+
+def plot_estimates(study, ax=None):
+    """Draw every replication's estimate per design against the true effect (drift).
+
+    Parameters
+    ----------
+    study : StudyResult
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure of the report's size when not given.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        One row per design (points and a box of its estimates), a top row with each
+        replication's realised GTE, a line at the mean GTE and a band over the
+        replications' GTE range; each design's bias is written at the right.
+    """
+    ax = _axes(ax)
+    labels = _labels(study)
+    frame = study.replications_frame()
+    gte = np.array([rep.truth.gte for rep in study.replications], dtype=float)
+    gte = gte[np.isfinite(gte)]
+    rows = [("true GTE (each replication)", gte, _TRUTH)]
+    for i, label in enumerate(labels):
+        values = frame.loc[frame["label"] == label, "estimate"].to_numpy(dtype=float)
+        rows.append((label, values[np.isfinite(values)], _colour(i)))
+    if gte.size:
+        ax.axvspan(gte.min(), gte.max(), color=_BAND, alpha=0.35, lw=0,
+                   label="range of the replications' GTE")
+    ax.axvline(study.truth.gte, color=_TRUTH, lw=1.5, ls="--",
+               label=f"mean GTE {study.truth.gte:.3g}")
+    for y, (label, values, colour) in enumerate(rows):
+        if values.size == 0:
+            continue
+        ax.boxplot([values], positions=[y], widths=0.6, orientation="horizontal",
+                   showfliers=False, patch_artist=True, manage_ticks=False,
+                   boxprops={"facecolor": "none", "edgecolor": colour},
+                   medianprops={"color": colour, "lw": 2},
+                   whiskerprops={"color": colour}, capprops={"color": colour})
+        ax.scatter(values, y + _spread(values.size, 0.5), s=14, color=colour, alpha=0.6,
+                   edgecolors="none", zorder=3)
+    means = [study.metrics[label].mean_estimate for label in labels]
+    ax.scatter(means, range(1, len(labels) + 1), marker="D", s=50, color="white",
+               edgecolors=_TRUTH, linewidths=1.5, zorder=5, label="design's mean estimate")
+    ticks = [rows[0][0]]
+    for label in labels:
+        m = study.metrics[label]
+        bias = f"bias {m.bias:+.3g}" if math.isfinite(m.bias) else "bias n/a"
+        if math.isfinite(m.bias) and math.isfinite(m.relative_bias):
+            bias += f" ({m.relative_bias:+.0%})"
+        ticks.append(f"{label}\n{bias}")
+    ax.set_yticks(range(len(rows)), ticks, fontsize=9)
+    for tick, (_, _, colour) in zip(ax.get_yticklabels(), rows):
+        tick.set_color(colour)
+    ax.set_ylim(len(rows) - 0.4, -0.6)
+    ax.set_xlabel(f"estimate of the GTE ({_UNITS})")
+    ax.set_title("Estimates against the true effect: the gap from a design's diamond to "
+                 "the dashed line is its drift", fontsize=11)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=3, fontsize=9,
+              frameon=False)
+    ax.grid(axis="x", color="#E5E5E5")
+    return ax
+
+
+# Where a point's label may go, in points from the point (dx, dy, horizontal alignment).
+_LABEL_SPOTS = ((9, 6, "left"), (9, -16, "left"), (-9, 6, "right"), (-9, -16, "right"),
+                (9, 20, "left"), (-9, 20, "right"), (9, -30, "left"), (-9, -30, "right"))
+
+
+def _place_labels(ax, items: list, fontsize: float = 9) -> None:
+    """Write each point's label at the first nearby spot that overlaps no other label or point.
+
+    ``items`` holds ``((x, y), text, colour, is_bold)``. Text size is estimated
+    from the font size (0.62 em per character), so no renderer is needed.
+    """
+    root = ax.figure.figure  # the top figure, also when ax sits in a SubFigure
+    root.draw_without_rendering()  # settle the layout, so data -> display is final
+    to_points = 72.0 / root.dpi
+    centres = [ax.transData.transform(xy) * to_points for xy, *_ in items]
+    taken = [(cx - 6, cy - 6, cx + 6, cy + 6) for cx, cy in centres]
+    for (xy, text, colour, is_bold), (cx, cy) in zip(items, centres):
+        width, height = 0.62 * fontsize * len(text), 1.2 * fontsize
+        chosen = _LABEL_SPOTS[0]
+        for spot in _LABEL_SPOTS:
+            dx, dy, align = spot
+            left = cx + dx if align == "left" else cx + dx - width
+            box = (left, cy + dy, left + width, cy + dy + height)
+            if not any(box[0] < b[2] and b[0] < box[2] and box[1] < b[3] and b[1] < box[3]
+                       for b in taken):
+                chosen = spot
+                taken.append(box)
+                break
+        dx, dy, align = chosen
+        ax.annotate(text, xy=xy, xytext=(dx, dy), textcoords="offset points", ha=align,
+                    va="bottom", fontsize=fontsize, color=colour,
+                    fontweight="bold" if is_bold else "normal")
+
+
+def _rmse_levels(radius: float) -> np.ndarray:
+    from matplotlib.ticker import MaxNLocator
+
+    levels = MaxNLocator(nbins=8).tick_values(0.0, radius)
+    return levels[(levels > 0) & (levels <= radius * 1.05)]
+
+
+def plot_bias_sd(study, ax=None):
+    """Draw each design's bias against its SD, over circles of equal sqrt(bias^2 + SD^2).
+
+    Parameters
+    ----------
+    study : StudyResult
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure of the report's size when not given.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        One labelled point per design with bars of +-2 Monte Carlo SE; filled when
+        the design is trusted, hollow when not, ringed when recommended.
+    """
+    ax = _axes(ax)
+    labels = _labels(study)
+    trusted = set(study.recommendation.trusted)
+    points = []
+    for i, label in enumerate(labels):
+        m = study.metrics[label]
+        if math.isfinite(m.bias) and math.isfinite(m.sd):
+            points.append((i, label, m))
+    extent = max([math.hypot(m.bias, m.sd) for _, _, m in points] + [1e-9])
+    theta = np.linspace(0.0, math.pi, 181)
+    for k, level in enumerate(_rmse_levels(extent)):
+        ax.plot(level * np.cos(theta), level * np.sin(theta), color="#999999", lw=0.8, ls=":",
+                label="equal $\\sqrt{bias^2 + SD^2}$" if k == 0 else None)
+        for side in (-1, 1):
+            ax.annotate(f"{level:.3g}", xy=(side * level, 0), xytext=(0, 2),
+                        textcoords="offset points", ha="center", va="bottom", fontsize=8,
+                        color="#777777", annotation_clip=True)
+    ax.axvline(0.0, color=_TRUTH, lw=1.0, label="no bias")
+    for i, label, m in points:
+        colour = _colour(i)
+        xerr = 2 * m.bias_se if math.isfinite(m.bias_se) else None
+        yerr = 2 * m.sd_se if math.isfinite(m.sd_se) else None
+        ax.errorbar(m.bias, m.sd, xerr=xerr, yerr=yerr, color=colour, lw=1, capsize=3,
+                    zorder=3)
+        ax.scatter([m.bias], [m.sd], s=80, zorder=4, linewidths=2, edgecolors=colour,
+                   color=colour if label in trusted else "white")
+        if label == study.recommendation.label:
+            ax.scatter([m.bias], [m.sd], s=320, zorder=2, facecolors="none",
+                       edgecolors=_TRUTH, linewidths=1.5)
+    biases = [m.bias for _, _, m in points] + [0.0]
+    sds = [m.sd for _, _, m in points] + [0.0]
+    pad = 0.15 * max(max(biases) - min(biases), max(sds), 1e-9)
+    ax.set_xlim(min(biases) - pad, max(biases) + 2.5 * pad)
+    ax.set_ylim(0.0, max(sds) * 1.25 + pad * 0.2)
+    ax.scatter([], [], s=60, color="#777777", label="trusted")
+    ax.scatter([], [], s=60, color="white", edgecolors="#777777", linewidths=2,
+               label="not trusted")
+    ax.scatter([], [], s=200, facecolors="none", edgecolors=_TRUTH, label="recommended")
+    ax.set_xlabel(f"bias: mean of estimate - GTE ({_UNITS})")
+    ax.set_ylabel("SD of the estimates (same units)")
+    ax.set_title("Bias against noise: the nearer the origin, the more accurate "
+                 "(bars: +-2 Monte Carlo SE)", fontsize=11)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=5, fontsize=9,
+              frameon=False)
+    _place_labels(ax, [((m.bias, m.sd), label, _colour(i), label == study.recommendation.label)
+                       for i, label, m in points])
+    return ax
+
+
+def _traces(study) -> dict:
+    """Return the traces of the first replication that kept them (empty when none did)."""
+    for rep in study.replications:
+        if rep.traces.get("worlds"):
+            return rep.traces
+    return {}
+
+
+def _design_world(study, worlds: dict) -> str | None:
+    """Return the design whose world is drawn: the user-level design if any, else the first."""
+    specs = [spec for spec in study.scenario.designs if spec.label in worlds]
+    for spec in specs:
+        if spec.kind == "user":
+            return spec.label
+    return specs[0].label if specs else None
+
+
+def _per_day(values: np.ndarray, ticks_per_day: int) -> np.ndarray:
+    """Return lost orders per day: each pool's ticks added up day by day."""
+    n_days = values.shape[1] // ticks_per_day
+    return values[:, :n_days * ticks_per_day].reshape(values.shape[0], n_days,
+                                                      ticks_per_day).sum(axis=2)
+
+
+def plot_stock(study, fig=None):
+    """Draw the sample pools' stock level and lost orders per day, world by world.
+
+    Columns: the all-control world, the all-treated world and one design's world
+    (the user-level design when the study has one, otherwise the first design).
+
+    Parameters
+    ----------
+    study : StudyResult
+    fig : matplotlib.figure.Figure or SubFigure, optional
+        Figure to draw into (it must be empty); a new one of the report's size
+        when not given.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        With two rows of axes (stock, lost orders) sharing their y axis.
+
+    Raises
+    ------
+    ValueError
+        When no replication of the study kept its traces.
+    """
+    from matplotlib import colormaps
+
+    traces = _traces(study)
+    if not traces:
+        raise ValueError("no replication of this study kept its stock traces")
+    fig = fig if fig is not None else _new_figure()
+    worlds = traces["worlds"]
+    design = _design_world(study, worlds)
+    columns = [("all control", "all control: no one treated"),
+               ("all treated", "all treated: everyone treated")]
+    if design is not None:
+        columns.append((design, f"design world: {design}"))
+    axes = fig.subplots(2, len(columns), sharex=True, sharey="row", squeeze=False)
+    tick_hours = study.scenario.calendar.tick_hours
+    ticks_per_day = 24 // tick_hours
+    pools = traces["pools"]
+    shades = colormaps["cividis"](np.linspace(0.0, 0.85, max(len(pools), 1)))
+    for col, (world, title) in enumerate(columns):
+        stock = np.asarray(worlds[world]["stock"], dtype=float)
+        lost = _per_day(np.asarray(worlds[world]["lost"], dtype=float), ticks_per_day)
+        days = np.arange(stock.shape[1]) * tick_hours / 24.0
+        for k, pool in enumerate(pools):
+            axes[0, col].plot(days, stock[k], color=shades[k], lw=0.8, label=f"pool {pool}")
+            axes[1, col].stairs(lost[k], np.arange(lost.shape[1] + 1), color=shades[k], lw=1.2,
+                                label=f"pool {pool}")
+        axes[0, col].set_title(title, fontsize=10)
+        axes[1, col].set_xlabel("day of the horizon")
+        for row in (0, 1):
+            axes[row, col].grid(color="#EEEEEE")
+    axes[0, 0].set_ylim(bottom=0)
+    axes[1, 0].set_ylim(bottom=0)
+    axes[0, 0].set_ylabel("stock on the shelf (units)")
+    axes[1, 0].set_ylabel("lost orders per day")
+    axes[0, -1].legend(loc="upper right", fontsize=8, framealpha=0.9)
+    fig.suptitle(f"Stock and lost orders in {len(pools)} sample pools (replication 0): "
+                 "more time at zero and more lost orders mean stock-out spillover", fontsize=11)
+    return fig
+
+
+def _tick_unit(tick_hours: int) -> str:
+    return "hour" if tick_hours == 1 else f"{tick_hours}-hour tick"
+
+
+def plot_switchback(study, ax=None):
+    """Draw each switchback's effect by hours since a switch.
+
+    Parameters
+    ----------
+    study : StudyResult
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure of the report's size when not given.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        One line per switchback design (treated minus control mean orders per user
+        and tick, from ``study.switch_profiles()``), its burn-in as a dotted line,
+        and the GTE spread evenly over the horizon's ticks as a reference.
+
+    Raises
+    ------
+    ValueError
+        When the study has no switchback design.
+    """
+    profiles = {label: p for label, p in study.switch_profiles().items() if len(p)}
+    if not profiles:
+        raise ValueError("the study has no switchback design")
+    ax = _axes(ax)
+    calendar = study.scenario.calendar
+    tick_hours = calendar.tick_hours
+    unit = _tick_unit(tick_hours)
+    ax.axhline(0.0, color=_TRUTH, lw=1.0)
+    ax.axhline(study.truth.gte / calendar.n_ticks, color=_TRUTH, lw=1.2, ls="--",
+               label=f"GTE / {calendar.n_ticks} ticks (the effect per {unit} if even)")
+    labels = _labels(study)
+    for label, profile in profiles.items():
+        i = labels.index(label) if label in labels else len(labels)
+        spec = study.scenario.design(label) if label in labels else None
+        hours = np.arange(len(profile)) * tick_hours
+        ax.plot(hours, profile, color=_colour(i), marker="o", ms=4, lw=1.5, label=label)
+        if spec is not None and spec.burn_in_hours:
+            ax.axvline(spec.burn_in_hours, color=_colour(i), ls=":", lw=1.5,
+                       label=f"{label}: end of burn-in")
+    ax.set_xlabel("hours since a switch (start of a block whose arm changed)")
+    ax.set_ylabel(f"treated - control fulfilled orders\nper user per {unit}")
+    ax.set_title("How the effect evolves after a switch: the first hours carry the previous "
+                 "arm (carryover)", fontsize=11)
+    ax.legend(fontsize=9, framealpha=0.9)
+    ax.grid(color="#EEEEEE")
+    return ax
+
+
+def figure_names(study) -> list[str]:
+    """Return the names of the figures this study can draw (file names without ``.png``)."""
+    names = ["estimates", "bias_sd"]
+    if _traces(study):
+        names.append("stock")
+    if any(len(p) for p in study.switch_profiles().values()):
+        names.append("switchback")
+    return names
+
+
+def _draw(study, name: str):
+    if name == "stock":
+        return plot_stock(study)
+    plot = {"estimates": plot_estimates, "bias_sd": plot_bias_sd,
+            "switchback": plot_switchback}[name]
+    return plot(study).figure
+
+
+def _save_png(fig, path: Path) -> None:
+    """Write a figure as PNG atomically: a temporary file in the same folder, then a rename."""
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            fig.savefig(stream, format="png", dpi=FIGURE_DPI)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
+
+
+def save_figures(study, out_dir: str | Path) -> list[Path]:
+    """Write the study's figures as PNG files of :data:`FIGURE_SIZE_PX` pixels.
+
+    Writes ``estimates.png``, ``bias_sd.png``, ``stock.png`` (when a replication
+    kept its traces) and ``switchback.png`` (when the study has a switchback).
+
+    Parameters
+    ----------
+    study : StudyResult
+    out_dir : path
+        Folder to write into (created when missing).
+
+    Returns
+    -------
+    list of Path
+        The files written, in the order above.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from spillgauge.evaluation.study import run_study
+    >>> from spillgauge.scenario import parse_scenario
+    >>> scenario = parse_scenario({"name": "doc", "calendar": {"days": 2},
+    ...     "users": {"count": 200}, "pools": {"count": 4}, "study": {"reps": 2},
+    ...     "design": [{"kind": "user"}, {"kind": "switchback", "block_hours": 12}]})
+    >>> study = run_study(scenario)
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     [path.name for path in save_figures(study, folder)]
+    ['estimates.png', 'bias_sd.png', 'stock.png', 'switchback.png']
+    """
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name in figure_names(study):
+        path = out_dir / f"{name}.png"
+        _save_png(_draw(study, name), path)
+        written.append(path)
+    return written

@@ -1,0 +1,240 @@
+"""Figures and a small HTML page for a sweep: metrics along a swept key, the recommendation grid.
+
+They draw what :meth:`SweepResult.frame <spillgauge.evaluation.sweep.SweepResult.frame>`
+holds and compute no statistics: error bars are the frame's Monte Carlo
+standard errors (the ``*_se`` columns). matplotlib is imported inside the
+functions, on the Agg backend, so importing this module stays cheap.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+from pathlib import Path
+
+__all__ = ["plot_sweep_metric", "plot_recommendation_grid", "save_sweep_figures",
+           "render_sweep_html", "CAUTION", "FIGURE_SIZE_INCHES"]
+
+FIGURE_SIZE_INCHES = (7.5, 4.6)
+_DPI = 110
+_NO_DESIGN = "no design trusted"
+_METRIC_NAMES = {"bias": "bias (orders per user)", "rmse": "RMSE (orders per user)",
+                 "coverage": "CI coverage of the GTE", "sd": "SD (orders per user)",
+                 "power": "power", "relative_bias": "relative bias",
+                 "mean_estimate": "mean estimate (orders per user)"}
+CAUTION = ("Results follow from the model's assumptions; a simulated recommendation is an input "
+           "to, not a substitute for, the team's own review of an experiment that touches real "
+           "users.")
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _fmt(value: object) -> str:
+    return f"{value:g}" if isinstance(value, float) else str(value)
+
+
+def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: float | None = None):
+    """Draw one metric of every design along a swept key, with Monte Carlo error bars.
+
+    Parameters
+    ----------
+    sweep_frame : pandas.DataFrame
+        :meth:`SweepResult.frame` of a one-key sweep (one row per value x design).
+    key : str
+        The swept key (a column of the frame), drawn on the x axis.
+    metric : str
+        A metric column, e.g. ``"bias"``, ``"rmse"`` or ``"coverage"``; its
+        ``<metric>_se`` column, when present, gives +/- 1 SE error bars.
+    ax : matplotlib Axes, optional
+        Where to draw; a new figure is made when omitted.
+    alpha : float, optional
+        Level of the CIs; the coverage plot draws the nominal ``1 - alpha``
+        (default: the frame's ``alpha`` column, else 0.05).
+
+    Returns
+    -------
+    matplotlib Axes
+
+    Notes
+    -----
+    Filled markers are points where the design is trusted, hollow ones where it
+    is not. Designs are shifted slightly along x so their error bars do not hide
+    each other. The coverage plot has a dashed line at the nominal coverage, the
+    bias plot one at zero.
+    """
+    plt = _pyplot()
+    if ax is None:
+        _, ax = plt.subplots(figsize=FIGURE_SIZE_INCHES, dpi=_DPI)
+    for column in (key, metric, "label"):
+        if column not in sweep_frame.columns:
+            raise ValueError(f"the frame has no column {column!r}")
+    if sweep_frame.duplicated(["label", key]).any():
+        raise ValueError(f"the frame holds several rows per design and {key} value; "
+                         "select one value of the other swept key first")
+    labels = list(dict.fromkeys(sweep_frame["label"]))
+    values = sorted(sweep_frame[key].unique())
+    span = (values[-1] - values[0]) if len(values) > 1 else 1.0
+    shift = 0.012 * span
+    colours = plt.get_cmap("tab10")
+    for i, label in enumerate(labels):
+        rows = sweep_frame[sweep_frame["label"] == label].sort_values(key)
+        x = rows[key].to_numpy(dtype=float) + (i - (len(labels) - 1) / 2) * shift
+        y = rows[metric].to_numpy(dtype=float)
+        se = rows[f"{metric}_se"].to_numpy(dtype=float) if f"{metric}_se" in rows else None
+        colour = colours(i % 10)
+        ax.errorbar(x, y, yerr=se, fmt="-", color=colour, capsize=3, linewidth=1.6,
+                    label=label)
+        trusted = rows["trusted"].to_numpy(dtype=bool) if "trusted" in rows else \
+            [True] * len(rows)
+        for xi, yi, ok in zip(x, y, trusted):
+            ax.plot([xi], [yi], marker="o", markersize=6.5, color=colour,
+                    markerfacecolor=colour if ok else "white", markeredgewidth=1.5)
+    if metric == "coverage":
+        if alpha is None:
+            alpha = float(sweep_frame["alpha"].iloc[0]) if "alpha" in sweep_frame else 0.05
+        ax.axhline(1 - alpha, color="0.3", linestyle="--", linewidth=1.1,
+                   label=f"nominal {1 - alpha:.0%}")
+        ax.set_ylim(-0.03, 1.05)
+        from matplotlib.ticker import PercentFormatter
+
+        ax.yaxis.set_major_formatter(PercentFormatter(1.0))
+    elif metric in ("bias", "relative_bias"):
+        ax.axhline(0.0, color="0.3", linestyle="--", linewidth=1.1, label="no bias")
+    ax.set_xticks(values)
+    ax.set_xticklabels([_fmt(v) for v in values])
+    ax.set_xlabel(key)
+    ax.set_ylabel(_METRIC_NAMES.get(metric, metric))
+    ax.set_title(f"{_METRIC_NAMES.get(metric, metric).split(' (')[0]} by {key} "
+                 "(hollow marker: design not trusted)", fontsize=10)
+    ax.grid(True, color="0.9", linewidth=0.8)
+    ax.legend(fontsize=8, frameon=False, loc="best")
+    return ax
+
+
+def plot_recommendation_grid(frame, key_x: str, key_y: str, ax=None):
+    """Draw a heatmap of the recommended design at each point of a two-key sweep.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        :meth:`SweepResult.frame` of a two-key sweep.
+    key_x, key_y : str
+        The swept keys for the x and y axes.
+    ax : matplotlib Axes, optional
+
+    Returns
+    -------
+    matplotlib Axes
+        Each cell is coloured by the recommended design and labelled with it;
+        grey cells are points where no design is trusted.
+    """
+    plt = _pyplot()
+    from matplotlib.colors import ListedColormap
+    from matplotlib.patches import Patch
+
+    if ax is None:
+        _, ax = plt.subplots(figsize=FIGURE_SIZE_INCHES, dpi=_DPI)
+    xs, ys = sorted(frame[key_x].unique()), sorted(frame[key_y].unique())
+    labels = list(dict.fromkeys(frame["label"])) + [_NO_DESIGN]
+    chosen = {(r[key_x], r[key_y]): r["label"] for r in frame[frame["recommended"]]
+              .to_dict("records")}
+    codes = [[labels.index(chosen.get((x, y), _NO_DESIGN)) for x in xs] for y in ys]
+    tab = plt.get_cmap("tab10")
+    colours = [tab(i % 10) for i in range(len(labels) - 1)] + [(0.85, 0.85, 0.85, 1.0)]
+    ax.imshow(codes, cmap=ListedColormap(colours), vmin=-0.5, vmax=len(labels) - 0.5,
+              origin="lower", aspect="auto")
+    size = 9 if len(xs) <= 5 else 7
+    for j, row in enumerate(codes):
+        for i, code in enumerate(row):
+            text = labels[code] if code < len(labels) - 1 else "none"
+            ax.text(i, j, text, ha="center", va="center", fontsize=size,
+                    color="black" if code == len(labels) - 1 else "white", fontweight="bold")
+    ax.set_xticks(range(len(xs)))
+    ax.set_xticklabels([_fmt(v) for v in xs])
+    ax.set_yticks(range(len(ys)))
+    ax.set_yticklabels([_fmt(v) for v in ys])
+    ax.set_xlabel(key_x)
+    ax.set_ylabel(key_y)
+    ax.set_title("Recommended design", fontsize=10)
+    handles = [Patch(color=colours[i], label=label) for i, label in enumerate(labels)
+               if i in {c for row in codes for c in row}]
+    ax.legend(handles=handles, fontsize=8, frameon=False, loc="upper left",
+              bbox_to_anchor=(1.01, 1.0))
+    return ax
+
+
+def save_sweep_figures(sweep, out: str | Path) -> list[Path]:
+    """Write the sweep's figures as PNG files into ``out`` and return their paths.
+
+    One swept key: ``sweep_bias.png``, ``sweep_rmse.png`` and
+    ``sweep_coverage.png``. Two keys: ``sweep_grid.png``. Every figure is
+    ``FIGURE_SIZE_INCHES`` at 110 dpi.
+    """
+    plt = _pyplot()
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    frame = sweep.frame()
+    keys = [axis.key for axis in sweep.axes]
+    jobs = ([(f"sweep_{m}.png", lambda ax, m=m: plot_sweep_metric(frame, keys[0], m, ax))
+             for m in ("bias", "rmse", "coverage")] if len(keys) == 1 else
+            [("sweep_grid.png", lambda ax: plot_recommendation_grid(frame, keys[0], keys[1],
+                                                                    ax))])
+    paths = []
+    for name, draw in jobs:
+        fig, ax = plt.subplots(figsize=FIGURE_SIZE_INCHES, dpi=_DPI)
+        try:
+            draw(ax)
+            fig.tight_layout()
+            fig.savefig(out / name, dpi=_DPI)
+        finally:
+            plt.close(fig)
+        paths.append(out / name)
+    return paths
+
+
+def _table(frame, keys: list[str]) -> str:
+    head = [*keys, "design", "bias ± SE", "RMSE", "coverage", "trusted", "recommended"]
+    lines = ["<table>", "<tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in head) + "</tr>"]
+    for row in frame.to_dict("records"):
+        cells = [*(_fmt(row[k]) for k in keys), row["label"],
+                 f"{row['bias']:+.3g} ± {row['bias_se']:.2g}", f"{row['rmse']:.3g}",
+                 f"{row['coverage']:.1%}", "yes" if row["trusted"] else "no",
+                 "yes" if row["recommended"] else ""]
+        lines.append("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells) + "</tr>")
+    lines.append("</table>")
+    return "\n".join(lines)
+
+
+def render_sweep_html(sweep, figures: list[str | Path]) -> str:
+    """Return a self-contained HTML page of the sweep: answer, figures, table, caution.
+
+    Figures are embedded as base64 PNG images, so the page needs no other file;
+    every text taken from the study is HTML-escaped.
+    """
+    keys = [axis.key for axis in sweep.axes]
+    images = []
+    for path in figures:
+        data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
+        images.append(f'<img alt="{html.escape(Path(path).stem)}" '
+                      f'src="data:image/png;base64,{data}">')
+    title = f"Sweep of {' and '.join(keys)}: {sweep.scenario.name}"
+    return "\n".join([
+        "<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+        f"<title>{html.escape(title)}</title>",
+        "<style>body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.4}"
+        "table{border-collapse:collapse;font-size:.9em}td,th{border:1px solid #ccc;"
+        "padding:.2em .5em;text-align:right}img{max-width:100%;display:block;margin:1em 0}"
+        ".caution{border-left:4px solid #c80;padding:.5em 1em;background:#fff7e6}</style>",
+        "</head><body>", f"<h1>{html.escape(title)}</h1>",
+        f"<p>{sweep.reps} replications per point, seed {sweep.seed} at every point "
+        "(common random numbers across points).</p>",
+        f'<p class="answer"><strong>{html.escape(sweep.answer())}</strong></p>',
+        *images, _table(sweep.frame(), keys),
+        f'<p class="caution">{html.escape(CAUTION)}</p>', "</body></html>"])
