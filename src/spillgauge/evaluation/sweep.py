@@ -84,16 +84,12 @@ def _field_type(key: str) -> type | None:
     """Return int or float for a numeric key's field (by name alone), else None."""
     parts = key.split(".")
     if len(parts) == 2 and parts[0] in _SECTIONS and key not in _NOT_SWEPT:
-        hint = _hints(_SECTIONS[parts[0]]).get(parts[1])
+        hint = typing.get_type_hints(_SECTIONS[parts[0]]).get(parts[1])
     elif len(parts) == 3 and parts[0] == "design" and parts[1] and parts[2] in _DESIGN_FIELDS:
-        hint = _hints(DesignSpec)[parts[2]]
+        hint = typing.get_type_hints(DesignSpec)[parts[2]]
     else:
         return None
     return hint if hint in (int, float) else None
-
-
-def _hints(cls: type) -> dict:
-    return typing.get_type_hints(cls)
 
 
 def valid_keys(scenario: Scenario | None = None) -> list[str]:
@@ -102,7 +98,7 @@ def valid_keys(scenario: Scenario | None = None) -> list[str]:
     >>> "pools.stock_cover" in valid_keys()
     True
     """
-    keys = [f"{name}.{f}" for name, cls in _SECTIONS.items() for f, tp in _hints(cls).items()
+    keys = [f"{name}.{f}" for name, cls in _SECTIONS.items() for f, tp in typing.get_type_hints(cls).items()
             if tp in (int, float) and f"{name}.{f}" not in _NOT_SWEPT]
     if scenario is None:
         return keys + [f"design.<label>.{f}" for f in _DESIGN_FIELDS]
@@ -163,7 +159,7 @@ def parse_vary(text: str) -> SweepAxis:
     else:
         raw = [_number(part, text) for part in spec.split(",")]
     if kind is int:
-        values = tuple(int(round(v)) for v in raw)
+        values = tuple(int(math.floor(v + 0.5)) for v in raw)
     else:
         values = tuple(float(f"{v:.12g}") for v in raw)
     if len(set(values)) != len(values):
@@ -245,14 +241,15 @@ def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
         new = dataclasses.replace(spec, **{parts[2]: _typed(value, _field_type(key), key)})
         designs = tuple(new if d is spec else d for d in scenario.designs)
         return dataclasses.replace(scenario, designs=designs)
-    if len(parts) != 2 or parts[0] not in _SECTIONS or parts[1] not in _hints(
-            _SECTIONS[parts[0]]) or key in _NOT_SWEPT:
+    if len(parts) != 2 or parts[0] not in _SECTIONS or parts[1] not in typing.get_type_hints(
+            _SECTIONS[parts[0]]):
         raise ScenarioError(key, "a numeric scenario key (one of " + ", ".join(known) + ")",
                             key)
     kind = _field_type(key)
     if kind is None:
-        raise ScenarioError(key, "a numeric key to sweep (one of " + ", ".join(known) + ")",
-                            getattr(getattr(scenario, parts[0]), parts[1]))
+        what = ("set by the sweep's own reps and seed arguments, not swept" if key in _NOT_SWEPT
+                else "a numeric key to sweep (one of " + ", ".join(known) + ")")
+        raise ScenarioError(key, what, getattr(getattr(scenario, parts[0]), parts[1]))
     reason = _ignored_reason(scenario, *parts)
     if reason is not None:
         raise ScenarioError(key, f"a key the scenario uses ({reason})", value)
@@ -297,11 +294,6 @@ class SweepResult:
     studies: list
     seed: int = 0
     reps: int = 0
-
-    @property
-    def keys(self) -> list[str]:
-        """The swept keys, in axis order."""
-        return [axis.key for axis in self.axes]
 
     def frame(self):
         """Return one row per point x design as a pandas DataFrame.
@@ -356,18 +348,20 @@ def _recommended_at(rows: list[dict], where: dict) -> str | None:
 
 def _why_not(row: dict, key: str) -> str:
     """Say in numbers why a design is not trusted at one value."""
-    nominal = 1 - row["alpha"]
+    needed = 1 - row["alpha"] - max(0.05, 2 * row["coverage_se"])  # as is_trusted
     at = f"at {_fmt(row[key])}"
     if not all(map(math.isfinite, (row["coverage"], row["bias"], row["sd"]))):
         return f"it gave no usable estimates {at}"
-    if row["coverage"] < nominal - 0.05 or not row["sd"] > 0:
+    if row["coverage"] < needed or not row["sd"] > 0:
         return f"its CI covers the GTE in {row['coverage']:.0%} of replications {at}"
     return f"its bias is {row['bias']:+.3g}, {abs(row['bias']) / row['sd']:.1f} times its SD, {at}"
 
 
 def _trust_clause(design_rows: list[dict], key: str) -> str:
     first = design_rows[0]
-    name = f"the {first['label']} design (randomized by {first['unit']})"
+    units = {row["unit"] for row in design_rows}
+    name = f"the {first['label']} design" + (f" (randomized by {first['unit']})"
+                                             if len(units) == 1 else "")
     values = [_fmt(row[key]) for row in design_rows]
     trusted = [bool(row["trusted"]) for row in design_rows]
     span = f"{key} = {values[0]}" if len(values) == 1 else \
@@ -412,8 +406,8 @@ def _answer_one_axis(rows: list[dict], key: str) -> str:
     runs = _runs(chosen, shown)
     if len(runs) == 1 and len(values) > 1:
         label = runs[0][0]
-        sentences.append(f"{label} is recommended at every value." if label else
-                         "No design is trustworthy at any value.")
+        sentences.append(f"The {label} design is recommended at every value." if label
+                         else "No design is trustworthy at any value.")
     else:
         parts = []
         for label, lo, hi in runs:
@@ -432,26 +426,30 @@ def _answer_one_axis(rows: list[dict], key: str) -> str:
 
 def _answer_two_axes(rows: list[dict], key_x: str, key_y: str) -> str:
     grid = list(dict.fromkeys((row[key_x], row[key_y]) for row in rows))
-    xs = sorted({x for x, _ in grid})
-    ys = sorted({y for _, y in grid})
+    xs, ys = sorted({x for x, _ in grid}), sorted({y for _, y in grid})
     chosen = {(x, y): _recommended_at(rows, {key_x: x, key_y: y}) for x, y in grid}
-    parts = []
-    for label in [*_labels(rows), None]:
-        cells = [cell for cell, c in chosen.items() if c == label]
-        if not cells:
-            continue
-        spans = []
-        for i, key in enumerate((key_x, key_y)):
-            lo, hi = min(c[i] for c in cells), max(c[i] for c in cells)
-            spans.append(f"{key} = {_fmt(lo)}" if lo == hi else
-                         f"{key} {_fmt(lo)} to {_fmt(hi)}")
-        name = label if label is not None else "no design is trusted"
-        verb = "" if label is None else " is recommended"
-        parts.append(f"{name}{verb} at {len(cells)} point{'s' * (len(cells) != 1)} "
-                     f"({', '.join(spans)})")
-    head = (f"Over the {len(xs)} x {len(ys)} grid of {key_x} ({_fmt(xs[0])} to {_fmt(xs[-1])}) "
-            f"and {key_y} ({_fmt(ys[0])} to {_fmt(ys[-1])}), ")
-    return head + "; ".join(parts) + "."
+    counts = [(label, sum(c == label for c in chosen.values()))
+              for label in [*_labels(rows), None]]
+    tally = ", ".join(f"{label or 'no design (none trusted)'} at {n}" for label, n in counts if n)
+    sentences = [f"Over the {len(xs)} x {len(ys)} grid of {key_x} and {key_y}, the recommended "
+                 f"design is {tally} of {len(grid)} points."]
+    # Describe along the longer axis, one clause per value of the shorter one.
+    outer, inner = (key_y, key_x) if len(ys) <= len(xs) else (key_x, key_y)
+    outer_values, inner_values = (ys, xs) if outer == key_y else (xs, ys)
+    clauses = []
+    for o in outer_values:
+        labels = [chosen[(i, o) if outer == key_y else (o, i)] for i in inner_values]
+        runs = _runs(labels, [_fmt(v) for v in inner_values])
+        if len(runs) == 1:
+            parts = [f"{runs[0][0] or 'no design'} at every {inner}"]
+        else:
+            parts = [f"{label or 'no design'} at {lo if lo == hi else f'{lo} to {hi}'}"
+                     for label, lo, hi in runs]
+            parts[0] = parts[0].replace(" at ", f" at {inner} ", 1)
+        clauses.append(f"at {outer} = {_fmt(o)}, " + ", ".join(parts))
+    text = "; ".join(clauses)
+    sentences.append(text[0].upper() + text[1:] + ".")
+    return " ".join(sentences)
 
 
 def _grid(scenario: Scenario, axes: list[SweepAxis]) -> tuple[list[dict], list[Scenario]]:

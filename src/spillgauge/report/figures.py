@@ -9,9 +9,8 @@ renderer. matplotlib is imported inside the functions so ``import spillgauge``
 stays fast.
 
 Colours follow the colour-blind-safe palette of Okabe & Ito (2008), "Color
-Universal Design"; the sample pools use shades of the cividis map (Nuñez,
-Anderton & Renslow 2018), which reads the same under the common colour-vision
-deficiencies.
+Universal Design", chosen to stay distinct under the common colour-vision
+deficiencies; line styles and marker fills carry the rest of the meaning.
 """
 
 from __future__ import annotations
@@ -23,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "figure_names", "plot_estimates",
+__all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "STOCK_DAYS", "figure_names", "plot_estimates",
            "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
 
 FIGURE_SIZE_PX = (1000, 600)
@@ -34,6 +33,9 @@ PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#0
 _TRUTH = "#333333"
 _BAND = "#BBBBBB"
 _UNITS = "fulfilled orders per user over the horizon"
+# Sample pools: four Okabe & Ito colours not read as designs in this figure.
+_POOL_COLOURS = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#CC79A7", "#0072B2")
+STOCK_DAYS = 7  # days of hourly stock shown in the stock figure
 
 
 def _colour(index: int) -> str:
@@ -249,18 +251,15 @@ def _design_world(study, worlds: dict) -> str | None:
     return specs[0].label if specs else None
 
 
-def _per_day(values: np.ndarray, ticks_per_day: int) -> np.ndarray:
-    """Return lost orders per day: each pool's ticks added up day by day."""
-    n_days = values.shape[1] // ticks_per_day
-    return values[:, :n_days * ticks_per_day].reshape(values.shape[0], n_days,
-                                                      ticks_per_day).sum(axis=2)
-
-
 def plot_stock(study, fig=None):
-    """Draw the sample pools' stock level and lost orders per day, world by world.
+    """Draw the sample pools' stock level and lost orders, world by world.
 
     Columns: the all-control world, the all-treated world and one design's world
     (the user-level design when the study has one, otherwise the first design).
+    The top row shows the stock hour by hour over the first days (at most
+    :data:`STOCK_DAYS`), where each restock cycle can be seen; the bottom row the
+    running total of lost orders over the whole horizon, whose slope is the
+    lost orders per day.
 
     Parameters
     ----------
@@ -272,15 +271,13 @@ def plot_stock(study, fig=None):
     Returns
     -------
     matplotlib.figure.Figure
-        With two rows of axes (stock, lost orders) sharing their y axis.
+        With two rows of axes (stock, lost orders), each row sharing its y axis.
 
     Raises
     ------
     ValueError
         When no replication of the study kept its traces.
     """
-    from matplotlib import colormaps
-
     traces = _traces(study)
     if not traces:
         raise ValueError("no replication of this study kept its stock traces")
@@ -291,30 +288,35 @@ def plot_stock(study, fig=None):
                ("all treated", "all treated: everyone treated")]
     if design is not None:
         columns.append((design, f"design world: {design}"))
-    axes = fig.subplots(2, len(columns), sharex=True, sharey="row", squeeze=False)
-    tick_hours = study.scenario.calendar.tick_hours
-    ticks_per_day = 24 // tick_hours
+    axes = fig.subplots(2, len(columns), sharey="row", squeeze=False)
+    calendar = study.scenario.calendar
+    shown_days = min(calendar.days, STOCK_DAYS)
     pools = traces["pools"]
-    shades = colormaps["cividis"](np.linspace(0.0, 0.85, max(len(pools), 1)))
     for col, (world, title) in enumerate(columns):
         stock = np.asarray(worlds[world]["stock"], dtype=float)
-        lost = _per_day(np.asarray(worlds[world]["lost"], dtype=float), ticks_per_day)
-        days = np.arange(stock.shape[1]) * tick_hours / 24.0
+        lost = np.asarray(worlds[world]["lost"], dtype=float)
+        days = np.arange(1, stock.shape[1] + 1) * calendar.tick_hours / 24.0  # tick ends
+        shown = days <= shown_days
         for k, pool in enumerate(pools):
-            axes[0, col].plot(days, stock[k], color=shades[k], lw=0.8, label=f"pool {pool}")
-            axes[1, col].stairs(lost[k], np.arange(lost.shape[1] + 1), color=shades[k], lw=1.2,
-                                label=f"pool {pool}")
+            colour = _POOL_COLOURS[k % len(_POOL_COLOURS)]
+            axes[0, col].plot(days[shown], stock[k, shown], color=colour, lw=1.2, label=f"pool {pool}")
+            axes[1, col].plot(np.r_[0.0, days], np.r_[0.0, np.cumsum(lost[k])], color=colour,
+                              lw=1.5, label=f"pool {pool}")
         axes[0, col].set_title(title, fontsize=10)
-        axes[1, col].set_xlabel("day of the horizon")
+        axes[0, col].set_xlim(0, shown_days)
+        axes[1, col].set_xlim(0, calendar.days)
+        axes[0, col].set_xlabel(f"day (first {shown_days} of {calendar.days})", fontsize=9)
+        axes[1, col].set_xlabel("day of the horizon", fontsize=9)
         for row in (0, 1):
             axes[row, col].grid(color="#EEEEEE")
     axes[0, 0].set_ylim(bottom=0)
     axes[1, 0].set_ylim(bottom=0)
     axes[0, 0].set_ylabel("stock on the shelf (units)")
-    axes[1, 0].set_ylabel("lost orders per day")
-    axes[0, -1].legend(loc="upper right", fontsize=8, framealpha=0.9)
+    axes[1, 0].set_ylabel("lost orders so far (running total)")
+    axes[1, 0].legend(loc="upper left", fontsize=8, framealpha=0.9)
     fig.suptitle(f"Stock and lost orders in {len(pools)} sample pools (replication 0): "
-                 "more time at zero and more lost orders mean stock-out spillover", fontsize=11)
+                 "a shelf at zero loses orders; steeper lower lines mean more lost sales",
+                 fontsize=11)
     return fig
 
 
@@ -352,7 +354,7 @@ def plot_switchback(study, ax=None):
     unit = _tick_unit(tick_hours)
     ax.axhline(0.0, color=_TRUTH, lw=1.0)
     ax.axhline(study.truth.gte / calendar.n_ticks, color=_TRUTH, lw=1.2, ls="--",
-               label=f"GTE / {calendar.n_ticks} ticks (the effect per {unit} if even)")
+               label=f"GTE spread evenly over the horizon's {calendar.n_ticks} ticks")
     labels = _labels(study)
     for label, profile in profiles.items():
         i = labels.index(label) if label in labels else len(labels)
@@ -364,8 +366,8 @@ def plot_switchback(study, ax=None):
                        label=f"{label}: end of burn-in")
     ax.set_xlabel("hours since a switch (start of a block whose arm changed)")
     ax.set_ylabel(f"treated - control fulfilled orders\nper user per {unit}")
-    ax.set_title("How the effect evolves after a switch: the first hours carry the previous "
-                 "arm (carryover)", fontsize=11)
+    ax.set_title("Effect by hours since a switch: a slow start points to carryover, a fall "
+                 "late in the block to stock running out", fontsize=11)
     ax.legend(fontsize=9, framealpha=0.9)
     ax.grid(color="#EEEEEE")
     return ax

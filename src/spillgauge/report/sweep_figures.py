@@ -111,8 +111,8 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
     ax.set_xticklabels([_fmt(v) for v in values])
     ax.set_xlabel(key)
     ax.set_ylabel(_METRIC_NAMES.get(metric, metric))
-    ax.set_title(f"{_METRIC_NAMES.get(metric, metric).split(' (')[0]} by {key} "
-                 "(hollow marker: design not trusted)", fontsize=10)
+    ax.set_title(f"{_METRIC_NAMES.get(metric, metric).split(' (')[0]} by {key}\n"
+                 "bars: ±1 Monte Carlo SE; hollow marker: design not trusted", fontsize=10)
     ax.grid(True, color="0.9", linewidth=0.8)
     ax.legend(fontsize=8, frameon=False, loc="best")
     return ax
@@ -162,7 +162,7 @@ def plot_recommendation_grid(frame, key_x: str, key_y: str, ax=None):
     ax.set_yticklabels([_fmt(v) for v in ys])
     ax.set_xlabel(key_x)
     ax.set_ylabel(key_y)
-    ax.set_title("Recommended design", fontsize=10)
+    ax.set_title("Recommended design at each point (grey: no design trusted)", fontsize=10)
     handles = [Patch(color=colours[i], label=label) for i, label in enumerate(labels)
                if i in {c for row in codes for c in row}]
     ax.legend(handles=handles, fontsize=8, frameon=False, loc="upper left",
