@@ -437,7 +437,8 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
     base = Path(base_dir) if base_dir is not None else None
     for key in data:
         if key not in _TOP_KEYS:
-            raise ScenarioError(key, "a known top-level key or section (one of "
+            raise ScenarioError(key if key.strip() else '""', "a known top-level key or "
+                                "section (one of "
                                 + ", ".join(sorted(_TOP_KEYS)) + ")", key)
     if "name" not in data:
         raise ScenarioError("name", "present (a short name for the scenario)", None)

@@ -24,6 +24,7 @@ from spillgauge.evaluation.metrics import DesignMetrics, design_metrics
 from spillgauge.evaluation.plan import describe_unit, estimator_name
 from spillgauge.evaluation.recommend import Candidate, Recommendation, recommend
 from spillgauge.evaluation.replication import ReplicationResult, run_replication
+from spillgauge.evaluation.resources import check_memory
 from spillgauge.evaluation.store import ResultsFolder
 from spillgauge.evaluation.truth import TruthSummary, summarise_truth
 from spillgauge.model.market import build_market
@@ -177,6 +178,9 @@ def run_truth(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     """Run only the two counterfactual worlds of each replication and summarise the truth."""
     reps = scenario.study.reps if reps is None else int(reps)
     seed = scenario.study.seed if seed is None else int(seed)
+    if scheduler is None:
+        check_memory(scenario, n_worlds=2,
+                     workers=default_workers() if workers is None else max(1, workers))
     build_market(scenario, seed)
     truths = []
 
@@ -220,6 +224,8 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     reps = scenario.study.reps if reps is None else int(reps)
     seed = scenario.study.seed if seed is None else int(seed)
     scenario = replace(scenario, study=replace(scenario.study, reps=reps, seed=seed))
+    if scheduler is None:
+        check_memory(scenario, workers=default_workers() if workers is None else max(1, workers))
     folder = ResultsFolder(out, scenario, seed) if out is not None else None
     done: dict[int, ReplicationResult] = {}
     if folder is not None:

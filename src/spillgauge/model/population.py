@@ -16,7 +16,8 @@ from spillgauge.errors import ScenarioError
 from spillgauge.scenario import Scenario
 from spillgauge.seeding import check_rng
 
-__all__ = ["Population", "build_population", "read_csv_columns", "order_up_to_levels"]
+__all__ = ["Population", "build_population", "read_csv_columns", "order_up_to_levels",
+           "estimate_rates"]
 
 HOURS_PER_WEEK = 168.0
 
@@ -109,6 +110,32 @@ def _numbers(values: list[str], field: str, *, minimum: float = 0.0) -> np.ndarr
     return out
 
 
+def estimate_rates(history: np.ndarray, hours: float) -> np.ndarray:
+    """Estimate each user's orders per hour from pre-period counts (Gamma-Poisson empirical Bayes).
+
+    Counts ``x_i ~ Poisson(r_i * hours)`` with ``r_i ~ Gamma(shape k, rate b)``; ``k`` and
+    ``b`` are fitted by the method of moments (mean m, variance v of the counts:
+    ``k = m^2 / (v - m)``, ``b = k * hours / m``), and each rate is its posterior mean
+    ``(k + x_i) / (b + hours)`` (Morris 1983, parametric empirical Bayes). A user who
+    ordered nothing keeps a small positive rate. When the counts show no
+    over-dispersion (``v <= m``) every user gets the pooled rate ``m / hours``.
+
+    Counts 0, 2, 4 over 10 hours (m = 2, v = 4, so k = 2, b = 10) shrink halfway to the mean:
+
+    >>> estimate_rates(np.array([0.0, 2.0, 4.0]), 10.0).round(4).tolist()
+    [0.1, 0.2, 0.3]
+    """
+    history = np.asarray(history, dtype=float)
+    mean, variance = history.mean(), history.var(ddof=1) if history.size > 1 else 0.0
+    if mean <= 0:
+        return np.zeros_like(history)
+    if variance <= mean:
+        return np.full_like(history, mean / hours)
+    shape = mean * mean / (variance - mean)
+    rate = shape * hours / mean
+    return (shape + history) / (rate + hours)
+
+
 def order_up_to_levels(rate_per_hour: np.ndarray, pool_of_user: np.ndarray, n_pools: int,
                        stock_cover: float, restock_every_hours: int) -> np.ndarray:
     """Return S_k = ceil(stock_cover x pool k's expected all-control demand per restock cycle).
@@ -147,8 +174,13 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
                 raise ScenarioError("pools.file:order_up_to", "whole numbers", levels.tolist())
             order_up_to = levels.astype(np.int64)
     if users.file is not None:
-        columns = read_csv_columns(users.file, required=("user_id", "pool_id", "orders_per_week"),
-                                   optional=("history_orders",), field="users.file")
+        columns = read_csv_columns(users.file, required=("user_id", "pool_id"),
+                                   optional=("orders_per_week", "history_orders"),
+                                   field="users.file")
+        if "orders_per_week" not in columns and "history_orders" not in columns:
+            raise ScenarioError("users.file:orders_per_week", "a column of the CSV file (or give "
+                                "history_orders to estimate rates from the pre-period)",
+                                users.file)
         user_ids = np.array(columns["user_id"])
         if np.unique(user_ids).size != user_ids.size:
             raise ScenarioError("users.file:user_id", "unique per row", user_ids[0])
@@ -160,10 +192,19 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
         if missing:
             raise ScenarioError("users.file:pool_id", "a pool_id listed in pools.file", missing[0])
         pool_of_user = np.array([lookup[p] for p in home.tolist()], dtype=np.int64)
-        rate = _numbers(columns["orders_per_week"], "users.file:orders_per_week") / HOURS_PER_WEEK
-        history = (_numbers(columns["history_orders"], "users.file:history_orders")
-                   if "history_orders" in columns else
-                   rng.poisson(rate * users.history_days * 24.0).astype(float))
+        if "orders_per_week" in columns:
+            rate = _numbers(columns["orders_per_week"], "users.file:orders_per_week") / \
+                HOURS_PER_WEEK
+            history = (_numbers(columns["history_orders"], "users.file:history_orders")
+                       if "history_orders" in columns else
+                       rng.poisson(rate * users.history_days * 24.0).astype(float))
+        else:
+            history = _numbers(columns["history_orders"], "users.file:history_orders")
+            if users.history_days < 1:
+                raise ScenarioError("users.history_days", "the length of the pre-period "
+                                    "(>= 1) when rates are estimated from history_orders",
+                                    users.history_days)
+            rate = estimate_rates(history, users.history_days * 24.0)
     else:
         if pool_ids is None:
             pool_ids = np.arange(pools.count)

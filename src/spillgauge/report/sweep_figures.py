@@ -107,11 +107,13 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
         ax.yaxis.set_major_formatter(PercentFormatter(1.0))
     elif metric in ("bias", "relative_bias"):
         ax.axhline(0.0, color="0.3", linestyle="--", linewidth=1.1, label="no bias")
-    ax.set_xticks(values)
-    ax.set_xticklabels([_fmt(v) for v in values])
+    if len(values) <= 12:  # more ticks than that would overlap; matplotlib then picks them
+        ax.set_xticks(values)
+        ax.set_xticklabels([_fmt(v) for v in values])
     ax.set_xlabel(key)
     ax.set_ylabel(_METRIC_NAMES.get(metric, metric))
-    ax.set_title(f"{_METRIC_NAMES.get(metric, metric).split(' (')[0]} by {key}\n"
+    name = _METRIC_NAMES.get(metric, metric).split(" (")[0]
+    ax.set_title(f"{name[0].upper() + name[1:]} by {key}\n"
                  "bars: ±1 Monte Carlo SE; hollow marker: design not trusted", fontsize=10)
     ax.grid(True, color="0.9", linewidth=0.8)
     ax.legend(fontsize=8, frameon=False, loc="best")

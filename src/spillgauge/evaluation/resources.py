@@ -1,0 +1,91 @@
+"""Estimate a run's memory before it starts, and refuse a run that cannot fit."""
+
+from __future__ import annotations
+
+import os
+
+from spillgauge.errors import SpillgaugeError
+from spillgauge.scenario import Scenario
+
+__all__ = ["estimate_memory_bytes", "available_memory_bytes", "check_memory", "MemoryLimitError"]
+
+_BYTES_PER_CANDIDATE = 72       # event arrays of one replication (user, time, tick, pool, ...)
+_BYTES_PER_CANDIDATE_WORLD = 5  # per world: accepted / served flags and a float transient
+_BYTES_PER_USER_DAY_WORLD = 16  # fulfilled and demanded per user and day, and the bincount
+_BYTES_PER_USER = 120           # population, clusters, graph degree
+_BYTES_PER_EDGE = 24            # symmetric CSR adjacency (data + index, both directions)
+_BASE_BYTES = 200 * 2**20       # interpreter, numpy, scipy, networkx, simpy
+
+
+class MemoryLimitError(SpillgaugeError):
+    """The run would need more memory than the machine has."""
+
+
+def _expected_candidates(scenario: Scenario) -> float:
+    users, calendar, effect = scenario.users, scenario.calendar, scenario.effect
+    peak = (1 + calendar.diurnal_amplitude) * max(1.0, 1 + effect.lift) * max(
+        1.0, 1 + effect.peer_lift) * (1 + 2 * calendar.daily_shock_sd)
+    n_users = users.count if users.file is None else _count_lines(users.file)
+    return n_users * users.orders_per_week / 168.0 * calendar.horizon_hours * peak
+
+
+def _count_lines(path: str) -> int:
+    with open(path, "rb") as handle:
+        return max(sum(1 for _ in handle) - 1, 1)
+
+
+def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
+                          workers: int = 1) -> int:
+    """Return an estimate of the peak resident memory of a run, in bytes.
+
+    Each process holds the market and one replication at a time: its candidate
+    order events (shared by all worlds), per-world flags, and per-world panels of
+    users x days. ``n_worlds`` defaults to the two truth worlds plus one per
+    design. The estimate errs high (it assumes the peak rate all day long).
+    """
+    n_users = scenario.users.count if scenario.users.file is None else \
+        _count_lines(scenario.users.file)
+    worlds = 2 + len(scenario.designs) if n_worlds is None else n_worlds
+    candidates = _expected_candidates(scenario)
+    edges = n_users * scenario.graph.mean_degree / 2 if scenario.graph.model != "none" else 0
+    per_process = (_BASE_BYTES + n_users * _BYTES_PER_USER + edges * _BYTES_PER_EDGE
+                   + candidates * (_BYTES_PER_CANDIDATE + worlds * _BYTES_PER_CANDIDATE_WORLD)
+                   + worlds * n_users * scenario.calendar.days * _BYTES_PER_USER_DAY_WORLD)
+    return int(per_process * max(1, workers))
+
+
+def available_memory_bytes() -> int | None:
+    """Return the memory available to new processes (``MemAvailable``), or None if unknown."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def check_memory(scenario: Scenario, *, workers: int = 1, n_worlds: int | None = None,
+                 available: int | None = None) -> int:
+    """Refuse a run whose estimated memory exceeds what the machine has; return the estimate.
+
+    Raises
+    ------
+    MemoryLimitError
+        With the estimate, what is available, and how to make the run fit.
+    """
+    need = estimate_memory_bytes(scenario, n_worlds=n_worlds, workers=workers)
+    have = available_memory_bytes() if available is None else available
+    if have is not None and need > have:
+        gib = 2**30
+        per = need / max(1, workers) / gib
+        raise MemoryLimitError(
+            f"this run needs about {need / gib:.1f} GiB ({per:.1f} GiB per process x {workers} "
+            f"process{'es' if workers != 1 else ''}) but {have / gib:.1f} GiB is available; "
+            "use fewer --workers, fewer users (users.count), a shorter horizon "
+            "(calendar.days) or fewer designs, or run on a Dask cluster (--scheduler)")
+    return need

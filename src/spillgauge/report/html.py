@@ -1,0 +1,291 @@
+"""A self-contained HTML report of a study: one file, images inline, no network.
+
+The page shows what the study holds (scenario, market, truth, the design table,
+the recommendation and the figures) and computes no statistics. Every piece of
+text is escaped; the figures are embedded as base64 ``data:`` URIs and the style
+sheet is inline, so the file opens anywhere, offline.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+from pathlib import Path
+
+__all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "render_html"]
+
+SECTION_IDS = ("scenario", "market", "truth", "designs", "recommendation", "figures",
+               "caution")
+CAUTION = ("Results follow from the model's assumptions; a simulated recommendation is an "
+           "input to, not a substitute for, the team's own review of an experiment that "
+           "touches real users.")
+CAPTIONS = {
+    "estimates": (
+        "Where each design's estimates land. Each dot is one replication's estimate of the "
+        "GTE by the design named at the left; the box spans the middle half of its "
+        "estimates and the diamond marks their mean. The top row holds each replication's "
+        "true GTE (all-treated minus all-control world, on the same random numbers), the "
+        "dashed line their mean and the grey band their range. A diamond away from the "
+        "dashed line is drift (bias); a wide cloud is noise."),
+    "bias_sd": (
+        "Bias against noise. Each point is one design: its bias (mean estimate minus GTE) "
+        "across, the SD of its estimates up; bars are \u00b12 Monte Carlo SE. Dotted arcs "
+        "join points of equal \u221a(bias\u00b2 + SD\u00b2): the inner the arc, the more "
+        "accurate the design. The table's RMSE is measured against each replication's own "
+        "GTE, so it can sit below the arc when the estimates move with the GTE. Filled "
+        "points are trusted, hollow ones are not; the ring marks the recommendation."),
+    "stock": (
+        "Stock and lost orders in the busiest sample pools of replication 0, in the world "
+        "where no one is treated, the world where everyone is, and one design's world. "
+        "Top: stock at the end of each tick over the first days; each jump is a restock, "
+        "each stretch at zero a stock-out. Bottom: lost orders so far over the horizon. "
+        "Where the design's world loses more orders than the all-control world, its "
+        "control users buy from shelves that treated users emptied (stock-out spillover), "
+        "which inflates a comparison of treated and control users."),
+    "switchback": (
+        "The effect by hours since a switch, for each switchback design: treated minus "
+        "control fulfilled orders per user and tick, over blocks whose arm changed, "
+        "averaged over blocks and replications. Without carryover or stock-outs the line "
+        "would follow only the daily demand rhythm. A slow rise in the first hours is "
+        "carryover from the previous arm (what a burn-in, the dotted line, leaves out); a "
+        "fall later in the block is the treated units' stock running out first. The "
+        "dashed line is the GTE spread evenly over the horizon's ticks."),
+}
+_TITLES = {"estimates": "Drift: estimates against the true effect",
+           "bias_sd": "Bias against SD", "stock": "Stock and lost orders in three worlds",
+           "switchback": "Switchbacks: the effect after a switch"}
+# Design table: (summary key, header, format, key of its Monte Carlo SE or None).
+_COLUMNS = (("mean_estimate", "mean estimate", "{:.3f}", "mean_estimate_se"),
+            ("bias", "bias", "{:+.3f}", "bias_se"),
+            ("relative_bias", "rel. bias", "{:+.0%}", None),
+            ("sd", "SD", "{:.3f}", "sd_se"),
+            ("rmse", "RMSE", "{:.3f}", "rmse_se"),
+            ("coverage", "CI coverage", "{:.0%}", "coverage_se"),
+            ("ci_width", "CI width", "{:.3f}", None),
+            ("power", "power", "{:.0%}", "power_se"),
+            ("type_s", "Type S", "{:.0%}", None),
+            ("type_m", "Type M", "{:.2f}", None))
+_STYLE = """
+body{font:15px/1.5 system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;color:#1a1a1a;
+margin:0 auto;max-width:1180px;padding:1.5rem 1.25rem 3rem}
+h1{font-size:1.6rem;margin:.2rem 0}h2{font-size:1.25rem;border-bottom:2px solid #0072B2;
+padding-bottom:.2rem;margin-top:2.2rem}h3{font-size:1.05rem;margin:1.2rem 0 .4rem}
+nav a{margin-right:.9rem;color:#0072B2}.meta{color:#555}
+table{border-collapse:collapse;margin:.4rem 0 1rem;font-size:.9rem}
+th,td{border:1px solid #d6d6d6;padding:.25rem .55rem;text-align:right;vertical-align:top}
+th{background:#f2f2f2}td.text,th.text{text-align:left}tbody tr:nth-child(even){background:#fafafa}
+.scroll{overflow-x:auto}.se{color:#777;font-size:.8em}
+.trusted{color:#005a8c;font-weight:600}.untrusted{color:#b34700;font-weight:600}
+tr.chosen td{background:#e6f1f8}.settings{display:flex;flex-wrap:wrap;gap:0 1.6rem}
+.verdict{font-size:1.15rem;font-weight:600}.box{border-left:4px solid #0072B2;
+background:#f4f8fb;padding:.6rem 1rem}.box.warn{border-color:#D55E00;background:#fcf3ee}
+figure{margin:1.2rem 0 2rem}figure img{max-width:100%;height:auto;border:1px solid #e2e2e2}
+figcaption{color:#333;font-size:.92rem;margin-top:.4rem}
+#caution p{font-style:italic;background:#f7f7f7;padding:.6rem 1rem;border-radius:4px}
+"""
+
+
+def _e(value: object) -> str:
+    return html.escape(str(value), quote=True)
+
+
+def _number(value: object, template: str = "{:.4g}") -> str:
+    if value is None:
+        return "n/a"
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return str(value)
+    if isinstance(value, int):
+        return f"{value:,}"
+    return template.format(value) if value == value else "n/a"
+
+
+def _plain(value: object) -> str:
+    """Return a settings or market value in words (nested dicts as ``key value`` pairs)."""
+    if isinstance(value, dict):
+        return ", ".join(f"{k} {_plain(v)}" for k, v in value.items())
+    if isinstance(value, (list, tuple)):
+        return ", ".join(_plain(v) for v in value)
+    return _number(value)
+
+
+def _pairs(rows: list[tuple[str, object]]) -> str:
+    body = "".join(f'<tr><th class="text">{_e(k)}</th><td class="text">{_e(_plain(v))}</td></tr>'
+                   for k, v in rows)
+    return f"<table><tbody>{body}</tbody></table>"
+
+
+def _grid(header: list[str], rows: list[list[str]], row_classes: list[str] | None = None,
+          text_columns: int = 1) -> str:
+    """Return a table; cells are already-escaped HTML."""
+    def cls(i: int) -> str:
+        return ' class="text"' if i < text_columns else ""
+    head = "".join(f"<th{cls(i)}>{_e(h)}</th>" for i, h in enumerate(header))
+    body = []
+    for k, row in enumerate(rows):
+        attr = f' class="{row_classes[k]}"' if row_classes and row_classes[k] else ""
+        body.append(f"<tr{attr}>" + "".join(f"<td{cls(i)}>{c}</td>" for i, c in enumerate(row))
+                    + "</tr>")
+    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead>'
+            f'<tbody>{"".join(body)}</tbody></table></div>')
+
+
+def _section(section_id: str, title: str, content: str) -> str:
+    return f'<section id="{section_id}"><h2>{_e(title)}</h2>{content}</section>'
+
+
+def _scenario(study, summary: dict) -> str:
+    settings = dict(summary["scenario_settings"])
+    parts = [f"<p><strong>{_e(study.scenario.name)}</strong> &middot; {summary['reps']:,} "
+             f"replications &middot; seed {_e(summary['seed'])}</p>"]
+    if study.scenario.description:
+        parts.append(f"<p>{_e(' '.join(study.scenario.description.split()))}</p>")
+    designs = settings.pop("design", [])
+    tables = [f"<div><h3>{_e(name)}</h3>{_pairs(list(table.items()))}</div>"
+              for name, table in settings.items() if isinstance(table, dict)]
+    others = [(k, v) for k, v in settings.items()
+              if not isinstance(v, dict) and k not in ("name", "description")]
+    if others:
+        tables.append(f"<div><h3>other</h3>{_pairs(others)}</div>")
+    parts.append(f'<div class="settings">{"".join(tables)}</div>')
+    if designs:
+        keys = list(dict.fromkeys(k for d in designs for k in d))
+        parts.append("<h3>designs</h3>" + _grid(
+            keys, [[_e(_plain(d.get(k, ""))) for k in keys] for d in designs], text_columns=2))
+    return _section("scenario", "Scenario", "".join(parts))
+
+
+def _market(summary: dict) -> str:
+    market = summary.get("market") or {}
+    if not market:
+        content = "<p>The market summary was not recorded with this study.</p>"
+    else:
+        content = _pairs([(k.replace("_", " "), v) for k, v in market.items()])
+    return _section("market", "Market", content)
+
+
+def _truth(summary: dict) -> str:
+    t = summary["truth"]
+    se = t.get("gte_se")
+    lead = (f'<p class="verdict">True GTE {_e(_number(t.get("gte")))} fulfilled orders per '
+            "user over the horizon" + (f" (Monte Carlo SE {_e(_number(se))})" if se is not None
+                                       else "") + f", over {t['reps']:,} replications.</p>")
+    rows = [("fulfilled orders per user", "control_mean", "treated_mean", "{:.4g}"),
+            ("demanded orders per user", "control_demanded", "treated_demanded", "{:.4g}"),
+            ("fill rate", "control_fill_rate", "treated_fill_rate", "{:.2%}"),
+            ("lost-order share", "control_lost_share", "treated_lost_share", "{:.2%}")]
+    table = _grid(["", "all control (no one treated)", "all treated (everyone)"],
+                  [[_e(name), _e(_number(t.get(c), f)), _e(_number(t.get(tr), f))]
+                   for name, c, tr, f in rows])
+    note = ("<p>Both worlds run on the same random numbers in each replication, so the GTE "
+            "is their difference, free of sampling noise between the two.</p>")
+    return _section("truth", "Truth: the two counterfactual worlds", lead + table + note)
+
+
+def _cell(design: dict, key: str, template: str, se_key: str | None) -> str:
+    value = _e(_number(design.get(key), template))
+    se = design.get(se_key) if se_key else None
+    if se is not None and design.get(key) is not None:
+        shown = template.replace("+", "")
+        value += f' <span class="se">\u00b1{_e(_number(se, shown))}</span>'
+    return value
+
+
+def _designs(study, summary: dict) -> str:
+    trusted = set(study.recommendation.trusted)
+    chosen = study.recommendation.label
+    header = ["design (estimator)", "unit", *(c[1] for c in _COLUMNS), "trusted"]
+    rows, classes = [], []
+    for d in summary["designs"]:
+        mark = ('<span class="trusted">\u2713 trusted</span>' if d["label"] in trusted else
+                '<span class="untrusted">\u2717 not trusted</span>')
+        label = (_e(d["label"]) + (" <strong>(recommended)</strong>" if d["label"] == chosen
+                                   else "") + f'<br><span class="se">{_e(d["estimator"])}</span>')
+        rows.append([label, _e(d["unit"]),
+                     *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS), mark])
+        classes.append("chosen" if d["label"] == chosen else "")
+    alpha = study.scenario.study.alpha
+    note = (f"<p>All values are in fulfilled orders per user over the horizon, over "
+            f"{summary['reps']:,} replications; small grey numbers are Monte Carlo standard "
+            f"errors. A design is trusted when its {1 - alpha:.0%} confidence interval covers "
+            "the GTE nearly as often as promised and its bias is small against its noise. "
+            "Type S is the share of significant estimates with the wrong sign, Type M their "
+            "mean exaggeration of the effect.</p>")
+    return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
+
+
+def _recommendation(summary: dict) -> str:
+    rec = summary["recommendation"]
+    if rec["label"] is None:
+        verdict = "No design can be trusted in this market."
+        box = "box warn"
+    else:
+        verdict = f"Recommended design: {rec['label']}."
+        box = "box" if rec["is_trustworthy"] else "box warn"
+    content = (f'<div class="{box}"><p class="verdict">{_e(verdict)}</p>'
+               f"<p>{_e(rec['reason'])}</p></div>")
+    return _section("recommendation", "Recommendation", content)
+
+
+def _figures(figures: dict) -> str:
+    parts = []
+    for name, path in figures.items():
+        data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
+        title = _TITLES.get(name, name.replace("_", " "))
+        caption = CAPTIONS.get(name, "")
+        parts.append(f'<figure id="figure-{_e(name)}"><h3>{_e(title)}</h3>'
+                     f'<img alt="{_e(title)}" src="data:image/png;base64,{data}">'
+                     f"<figcaption>{_e(caption)}</figcaption></figure>")
+    if not parts:
+        parts.append("<p>No figures were drawn for this study.</p>")
+    return _section("figures", "Figures", "".join(parts))
+
+
+def _glance(summary: dict) -> str:
+    rec = summary["recommendation"]
+    verdict = (f"Recommended: {rec['label']}" if rec["label"] is not None
+               else "No design can be trusted")
+    return (f'<p class="box">{_e(verdict)}; true GTE '
+            f"{_e(_number(summary['truth'].get('gte')))} fulfilled orders per user. "
+            '<a href="#recommendation">Why</a></p>')
+
+
+def render_html(study, figures: dict) -> str:
+    """Return the study's report as one self-contained HTML page.
+
+    Parameters
+    ----------
+    study : StudyResult
+    figures : dict of str to path
+        Figure name (``"estimates"``, ``"bias_sd"``, ``"stock"``, ``"switchback"``
+        or another) to its PNG file; each is embedded as a ``data:`` URI, in the
+        order given, with the caption of :data:`CAPTIONS` that says how to read it.
+
+    Returns
+    -------
+    str
+        The page, with one ``<section>`` per name of :data:`SECTION_IDS`.
+
+    Examples
+    --------
+    >>> from spillgauge.evaluation.study import run_study
+    >>> from spillgauge.scenario import parse_scenario
+    >>> scenario = parse_scenario({"name": "doc", "calendar": {"days": 2},
+    ...     "users": {"count": 200}, "pools": {"count": 4}, "study": {"reps": 2},
+    ...     "design": [{"kind": "user"}]})
+    >>> page = render_html(run_study(scenario), {})
+    >>> page.startswith("<!DOCTYPE html>"), 'id="recommendation"' in page
+    (True, True)
+    """
+    summary = study.summary()
+    title = f"{summary['scenario']}: which randomization unit?"
+    nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS)
+    body = "".join([_scenario(study, summary), _market(summary), _truth(summary),
+                    _designs(study, summary), _recommendation(summary), _figures(figures),
+                    _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
+    return ("<!DOCTYPE html>\n"
+            '<html lang="en"><head><meta charset="utf-8">'
+            '<meta name="viewport" content="width=device-width, initial-scale=1">'
+            f"<title>{_e(title)}</title><style>{_STYLE}</style></head><body>"
+            f"<header><h1>{_e(title)}</h1><p class=\"meta\">spillgauge study report: "
+            f"{summary['reps']:,} replications, seed {_e(summary['seed'])}</p>"
+            f"{_glance(summary)}<nav>{nav}</nav></header><main>{body}</main></body></html>\n")

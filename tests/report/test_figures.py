@@ -1,0 +1,182 @@
+"""Tests of spillgauge.report.figures: the PNG files, and that each plot draws the study's data.
+
+The expected values come from the study itself (its replications, metrics,
+traces and switchback profiles), read through other paths than the plot code,
+and from geometry (a circle of radius c holds x^2 + y^2 = c^2).
+"""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from matplotlib.figure import Figure
+from matplotlib.image import imread
+
+from spillgauge.report import figures
+from spillgauge.report.figures import (
+    FIGURE_SIZE_PX,
+    STOCK_DAYS,
+    figure_names,
+    plot_bias_sd,
+    plot_estimates,
+    plot_stock,
+    plot_switchback,
+    save_figures,
+)
+
+ALL_FIGURES = ["estimates", "bias_sd", "stock", "switchback"]
+
+
+def _fresh_axes():
+    fig = Figure()
+    return fig, fig.add_subplot()
+
+
+def test_save_figures_writes_every_png_at_the_fixed_size(study, tmp_path):
+    paths = save_figures(study, tmp_path / "figs")
+    assert [p.name for p in paths] == [f"{name}.png" for name in ALL_FIGURES]
+    width, height = FIGURE_SIZE_PX
+    for path in paths:
+        assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (RFC 2083)
+        image = imread(path)
+        assert image.shape[:2] == (height, width), path.name
+        assert float(image[..., :3].std()) > 0.05, f"{path.name} is blank"
+    # Atomic writes leave no temporary file behind.
+    assert sorted(p.name for p in (tmp_path / "figs").iterdir()) == sorted(p.name for p in paths)
+
+
+def test_save_figures_leaves_pyplot_alone(study, tmp_path):
+    import matplotlib.pyplot as plt
+
+    before = plt.get_fignums()
+    save_figures(study, tmp_path)
+    assert plt.get_fignums() == before
+
+
+@pytest.mark.parametrize("plot", [plot_estimates, plot_bias_sd, plot_switchback])
+def test_each_plot_draws_on_the_given_axes(study, plot):
+    fig, ax = _fresh_axes()
+    assert plot(study, ax=ax) is ax
+    assert fig.axes == [ax]  # nothing drawn elsewhere
+    assert ax.lines or ax.collections
+    assert ax.get_xlabel() and ax.get_title()
+
+
+@pytest.mark.parametrize("plot", [plot_estimates, plot_bias_sd, plot_switchback])
+def test_each_plot_makes_its_own_axes_when_none_is_given(study, plot):
+    ax = plot(study)
+    width, height = FIGURE_SIZE_PX
+    assert tuple(ax.figure.get_size_inches() * ax.figure.dpi) == (width, height)
+
+
+def test_plot_stock_draws_into_the_given_figure(study):
+    fig = Figure()
+    assert plot_stock(study, fig=fig) is fig
+    assert len(fig.axes) == 6  # 2 rows (stock, lost orders) x 3 worlds
+    assert all(len(ax.lines) == len(study.replications[0].traces["pools"]) for ax in fig.axes)
+    titles = [ax.get_title() for ax in fig.axes[:3]]
+    assert titles[0].startswith("all control") and titles[1].startswith("all treated")
+    assert titles[2] == "design world: user"  # the user-level design is preferred
+
+
+def test_estimates_plot_shows_every_replication_estimate(study):
+    _, ax = _fresh_axes()
+    plot_estimates(study, ax=ax)
+    strips = [c for c in ax.collections if len(c.get_offsets()) == study.reps]
+    frame = study.replications_frame()
+    gte = sorted(rep.truth.gte for rep in study.replications)
+    expected = [gte] + [sorted(frame.loc[frame["label"] == spec.label, "estimate"])
+                        for spec in study.scenario.designs]
+    drawn = [sorted(np.asarray(c.get_offsets())[:, 0]) for c in strips]
+    assert len(drawn) == len(expected)
+    for got, want in zip(drawn, expected):
+        np.testing.assert_allclose(got, want)
+    # The dashed reference is the mean GTE of the truth summary.
+    dashed = [line for line in ax.lines if line.get_linestyle() == "--"]
+    assert dashed and np.allclose(dashed[0].get_xdata(), study.truth.gte)
+
+
+def test_bias_sd_points_are_the_metrics_and_fill_marks_trust(study):
+    _, ax = _fresh_axes()
+    plot_bias_sd(study, ax=ax)
+    trusted = set(study.recommendation.trusted)
+    points = [c for c in ax.collections if len(c.get_offsets()) == 1
+              and np.asarray(c.get_sizes()).item() == 80]
+    assert len(points) == len(study.scenario.designs)
+    for spec, point in zip(study.scenario.designs, points):
+        m = study.metrics[spec.label]
+        np.testing.assert_allclose(point.get_offsets()[0], [m.bias, m.sd])
+        is_filled = not np.allclose(point.get_facecolors()[0][:3], 1.0)
+        assert is_filled == (spec.label in trusted), spec.label
+    labels = {t.get_text() for t in ax.texts}
+    assert {spec.label for spec in study.scenario.designs} <= labels
+
+
+def test_bias_sd_contours_are_circles_around_the_origin(study):
+    _, ax = _fresh_axes()
+    plot_bias_sd(study, ax=ax)
+    arcs = [line for line in ax.lines if line.get_linestyle() == ":"]
+    assert arcs
+    for arc in arcs:
+        radius = np.hypot(arc.get_xdata(), arc.get_ydata())  # x^2 + y^2 = c^2 on a circle
+        np.testing.assert_allclose(radius, radius[0])
+
+
+def test_stock_plot_draws_the_sample_pools_traces(study):
+    fig = plot_stock(study)
+    traces = study.replications[0].traces
+    calendar = study.scenario.calendar
+    shown = STOCK_DAYS * 24 // calendar.tick_hours
+    for col, world in enumerate(["all control", "all treated", "user"]):
+        stock_ax, lost_ax = fig.axes[col], fig.axes[3 + col]
+        for k in range(len(traces["pools"])):
+            np.testing.assert_array_equal(stock_ax.lines[k].get_ydata(),
+                                          traces["worlds"][world]["stock"][k][:shown])
+            # The running total ends at the pool's lost orders over the horizon.
+            assert lost_ax.lines[k].get_ydata()[-1] == sum(traces["worlds"][world]["lost"][k])
+            assert lost_ax.lines[k].get_xdata()[-1] == calendar.days
+    assert "days" not in fig.axes[0].get_ylabel() and "day" in fig.axes[0].get_xlabel()
+
+
+def test_switchback_plot_draws_the_profiles_in_hours(study):
+    _, ax = _fresh_axes()
+    plot_switchback(study, ax=ax)
+    profiles = study.switch_profiles()
+    spec = study.scenario.designs[2]
+    line = next(line for line in ax.lines if line.get_label() == spec.label)
+    tick_hours = study.scenario.calendar.tick_hours
+    np.testing.assert_array_equal(line.get_xdata(),
+                                  np.arange(len(profiles[spec.label])) * tick_hours)
+    np.testing.assert_allclose(line.get_ydata(), profiles[spec.label])
+    burn_in = [line for line in ax.lines if line.get_label().endswith("end of burn-in")]
+    assert len(burn_in) == 1 and np.allclose(burn_in[0].get_xdata(), spec.burn_in_hours)
+    assert "hours since a switch" in ax.get_xlabel()
+    # The reference: the GTE spread evenly over the horizon's ticks.
+    dashed = next(line for line in ax.lines if line.get_linestyle() == "--")
+    assert math.isclose(dashed.get_ydata()[0], study.truth.gte / calendar.n_ticks)
+
+
+def test_figures_without_data_are_left_out(bare_study, tmp_path):
+    assert figure_names(bare_study) == ["estimates", "bias_sd"]
+    assert [p.name for p in save_figures(bare_study, tmp_path)] == ["estimates.png",
+                                                                   "bias_sd.png"]
+    with pytest.raises(ValueError, match="no switchback"):
+        plot_switchback(bare_study)
+    with pytest.raises(ValueError, match="stock traces"):
+        plot_stock(bare_study)
+
+
+def test_importing_the_report_does_not_import_matplotlib():
+    code = ("import sys, spillgauge, spillgauge.report, spillgauge.report.figures, "
+            "spillgauge.report.html; print('matplotlib' in sys.modules)")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                            check=True)
+    assert result.stdout.strip() == "False"
+
+
+def test_module_exports_exist():
+    assert all(hasattr(figures, name) for name in figures.__all__)
