@@ -137,6 +137,39 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
+def _cmd_report(args) -> int:
+    from spillgauge.evaluation.store import load_study
+    from spillgauge.report.text import study_text
+
+    out = Path(args.dir)
+    study = load_study(out)
+    written = _write_reports(study, out)
+    print(study_text(study))
+    print(f"\nre-rendered {out}/ ({', '.join(written)}) from {study.reps} saved replications")
+    return 0
+
+
+def _cmd_demo(args) -> int:
+    from spillgauge.scenario import DEFAULT_SCENARIO
+
+    args.scenario = DEFAULT_SCENARIO
+    args.resume = False
+    return _cmd_run(args)
+
+
+def _cmd_new(args) -> int:
+    from spillgauge.scenario import new_scenario_text
+
+    name = Path(args.name).stem
+    path = Path(args.name if args.name.endswith(".toml") else f"{args.name}.toml")
+    if path.exists() and not args.force:
+        raise ScenarioError("new", "a file that does not exist yet (use --force to overwrite)",
+                            str(path))
+    path.write_text(new_scenario_text(name), encoding="utf-8")
+    print(f"wrote {path}: edit it, then `spillgauge check {path}` and `spillgauge run {path}`")
+    return 0
+
+
 def _cmd_list(args) -> int:
     from spillgauge.scenario import bundled_scenarios, load_scenario
 
@@ -185,6 +218,28 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--resume", action="store_true",
                    help="continue an interrupted run from the replications saved in DIR")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("report", help="re-render the reports of a results folder",
+                       description="Rebuild summary.txt, summary.md, the plots and "
+                       "report.html from the replications saved in DIR, without simulating.")
+    p.add_argument("dir", metavar="DIR", help="a results folder written by `spillgauge run`")
+    p.set_defaults(func=_cmd_report)
+
+    p = sub.add_parser("demo", help="run the default scenario end to end",
+                       description="Run the bundled default scenario (tight_pantry) and write "
+                       "its results and report to results/tight_pantry.")
+    p.add_argument("--reps", type=int, metavar="N", help="replications (default 200)")
+    p.add_argument("--seed", type=int, metavar="S", help="study seed")
+    p.add_argument("--out", metavar="DIR", help="results folder")
+    _add_compute(p)
+    p.set_defaults(func=_cmd_demo)
+
+    p = sub.add_parser("new", help="write a commented scenario file to start from",
+                       description="Write NAME.toml: a commented scenario with every section, "
+                       "to edit into a copy of your own market.")
+    p.add_argument("name", metavar="NAME", help="scenario name (the file is NAME.toml)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.set_defaults(func=_cmd_new)
 
     p = sub.add_parser("list", help="list the bundled scenarios")
     p.set_defaults(func=_cmd_list)

@@ -37,7 +37,11 @@ __all__ = [
     "scenarios_dir",
     "bundled_scenarios",
     "find_scenario",
+    "new_scenario_text",
+    "DEFAULT_SCENARIO",
 ]
+
+DEFAULT_SCENARIO = "tight_pantry"
 
 DESIGN_KINDS = ("user", "cluster", "switchback")
 _STOCKOUT_RULES = ("lost", "substitute")
@@ -563,3 +567,17 @@ def find_scenario(name_or_path: str | Path) -> Path:
     names = ", ".join(p.stem for p in bundled_scenarios())
     raise ScenarioError("scenario", f"an existing file or a bundled scenario ({names})",
                         str(name_or_path))
+
+
+def new_scenario_text(name: str) -> str:
+    """Return a commented scenario file to start from, named ``name``.
+
+    Raises
+    ------
+    ScenarioError
+        When the name has characters other than letters, digits, '-', '_' and '.'.
+    """
+    if not name or not all(c.isalnum() or c in "-_." for c in name):
+        raise ScenarioError("name", "letters, digits, '-', '_' or '.'", name)
+    template = (scenarios_dir() / "_template.toml.txt").read_text(encoding="utf-8")
+    return template.replace("{name}", name)

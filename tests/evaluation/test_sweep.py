@@ -13,7 +13,6 @@ orders are served in random order from a full pool.
 from __future__ import annotations
 
 import json
-import math
 
 import numpy as np
 import pandas as pd
@@ -175,6 +174,8 @@ def test_with_value_design_key_keeps_label_and_revalidates():
     spec = s.design("sb")
     assert (spec.label, spec.block_hours, spec.burn_in_hours, spec.index) == ("sb", 12, 2, 1)
     assert s.design("user") == base.design("user")
+    dotted = _small(design=[{"kind": "switchback", "label": "sb.v2", "block_hours": 24}])
+    assert with_value(dotted, "design.sb.v2.block_hours", 12).design("sb.v2").block_hours == 12
     # Default labels stay too, though they were built from the old parameters.
     t = with_value(_small(), "design.switchback-24h.block_hours", 6)
     assert t.design("switchback-24h").block_hours == 6

@@ -9,7 +9,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from spillgauge.errors import DegenerateEstimateWarning
-from spillgauge.evaluation.plan import draw_design_schedule, estimate_design
 from spillgauge.evaluation.truth import ReplicationTruth, replication_truth
 from spillgauge.model.market import Market, build_market
 from spillgauge.model.world import simulate_worlds
@@ -98,6 +97,8 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
         Designs to run; by default the scenario's. ``()`` runs only the truth worlds.
     """
     designs = scenario.designs if designs is None else tuple(designs)
+    if designs:  # estimators (and scipy.stats) load only when a design is run
+        from spillgauge.evaluation.plan import draw_design_schedule, estimate_design
     market = market if market is not None else build_market(scenario, seed)
     n_users, n_ticks = market.n_users, scenario.calendar.n_ticks
     schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),

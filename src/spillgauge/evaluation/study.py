@@ -19,16 +19,12 @@ from pathlib import Path
 
 import numpy as np
 
-from spillgauge.evaluation.market_summary import summarise_market
-from spillgauge.evaluation.metrics import DesignMetrics, design_metrics
-from spillgauge.evaluation.plan import describe_unit, estimator_name
-from spillgauge.evaluation.recommend import Candidate, Recommendation, recommend
 from spillgauge.evaluation.replication import ReplicationResult, run_replication
 from spillgauge.evaluation.resources import check_memory
 from spillgauge.evaluation.store import ResultsFolder
 from spillgauge.evaluation.truth import TruthSummary, summarise_truth
 from spillgauge.model.market import build_market
-from spillgauge.scenario import Scenario, design_to_dict, scenario_to_dict
+from spillgauge.scenario import DesignSpec, Scenario, design_to_dict, scenario_to_dict
 
 __all__ = ["StudyResult", "run_study", "run_truth", "summarise_study", "default_workers"]
 
@@ -64,7 +60,7 @@ class StudyResult:
     reps: int
     truth: TruthSummary
     metrics: dict
-    recommendation: Recommendation
+    recommendation: object
     replications: list = field(repr=False)
     market_summary: dict = field(default_factory=dict, repr=False)
 
@@ -94,6 +90,8 @@ class StudyResult:
 
     def summary(self) -> dict:
         """Return the content of ``summary.json``."""
+        from spillgauge.evaluation.plan import describe_unit, estimator_name
+
         designs = []
         for spec in self.scenario.designs:
             m = self.metrics[spec.label]
@@ -119,11 +117,15 @@ def _finite(values: dict) -> dict:
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
                     market_summary: dict | None = None) -> StudyResult:
     """Turn finished replications into metrics and a recommendation."""
+    from spillgauge.evaluation.metrics import design_metrics
+    from spillgauge.evaluation.plan import describe_unit
+    from spillgauge.evaluation.recommend import Candidate, recommend
+
     results = sorted(results, key=lambda r: r.replication)
     truth = summarise_truth([r.truth for r in results])
     gte = np.array([r.truth.gte for r in results])
     alpha = scenario.study.alpha
-    metrics: dict[str, DesignMetrics] = {}
+    metrics = {}
     candidates = []
     for spec in scenario.designs:
         rows = [r.estimates[spec.label] for r in results]
@@ -141,8 +143,15 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                        market_summary=market_summary or {})
 
 
+_SHOWN_ALWAYS = {"user": (), "cluster": ("clusters",), "switchback": ("block_hours", "per")}
+
+
 def _design_params(spec) -> dict:
-    return {k: v for k, v in design_to_dict(spec).items() if k not in ("kind", "label")}
+    """Return the design's parameters worth naming: those off their default, plus its identity."""
+    defaults = DesignSpec(kind=spec.kind)
+    return {k: v for k, v in design_to_dict(spec).items()
+            if k not in ("kind", "label")
+            and (k in _SHOWN_ALWAYS[spec.kind] or v != getattr(defaults, k))}
 
 
 def _run_task(scenario: Scenario, seed: int, replication: int,
@@ -230,6 +239,8 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     done: dict[int, ReplicationResult] = {}
     if folder is not None:
         done = {r.replication: r for r in folder.open(resume=resume) if r.replication < reps}
+    from spillgauge.evaluation.market_summary import summarise_market
+
     market_summary = summarise_market(build_market(scenario, seed))
     todo = [r for r in range(reps) if r not in done]
     total = reps

@@ -82,14 +82,24 @@ class SweepAxis:
 
 def _field_type(key: str) -> type | None:
     """Return int or float for a numeric key's field (by name alone), else None."""
-    parts = key.split(".")
+    parts = _split_key(key)
     if len(parts) == 2 and parts[0] in _SECTIONS and key not in _NOT_SWEPT:
         hint = typing.get_type_hints(_SECTIONS[parts[0]]).get(parts[1])
-    elif len(parts) == 3 and parts[0] == "design" and parts[1] and parts[2] in _DESIGN_FIELDS:
+    elif len(parts) == 3 and parts[1] and parts[2] in _DESIGN_FIELDS:
         hint = typing.get_type_hints(DesignSpec)[parts[2]]
     else:
         return None
     return hint if hint in (int, float) else None
+
+
+def _split_key(key: str) -> list[str]:
+    """Split ``section.key`` in two, ``design.<label>.key`` in three (labels may hold dots)."""
+    if not isinstance(key, str):
+        return []
+    if key.startswith("design."):
+        label, _, name = key[len("design."):].rpartition(".")
+        return ["design", label, name]
+    return key.split(".")
 
 
 def valid_keys(scenario: Scenario | None = None) -> list[str]:
@@ -98,7 +108,8 @@ def valid_keys(scenario: Scenario | None = None) -> list[str]:
     >>> "pools.stock_cover" in valid_keys()
     True
     """
-    keys = [f"{name}.{f}" for name, cls in _SECTIONS.items() for f, tp in typing.get_type_hints(cls).items()
+    keys = [f"{name}.{f}" for name, cls in _SECTIONS.items()
+            for f, tp in typing.get_type_hints(cls).items()
             if tp in (int, float) and f"{name}.{f}" not in _NOT_SWEPT]
     if scenario is None:
         return keys + [f"design.<label>.{f}" for f in _DESIGN_FIELDS]
@@ -226,9 +237,9 @@ def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
     >>> t.design("switchback-24h").block_hours
     12
     """
-    parts = key.split(".") if isinstance(key, str) else []
+    parts = _split_key(key)
     known = valid_keys(scenario)
-    if len(parts) == 3 and parts[0] == "design":
+    if parts and parts[0] == "design":
         labels = [d.label for d in scenario.designs]
         if parts[1] not in labels:
             raise ScenarioError(key, "a design label of the scenario (one of "
@@ -414,8 +425,8 @@ def _answer_one_axis(rows: list[dict], key: str) -> str:
             where = f"{key} = {lo}" if lo == hi else f"{key} from {lo} to {hi}"
             parts.append(f"{label or 'no design (none is trusted)'} at {where}")
         sentences.append("Recommended: " + ", then ".join(parts) + ".")
-    parts = key.split(".")
-    if parts[0] == "design" and len(parts) == 3:
+    parts = _split_key(key)
+    if parts[0] == "design":
         own = [r for r in rows if r["label"] == parts[1] and math.isfinite(r["rmse"])]
         if own:
             best = min(own, key=lambda r: r["rmse"])

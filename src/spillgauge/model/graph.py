@@ -6,7 +6,6 @@ networkx analyses it (community detection, clustering).
 
 from __future__ import annotations
 
-import networkx as nx
 import numpy as np
 from scipy import sparse
 
@@ -99,8 +98,14 @@ def pool_block_adjacency(pool_of_user: np.ndarray, mean_degree: float,
     return adjacency_from_edges(sources, targets, n_users)
 
 
-def to_networkx(adjacency: sparse.csr_array) -> nx.Graph:
-    """Return the graph as a networkx ``Graph`` with nodes ``0..n_users-1``."""
+def to_networkx(adjacency: sparse.csr_array):
+    """Return the graph as a networkx ``Graph`` with nodes ``0..n_users-1``.
+
+    networkx is imported here, not at module load, so commands that never
+    analyse the graph start faster.
+    """
+    import networkx as nx
+
     graph = nx.Graph()
     graph.add_nodes_from(range(adjacency.shape[0]))
     upper = sparse.triu(adjacency, k=1).tocoo()
@@ -120,6 +125,8 @@ def detect_communities(adjacency: sparse.csr_array, *, resolution: float = 1.0,
     -------
     ndarray of int, shape (n_users,)
     """
+    import networkx as nx
+
     graph = to_networkx(adjacency)
     communities = nx.community.louvain_communities(graph, resolution=resolution, seed=seed)
     labels = np.empty(adjacency.shape[0], dtype=np.int64)
