@@ -430,9 +430,9 @@ def test_two_axis_sweep_answer_and_grid(tmp_path):
 def test_figures_and_html_page(pool_sweep, tmp_path):
     import matplotlib.image
 
+    from spillgauge.report.figures import FIGURE_SIZE_PX
+    from spillgauge.report.html import CAUTION
     from spillgauge.report.sweep_figures import (
-        CAUTION,
-        FIGURE_SIZE_INCHES,
         plot_sweep_metric,
         render_sweep_html,
         save_sweep_figures,
@@ -443,7 +443,7 @@ def test_figures_and_html_page(pool_sweep, tmp_path):
     assert [p.name for p in paths] == ["sweep_bias.png", "sweep_rmse.png", "sweep_coverage.png"]
     for path in paths:
         height, width = matplotlib.image.imread(path).shape[:2]
-        assert (width, height) == tuple(round(s * 110) for s in FIGURE_SIZE_INCHES)
+        assert (width, height) == FIGURE_SIZE_PX
     ax = plot_sweep_metric(sweep.frame(), "pools.stock_cover", "coverage")
     dashed = [line for line in ax.get_lines() if line.get_linestyle() == "--"]
     assert [line.get_ydata()[0] for line in dashed] == [pytest.approx(0.95)]

@@ -80,7 +80,9 @@ def pool_block_adjacency(pool_of_user: np.ndarray, mean_degree: float,
     user to a partner drawn uniformly from the same pool with probability
     ``within_pool_share`` and from the whole market otherwise. Every pair in a
     block (and every pair across blocks) is then equally likely to be joined,
-    as in a stochastic block model (Holland, Laskey & Leinhardt 1983).
+    as in a stochastic block model (Holland, Laskey & Leinhardt 1983). Repeated
+    pairs and self-pairs are dropped, which lowers the mean degree slightly in
+    small blocks (about 3% for blocks of 100 users at mean degree 8).
     """
     check_rng(rng)
     pool_of_user = np.asarray(pool_of_user, dtype=np.int64)

@@ -22,8 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "STOCK_DAYS", "figure_names", "plot_estimates",
-           "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
+__all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "STOCK_DAYS", "figure_names",
+           "plot_estimates", "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
 
 FIGURE_SIZE_PX = (1000, 600)
 FIGURE_DPI = 100
@@ -78,9 +78,9 @@ def plot_estimates(study, ax=None):
     Returns
     -------
     matplotlib.axes.Axes
-        One row per design (points and a box of its estimates), a top row with each
-        replication's realised GTE, a line at the mean GTE and a band over the
-        replications' GTE range; each design's bias is written at the right.
+        One row per design (points and a box of its estimates, a diamond at their
+        mean, its bias under its label), a top row with each replication's realised
+        GTE, a dashed line at the mean GTE and a band over the replications' GTE range.
     """
     ax = _axes(ax)
     labels = _labels(study)
@@ -193,6 +193,10 @@ def plot_bias_sd(study, ax=None):
         m = study.metrics[label]
         if math.isfinite(m.bias) and math.isfinite(m.sd):
             points.append((i, label, m))
+    if not points:
+        ax.text(0.5, 0.5, "no design has a finite bias and SD", ha="center",
+                transform=ax.transAxes)
+        return ax
     extent = max([math.hypot(m.bias, m.sd) for _, _, m in points] + [1e-9])
     theta = np.linspace(0.0, math.pi, 181)
     for k, level in enumerate(_rmse_levels(extent)):
@@ -234,12 +238,12 @@ def plot_bias_sd(study, ax=None):
     return ax
 
 
-def _traces(study) -> dict:
-    """Return the traces of the first replication that kept them (empty when none did)."""
+def _traces(study) -> tuple[int, dict]:
+    """Return the first replication that kept its traces, and them (-1, {} when none did)."""
     for rep in study.replications:
         if rep.traces.get("worlds"):
-            return rep.traces
-    return {}
+            return rep.replication, rep.traces
+    return -1, {}
 
 
 def _design_world(study, worlds: dict) -> str | None:
@@ -278,7 +282,7 @@ def plot_stock(study, fig=None):
     ValueError
         When no replication of the study kept its traces.
     """
-    traces = _traces(study)
+    replication, traces = _traces(study)
     if not traces:
         raise ValueError("no replication of this study kept its stock traces")
     fig = fig if fig is not None else _new_figure()
@@ -299,7 +303,8 @@ def plot_stock(study, fig=None):
         shown = days <= shown_days
         for k, pool in enumerate(pools):
             colour = _POOL_COLOURS[k % len(_POOL_COLOURS)]
-            axes[0, col].plot(days[shown], stock[k, shown], color=colour, lw=1.2, label=f"pool {pool}")
+            axes[0, col].plot(days[shown], stock[k, shown], color=colour, lw=1.2,
+                              label=f"pool {pool}")
             axes[1, col].plot(np.r_[0.0, days], np.r_[0.0, np.cumsum(lost[k])], color=colour,
                               lw=1.5, label=f"pool {pool}")
         axes[0, col].set_title(title, fontsize=10)
@@ -314,9 +319,9 @@ def plot_stock(study, fig=None):
     axes[0, 0].set_ylabel("stock on the shelf (units)")
     axes[1, 0].set_ylabel("lost orders so far (running total)")
     axes[1, 0].legend(loc="upper left", fontsize=8, framealpha=0.9)
-    fig.suptitle(f"Stock and lost orders in {len(pools)} sample pools (replication 0): "
-                 "a shelf at zero loses orders; steeper lower lines mean more lost sales",
-                 fontsize=11)
+    fig.suptitle(f"Stock and lost orders in {len(pools)} sample pools (replication "
+                 f"{replication}): a shelf at zero loses orders; steeper lower lines mean more "
+                 "lost sales", fontsize=11)
     return fig
 
 
@@ -376,7 +381,7 @@ def plot_switchback(study, ax=None):
 def figure_names(study) -> list[str]:
     """Return the names of the figures this study can draw (file names without ``.png``)."""
     names = ["estimates", "bias_sd"]
-    if _traces(study):
+    if _traces(study)[1]:
         names.append("stock")
     if any(len(p) for p in study.switch_profiles().values()):
         names.append("switchback")

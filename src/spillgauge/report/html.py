@@ -35,7 +35,7 @@ CAPTIONS = {
         "GTE, so it can sit below the arc when the estimates move with the GTE. Filled "
         "points are trusted, hollow ones are not; the ring marks the recommendation."),
     "stock": (
-        "Stock and lost orders in the busiest sample pools of replication 0, in the world "
+        "Stock and lost orders in the busiest sample pools of one replication, in the world "
         "where no one is treated, the world where everyone is, and one design's world. "
         "Top: stock at the end of each tick over the first days; each jump is a restock, "
         "each stretch at zero a stock-out. Bottom: lost orders so far over the horizon. "

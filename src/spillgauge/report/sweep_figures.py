@@ -2,38 +2,46 @@
 
 They draw what :meth:`SweepResult.frame <spillgauge.evaluation.sweep.SweepResult.frame>`
 holds and compute no statistics: error bars are the frame's Monte Carlo
-standard errors (the ``*_se`` columns). matplotlib is imported inside the
-functions, on the Agg backend, so importing this module stays cheap.
+standard errors (the ``*_se`` columns). Figures share the study report's size,
+resolution and palette (:mod:`spillgauge.report.figures`); matplotlib is
+imported inside the functions and drawn on the Agg canvas, without pyplot.
 """
 
 from __future__ import annotations
 
 import base64
 import html
+import os
+import tempfile
 from pathlib import Path
 
-__all__ = ["plot_sweep_metric", "plot_recommendation_grid", "save_sweep_figures",
-           "render_sweep_html", "CAUTION", "FIGURE_SIZE_INCHES"]
+from spillgauge.report.figures import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
+from spillgauge.report.html import CAUTION
 
-FIGURE_SIZE_INCHES = (7.5, 4.6)
-_DPI = 110
+__all__ = ["plot_sweep_metric", "plot_recommendation_grid", "save_sweep_figures",
+           "render_sweep_html"]
+
 _NO_DESIGN = "no design trusted"
+_GREY = "#D9D9D9"
 _METRIC_NAMES = {"bias": "bias (orders per user)", "rmse": "RMSE (orders per user)",
                  "coverage": "CI coverage of the GTE", "sd": "SD (orders per user)",
                  "power": "power", "relative_bias": "relative bias",
                  "mean_estimate": "mean estimate (orders per user)"}
-CAUTION = ("Results follow from the model's assumptions; a simulated recommendation is an input "
-           "to, not a substitute for, the team's own review of an experiment that touches real "
-           "users.")
 
 
-def _pyplot():
-    import matplotlib
+def _new_axes():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
+    width, height = FIGURE_SIZE_PX
+    fig = Figure(figsize=(width / FIGURE_DPI, height / FIGURE_DPI), dpi=FIGURE_DPI,
+                 layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig.add_subplot()
 
-    return plt
+
+def _colour(index: int) -> str:
+    return PALETTE[index % len(PALETTE)]
 
 
 def _fmt(value: object) -> str:
@@ -69,9 +77,7 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
     each other. The coverage plot has a dashed line at the nominal coverage, the
     bias plot one at zero.
     """
-    plt = _pyplot()
-    if ax is None:
-        _, ax = plt.subplots(figsize=FIGURE_SIZE_INCHES, dpi=_DPI)
+    ax = ax if ax is not None else _new_axes()
     for column in (key, metric, "label"):
         if column not in sweep_frame.columns:
             raise ValueError(f"the frame has no column {column!r}")
@@ -82,13 +88,12 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
     values = sorted(sweep_frame[key].unique())
     span = (values[-1] - values[0]) if len(values) > 1 else 1.0
     shift = 0.012 * span
-    colours = plt.get_cmap("tab10")
     for i, label in enumerate(labels):
         rows = sweep_frame[sweep_frame["label"] == label].sort_values(key)
         x = rows[key].to_numpy(dtype=float) + (i - (len(labels) - 1) / 2) * shift
         y = rows[metric].to_numpy(dtype=float)
         se = rows[f"{metric}_se"].to_numpy(dtype=float) if f"{metric}_se" in rows else None
-        colour = colours(i % 10)
+        colour = _colour(i)
         ax.errorbar(x, y, yerr=se, fmt="-", color=colour, capsize=3, linewidth=1.6,
                     label=label)
         trusted = rows["trusted"].to_numpy(dtype=bool) if "trusted" in rows else \
@@ -137,19 +142,16 @@ def plot_recommendation_grid(frame, key_x: str, key_y: str, ax=None):
         Each cell is coloured by the recommended design and labelled with it;
         grey cells are points where no design is trusted.
     """
-    plt = _pyplot()
     from matplotlib.colors import ListedColormap
     from matplotlib.patches import Patch
 
-    if ax is None:
-        _, ax = plt.subplots(figsize=FIGURE_SIZE_INCHES, dpi=_DPI)
+    ax = ax if ax is not None else _new_axes()
     xs, ys = sorted(frame[key_x].unique()), sorted(frame[key_y].unique())
     labels = list(dict.fromkeys(frame["label"])) + [_NO_DESIGN]
     chosen = {(r[key_x], r[key_y]): r["label"] for r in frame[frame["recommended"]]
               .to_dict("records")}
     codes = [[labels.index(chosen.get((x, y), _NO_DESIGN)) for x in xs] for y in ys]
-    tab = plt.get_cmap("tab10")
-    colours = [tab(i % 10) for i in range(len(labels) - 1)] + [(0.85, 0.85, 0.85, 1.0)]
+    colours = [_colour(i) for i in range(len(labels) - 1)] + [_GREY]
     ax.imshow(codes, cmap=ListedColormap(colours), vmin=-0.5, vmax=len(labels) - 0.5,
               origin="lower", aspect="auto")
     size = 9 if len(xs) <= 5 else 7
@@ -176,10 +178,9 @@ def save_sweep_figures(sweep, out: str | Path) -> list[Path]:
     """Write the sweep's figures as PNG files into ``out`` and return their paths.
 
     One swept key: ``sweep_bias.png``, ``sweep_rmse.png`` and
-    ``sweep_coverage.png``. Two keys: ``sweep_grid.png``. Every figure is
-    ``FIGURE_SIZE_INCHES`` at 110 dpi.
+    ``sweep_coverage.png``. Two keys: ``sweep_grid.png``. Every figure has the
+    study report's fixed size (``FIGURE_SIZE_PX``) and is written atomically.
     """
-    plt = _pyplot()
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     frame = sweep.frame()
@@ -190,15 +191,24 @@ def save_sweep_figures(sweep, out: str | Path) -> list[Path]:
                                                                     ax))])
     paths = []
     for name, draw in jobs:
-        fig, ax = plt.subplots(figsize=FIGURE_SIZE_INCHES, dpi=_DPI)
-        try:
-            draw(ax)
-            fig.tight_layout()
-            fig.savefig(out / name, dpi=_DPI)
-        finally:
-            plt.close(fig)
+        ax = _new_axes()
+        draw(ax)
+        _save_png(ax.figure, out / name)
         paths.append(out / name)
     return paths
+
+
+def _save_png(fig, path: Path) -> None:
+    """Write a figure as PNG atomically: a temporary file in the same folder, then a rename."""
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            fig.savefig(stream, format="png", dpi=FIGURE_DPI)
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
 
 
 def _table(frame, keys: list[str]) -> str:
