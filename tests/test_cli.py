@@ -49,6 +49,11 @@ def _run(*args):
     (["frobnicate"], "invalid choice"),
     (["truth", "no/such/file.toml"], "scenario must be an existing file"),
     (["truth", "{tiny}", "--reps", "x"], "invalid int value"),
+    (["sweep", "{tiny}", "--vary", "pools.stock_cover=1:2"], "--vary must be"),
+    (["sweep", "{tiny}", "--vary", "pools.no_such_key=1:2:3"], "numeric scenario key"),
+    (["sweep", "{tiny}"], "--vary"),
+    (["report", "{tiny}"], "not a results folder"),
+    (["run", "{tiny}.missing"], "scenario must be an existing file"),
 ])
 def test_errors_are_one_line_and_exit_2(args, needle, tiny):
     result = _run(*[a.format(tiny=tiny) for a in args])
@@ -104,3 +109,23 @@ def test_other_study_folder_is_refused(tiny, tmp_path, capsys):
     assert main(["run", str(tiny), "--out", str(out), "--workers", "1", "--quiet"]) == 0
     assert main(["run", str(tiny), "--out", str(out), "--seed", "99", "--quiet"]) == 2
     assert "not scenario 'tiny' with seed 99" in capsys.readouterr().err
+
+
+def test_sweep_writes_table_plots_and_answer(tiny, tmp_path, capsys):
+    out = tmp_path / "sweep"
+    assert main(["sweep", str(tiny), "--vary", "pools.stock_cover=1.0,3.0", "--reps", "3",
+                 "--workers", "1", "--out", str(out), "--quiet"]) == 0
+    printed = capsys.readouterr().out
+    assert "pools.stock_cover" in printed
+    for name in ("sweep.csv", "sweep.json", "sweep.html", "sweep_bias.png"):
+        assert (out / name).stat().st_size > 0
+    rows = (out / "sweep.csv").read_text().strip().splitlines()
+    assert len(rows) == 1 + 2 * 3
+
+
+def test_new_writes_a_scenario_that_checks(tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    assert main(["new", "harbour"]) == 0
+    assert main(["check", "harbour.toml"]) == 0
+    assert "scenario harbour: valid" in capsys.readouterr().out
+    assert main(["new", "harbour"]) == 2

@@ -30,6 +30,9 @@ _EXPORTS = {
     "parse_scenario": "spillgauge.scenario",
     "run_study": "spillgauge.evaluation.study",
     "run_truth": "spillgauge.evaluation.study",
+    "run_sweep": "spillgauge.evaluation.sweep",
+    "parse_vary": "spillgauge.evaluation.sweep",
+    "SweepResult": "spillgauge.evaluation.sweep",
     "simulate_worlds": "spillgauge.model.world",
 }
 

@@ -170,6 +170,36 @@ def _cmd_new(args) -> int:
     return 0
 
 
+def _cmd_sweep(args) -> int:
+    from spillgauge.evaluation.store import write_atomic
+    from spillgauge.evaluation.sweep import parse_vary, run_sweep, write_sweep
+    from spillgauge.report.sweep_figures import render_sweep_html, save_sweep_figures
+
+    scenario = _load(args.scenario)
+    axes = [parse_vary(text) for text in args.vary]
+    if len(axes) > 2:
+        raise ScenarioError("--vary", "given once (curves) or twice (a grid)", len(axes))
+    if len({a.key for a in axes}) != len(axes):
+        raise ScenarioError("--vary", "two different keys", " and ".join(a.key for a in axes))
+    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-sweep"
+    bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet)
+    try:
+        sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
+                          workers=_workers(args), scheduler=args.scheduler, out=out,
+                          resume=args.resume, progress=bar)
+    except KeyboardInterrupt:
+        sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
+                         "run the same command with --resume to continue\n")
+        return 130
+    written = [p.name for p in write_sweep(sweep, out)]
+    figures = save_sweep_figures(sweep, out)
+    write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
+    written += [p.name for p in figures] + ["sweep.html"]
+    print(sweep.answer())
+    print(f"\nresults: {out}/ ({', '.join(written)})")
+    return 0
+
+
 def _cmd_list(args) -> int:
     from spillgauge.scenario import bundled_scenarios, load_scenario
 
@@ -218,6 +248,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--resume", action="store_true",
                    help="continue an interrupted run from the replications saved in DIR")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("sweep", help="run the study along one or two scenario keys",
+                       description="Run the study at each value of one numeric scenario key "
+                       "(curves) or on a grid of two, and say where each design can be trusted "
+                       "and which is recommended. Writes sweep.csv, sweep.json, plots and "
+                       "sweep.html. Every point uses the same seed.")
+    _add_common(p)
+    _add_compute(p)
+    p.add_argument("--vary", action="append", required=True, metavar="KEY=START:STOP:N",
+                   help="a dotted numeric key and its values, e.g. pools.stock_cover=0.8:2:7, "
+                   "effect.peer_lift=0,0.2,0.5 or design.<label>.block_hours=6:48:4; "
+                   "give it twice for a grid")
+    p.add_argument("--out", metavar="DIR",
+                   help="results folder (default results/<scenario name>-sweep)")
+    p.add_argument("--resume", action="store_true",
+                   help="continue an interrupted sweep from what DIR holds")
+    p.set_defaults(func=_cmd_sweep)
 
     p = sub.add_parser("report", help="re-render the reports of a results folder",
                        description="Rebuild summary.txt, summary.md, the plots and "

@@ -20,6 +20,12 @@ _EXPORTS = {
     "retrodesign": "spillgauge.evaluation.metrics",
     "run_study": "spillgauge.evaluation.study",
     "run_truth": "spillgauge.evaluation.study",
+    "SweepAxis": "spillgauge.evaluation.sweep",
+    "SweepResult": "spillgauge.evaluation.sweep",
+    "parse_vary": "spillgauge.evaluation.sweep",
+    "run_sweep": "spillgauge.evaluation.sweep",
+    "with_value": "spillgauge.evaluation.sweep",
+    "write_sweep": "spillgauge.evaluation.sweep",
 }
 
 __all__ = sorted(_EXPORTS)

@@ -18,7 +18,8 @@ from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec
 from spillgauge.schedule import AssignmentSchedule
 
-__all__ = ["draw_design_schedule", "estimate_design", "estimator_name", "describe_unit"]
+__all__ = ["draw_design_schedule", "estimate_design", "estimator_name", "describe_unit",
+           "prepare_market"]
 
 
 def _cluster_labels(market: Market, spec: DesignSpec) -> np.ndarray:
@@ -32,6 +33,19 @@ def _exposure_units(market: Market, spec: DesignSpec):
         labels = _cluster_labels(market, spec)
         cache[key] = closed_neighbourhood_units(market.adjacency, labels, int(labels.max()) + 1)
     return cache[key]
+
+
+def prepare_market(market: Market, designs) -> None:
+    """Build the clusters (and exposure incidences) the designs need, once, before any worker.
+
+    Worker processes forked afterwards inherit them instead of each running
+    community detection again.
+    """
+    for spec in designs:
+        if spec.kind == "cluster":
+            _cluster_labels(market, spec)
+            if spec.exposure == "neighbourhood":
+                _exposure_units(market, spec)
 
 
 def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Generator

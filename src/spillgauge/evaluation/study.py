@@ -240,8 +240,11 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     if folder is not None:
         done = {r.replication: r for r in folder.open(resume=resume) if r.replication < reps}
     from spillgauge.evaluation.market_summary import summarise_market
+    from spillgauge.evaluation.plan import prepare_market
 
-    market_summary = summarise_market(build_market(scenario, seed))
+    market = build_market(scenario, seed)
+    prepare_market(market, scenario.designs)
+    market_summary = summarise_market(market)
     todo = [r for r in range(reps) if r not in done]
     total = reps
     if progress:

@@ -296,9 +296,11 @@ def plot_stock(study, fig=None):
     calendar = study.scenario.calendar
     shown_days = min(calendar.days, STOCK_DAYS)
     pools = traces["pools"]
+    is_any_lost = False
     for col, (world, title) in enumerate(columns):
         stock = np.asarray(worlds[world]["stock"], dtype=float)
         lost = np.asarray(worlds[world]["lost"], dtype=float)
+        is_any_lost = is_any_lost or bool(lost.any())
         days = np.arange(1, stock.shape[1] + 1) * calendar.tick_hours / 24.0  # tick ends
         shown = days <= shown_days
         for k, pool in enumerate(pools):
@@ -310,12 +312,19 @@ def plot_stock(study, fig=None):
         axes[0, col].set_title(title, fontsize=10)
         axes[0, col].set_xlim(0, shown_days)
         axes[1, col].set_xlim(0, calendar.days)
-        axes[0, col].set_xlabel(f"day (first {shown_days} of {calendar.days})", fontsize=9)
+        axes[0, col].set_xlabel(f"day (first {shown_days} of {calendar.days})"
+                                if shown_days < calendar.days else "day of the horizon",
+                                fontsize=9)
         axes[1, col].set_xlabel("day of the horizon", fontsize=9)
         for row in (0, 1):
             axes[row, col].grid(color="#EEEEEE")
     axes[0, 0].set_ylim(bottom=0)
     axes[1, 0].set_ylim(bottom=0)
+    if not is_any_lost:
+        axes[1, 0].set_ylim(0, 1)
+        for ax in axes[1]:
+            ax.text(0.5, 0.5, "no order lost in these pools", transform=ax.transAxes,
+                    ha="center", color="#555555")
     axes[0, 0].set_ylabel("stock on the shelf (units)")
     axes[1, 0].set_ylabel("lost orders so far (running total)")
     axes[1, 0].legend(loc="upper left", fontsize=8, framealpha=0.9)
@@ -371,8 +380,8 @@ def plot_switchback(study, ax=None):
                        label=f"{label}: end of burn-in")
     ax.set_xlabel("hours since a switch (start of a block whose arm changed)")
     ax.set_ylabel(f"treated - control fulfilled orders\nper user per {unit}")
-    ax.set_title("Effect by hours since a switch: a slow start points to carryover, a fall "
-                 "late in the block to stock running out", fontsize=11)
+    ax.set_title("Effect by hours since a switch: carryover shows in the first hours, on top "
+                 "of the daily demand rhythm", fontsize=11)
     ax.legend(fontsize=9, framealpha=0.9)
     ax.grid(color="#EEEEEE")
     return ax

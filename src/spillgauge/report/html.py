@@ -45,11 +45,11 @@ CAPTIONS = {
     "switchback": (
         "The effect by hours since a switch, for each switchback design: treated minus "
         "control fulfilled orders per user and tick, over blocks whose arm changed, "
-        "averaged over blocks and replications. Without carryover or stock-outs the line "
-        "would follow only the daily demand rhythm. A slow rise in the first hours is "
-        "carryover from the previous arm (what a burn-in, the dotted line, leaves out); a "
-        "fall later in the block is the treated units' stock running out first. The "
-        "dashed line is the GTE spread evenly over the horizon's ticks."),
+        "averaged over blocks and replications. Blocks start at the same clock hours, so "
+        "the daily demand rhythm shapes every line. On top of it, a slow rise in the first "
+        "hours is carryover from the previous arm (what a burn-in, the dotted line, leaves "
+        "out), and a fall late in the block is the treated units' stock running out first. "
+        "The dashed line is the GTE spread evenly over the horizon's ticks."),
 }
 _TITLES = {"estimates": "Drift: estimates against the true effect",
            "bias_sd": "Bias against SD", "stock": "Stock and lost orders in three worlds",
