@@ -159,7 +159,6 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     """
     method = "switchback_difference"
     confidence = _check_inputs(panel, schedule, confidence, burn_in_ticks, method)
-    n_periods = schedule.n_periods
     fulfilled = np.asarray(panel.pool_fulfilled, dtype=float)
     if schedule.unit_kind == "market":
         unit_totals = fulfilled.sum(axis=0, keepdims=True)

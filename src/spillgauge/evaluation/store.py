@@ -16,27 +16,45 @@ from spillgauge.evaluation.replication import (
 )
 from spillgauge.scenario import Scenario, scenario_to_dict
 
-__all__ = ["ResultsFolder", "write_atomic", "load_study", "dumps", "FORMAT_VERSION"]
+__all__ = ["ResultsFolder", "write_atomic", "write_atomic_with", "load_study", "dumps",
+           "FORMAT_VERSION"]
 
 FORMAT_VERSION = 1
 _STUDY = "study.json"
 _LOG = "replications.jsonl"
 
 
-def write_atomic(path: str | Path, text: str) -> None:
-    """Write a text file atomically: a temporary file in the same folder, then a rename."""
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def write_atomic_with(path: str | Path, write) -> None:
+    """Write a file atomically: ``write(stream)`` fills a temporary binary file, then a rename.
+
+    The file gets the usual permissions (0666 minus the umask), not the
+    owner-only mode of a temporary file.
+    """
     path = Path(path)
     handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
-        with os.fdopen(handle, "w", encoding="utf-8") as stream:
-            stream.write(text)
+        with os.fdopen(handle, "wb") as stream:
+            write(stream)
             stream.flush()
             os.fsync(stream.fileno())
+        os.chmod(temporary, 0o666 & ~_umask())
         os.replace(temporary, path)
     except BaseException:
         if os.path.exists(temporary):
             os.unlink(temporary)
         raise
+
+
+def write_atomic(path: str | Path, text: str) -> None:
+    """Write a text file (UTF-8) atomically: a temporary file in the same folder, then a rename."""
+    data = text.encode("utf-8")
+    write_atomic_with(path, lambda stream: stream.write(data))
 
 
 def _json_default(value):

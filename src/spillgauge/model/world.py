@@ -209,7 +209,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
-    n_worlds, n_pools, n_ticks = len(schedules), population.n_pools, calendar.n_ticks
+    n_worlds, n_pools = len(schedules), population.n_pools
     accepted = np.stack([_accepted(market, events, s) for s in schedules]) if n_worlds else \
         np.zeros((0, events.n_events), dtype=bool)
     served = np.zeros_like(accepted)

@@ -16,8 +16,6 @@ deficiencies; line styles and marker fills carry the rest of the meaning.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -406,18 +404,10 @@ def _draw(study, name: str):
 
 
 def _save_png(fig, path: Path) -> None:
-    """Write a figure as PNG atomically: a temporary file in the same folder, then a rename."""
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            fig.savefig(stream, format="png", dpi=FIGURE_DPI)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
+    """Write a figure as PNG atomically (a temporary file in the same folder, then a rename)."""
+    from spillgauge.evaluation.store import write_atomic_with
+
+    write_atomic_with(path, lambda stream: fig.savefig(stream, format="png", dpi=FIGURE_DPI))
 
 
 def save_figures(study, out_dir: str | Path) -> list[Path]:

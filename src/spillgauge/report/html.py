@@ -75,7 +75,8 @@ table{border-collapse:collapse;margin:.4rem 0 1rem;font-size:.9rem}
 th,td{border:1px solid #d6d6d6;padding:.25rem .55rem;text-align:right;vertical-align:top}
 th{background:#f2f2f2}td.text,th.text{text-align:left}tbody tr:nth-child(even){background:#fafafa}
 .scroll{overflow-x:auto}.se{color:#777;font-size:.8em}
-.trusted{color:#005a8c;font-weight:600}.untrusted{color:#b34700;font-weight:600}
+.trusted,.untrusted{font-weight:600;white-space:nowrap}.trusted{color:#005a8c}
+.untrusted{color:#b34700}
 tr.chosen td{background:#e6f1f8}.settings{display:flex;flex-wrap:wrap;gap:0 1.6rem}
 .verdict{font-size:1.15rem;font-weight:600}.box{border-left:4px solid #0072B2;
 background:#f4f8fb;padding:.6rem 1rem}.box.warn{border-color:#D55E00;background:#fcf3ee}
@@ -204,10 +205,11 @@ def _designs(study, summary: dict) -> str:
                      *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS), mark])
         classes.append("chosen" if d["label"] == chosen else "")
     alpha = study.scenario.study.alpha
-    note = (f"<p>All values are in fulfilled orders per user over the horizon, over "
-            f"{summary['reps']:,} replications; small grey numbers are Monte Carlo standard "
-            f"errors. A design is trusted when its {1 - alpha:.0%} confidence interval covers "
-            "the GTE nearly as often as promised and its bias is small against its noise. "
+    note = (f"<p>Over {summary['reps']:,} replications. Estimates, bias, SD, RMSE and CI "
+            "width are in fulfilled orders per user over the horizon; small grey numbers are "
+            f"Monte Carlo standard errors. A design is trusted when its {1 - alpha:.0%} "
+            "confidence interval covers the GTE nearly as often as promised and its bias is "
+            "small against its noise. "
             "Type S is the share of significant estimates with the wrong sign, Type M their "
             "mean exaggeration of the effect.</p>")
     return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)

@@ -11,8 +11,6 @@ from __future__ import annotations
 
 import base64
 import html
-import os
-import tempfile
 from pathlib import Path
 
 from spillgauge.report.figures import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
@@ -199,16 +197,10 @@ def save_sweep_figures(sweep, out: str | Path) -> list[Path]:
 
 
 def _save_png(fig, path: Path) -> None:
-    """Write a figure as PNG atomically: a temporary file in the same folder, then a rename."""
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            fig.savefig(stream, format="png", dpi=FIGURE_DPI)
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
+    """Write a figure as PNG atomically (a temporary file in the same folder, then a rename)."""
+    from spillgauge.evaluation.store import write_atomic_with
+
+    write_atomic_with(path, lambda stream: fig.savefig(stream, format="png", dpi=FIGURE_DPI))
 
 
 def _table(frame, keys: list[str]) -> str:
