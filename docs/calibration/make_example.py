@@ -116,7 +116,7 @@ def _write_csv(path: Path, header: tuple[str, ...], rows) -> None:
 def _friendships(circle: np.ndarray, *, rng: np.random.Generator) -> np.ndarray:
     """Return unique undirected edges (i < j): most join two members of one circle."""
     n_users = circle.size
-    n_draws = int(round(n_users * MEAN_DEGREE / 2))
+    n_draws = round(n_users * MEAN_DEGREE / 2)
     members = [np.flatnonzero(circle == c) for c in range(N_CIRCLES)]
     sources = rng.integers(0, n_users, size=n_draws)
     inside = rng.random(n_draws) < WITHIN_CIRCLE

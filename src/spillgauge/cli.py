@@ -204,8 +204,8 @@ def _cmd_list(args) -> int:
 
     for path in bundled_scenarios():
         scenario = load_scenario(path)
-        summary = scenario.description.strip().splitlines()[0] if scenario.description else ""
-        print(f"{scenario.name:<22} {summary}")
+        summary = " ".join(scenario.description.split())
+        print(f"{scenario.name:<14} {summary}")
     return 0
 
 

@@ -409,7 +409,7 @@ def _resolve_file(value: str, key: str, base_dir: Path | None) -> str:
         path = base_dir / path
     if not path.is_file():
         raise ScenarioError(key, "a readable file", value)
-    return str(path)
+    return str(path.resolve())
 
 
 def parse_scenario(data: dict, *, base_dir: str | Path | None = None,

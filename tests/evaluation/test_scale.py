@@ -97,3 +97,22 @@ def test_memory_estimate_refuses_a_run_that_cannot_fit():
     with pytest.raises(MemoryLimitError, match=r"needs about .* GiB .* fewer --workers"):
         check_memory(big, workers=4, available=2**30)
     assert check_memory(parse_scenario(TINY), available=2**40) > 0
+
+
+def test_resume_refuses_changed_data_files(tmp_path):
+    from spillgauge.errors import ResultsError
+
+    users = tmp_path / "users.csv"
+    users.write_text("user_id,pool_id,orders_per_week\n" + "".join(
+        f"u{i},p{i % 3},2\n" for i in range(60)))
+    scenario = parse_scenario({"name": "files", "users": {"file": str(users)},
+                               "calendar": {"days": 3}, "study": {"reps": 2},
+                               "design": [{"kind": "user"}]}, base_dir=tmp_path)
+    out = tmp_path / "run"
+    run_study(scenario, out=out)
+    users.write_text(users.read_text().replace("u0,p0,2", "u0,p0,9"))
+    changed = parse_scenario({"name": "files", "users": {"file": str(users)},
+                              "calendar": {"days": 3}, "study": {"reps": 2},
+                              "design": [{"kind": "user"}]}, base_dir=tmp_path)
+    with pytest.raises(ResultsError, match=r"users\.file differs"):
+        run_study(changed, out=out, resume=True)

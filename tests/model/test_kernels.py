@@ -113,3 +113,19 @@ def test_empirical_bayes_rates_by_hand():
     np.testing.assert_allclose(estimate_rates(np.array([0.0, 2.0, 4.0]), 10.0), [0.1, 0.2, 0.3])
     # No over-dispersion: everyone gets the pooled rate.
     np.testing.assert_allclose(estimate_rates(np.array([1.0, 1.0, 1.0]), 4.0), [0.25] * 3)
+
+
+def test_posterior_rate_draws_keep_the_prior_spread():
+    # Gamma-Poisson (Morris 1983): if r ~ Gamma(k, b) and x | r ~ Poisson(r T), a draw from
+    # the posterior Gamma(k + x, b + T) is again distributed as the prior, so the drawn rates
+    # have the prior's mean k/b and variance k/b^2 (posterior means would shrink it).
+    from spillgauge.model.population import draw_rates
+
+    rng = np.random.default_rng(5)
+    k, b, hours = 2.0, 400.0, 28 * 24.0
+    true = rng.gamma(k, 1 / b, size=200_000)
+    counts = rng.poisson(true * hours).astype(float)
+    drawn = draw_rates(counts, hours, rng=rng)
+    assert drawn.mean() == pytest.approx(k / b, rel=0.01)
+    assert drawn.var() == pytest.approx(k / b**2, rel=0.03)
+    assert estimate_rates(counts, hours).var() < 0.9 * drawn.var()

@@ -28,7 +28,8 @@ class ReplicationResult:
     """What one replication leaves behind: the truth, and one estimate per design.
 
     ``estimates`` maps a design label to a dict with ``estimate``, ``se``,
-    ``ci_low``, ``ci_high`` and ``n_units``. ``traces`` (first replication only)
+    ``ci_low``, ``ci_high``, ``n_units`` (units the estimator used) and
+    ``n_randomized`` (units x periods the design randomized). ``traces`` (first replication only)
     holds small arrays for the report: sample pools' stock and lost orders per
     world, and each switchback's effect by ticks since a switch.
     """
@@ -40,7 +41,8 @@ class ReplicationResult:
 
     def rows(self) -> list[dict]:
         """Return one flat record per design (for replications.csv)."""
-        return [{"replication": self.replication, "label": label, **values,
+        return [{"replication": self.replication, "label": label,
+                 **{k: v for k, v in values.items() if k != "n_randomized"},
                  "gte": self.truth.gte} for label, values in self.estimates.items()]
 
 
@@ -118,7 +120,8 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
                                      tick_hours=scenario.calendar.tick_hours)
         estimates[spec.label] = {"estimate": result.point, "se": result.standard_error,
                                  "ci_low": result.ci_low, "ci_high": result.ci_high,
-                                 "n_units": result.n_units}
+                                 "n_units": result.n_units,
+                                 "n_randomized": schedule.n_units * schedule.n_periods}
     keep = replication == 0 if keep_traces is None else keep_traces
     traces = {}
     if keep:

@@ -21,12 +21,34 @@ class MemoryLimitError(SpillgaugeError):
     """The run would need more memory than the machine has."""
 
 
+def _orders_per_week(scenario: Scenario) -> float:
+    """Mean orders per user-week: the scenario's, or the users file's own figures."""
+    users = scenario.users
+    if users.file is None:
+        return users.orders_per_week
+    from spillgauge.model.population import read_csv_columns
+
+    columns = read_csv_columns(users.file, required=("user_id", "pool_id"),
+                               optional=("orders_per_week", "history_orders"),
+                               field="users.file")
+    try:
+        if "orders_per_week" in columns:
+            return max(float(sum(map(float, columns["orders_per_week"]))) /
+                       len(columns["orders_per_week"]), 0.0)
+        if "history_orders" in columns and users.history_days > 0:
+            total = sum(map(float, columns["history_orders"]))
+            return total / len(columns["history_orders"]) / users.history_days * 7
+    except ValueError:
+        pass  # the population builder names the bad value
+    return users.orders_per_week
+
+
 def _expected_candidates(scenario: Scenario) -> float:
     users, calendar, effect = scenario.users, scenario.calendar, scenario.effect
     peak = (1 + calendar.diurnal_amplitude) * max(1.0, 1 + effect.lift) * max(
         1.0, 1 + effect.peer_lift) * (1 + 2 * calendar.daily_shock_sd)
     n_users = users.count if users.file is None else _count_lines(users.file)
-    return n_users * users.orders_per_week / 168.0 * calendar.horizon_hours * peak
+    return n_users * _orders_per_week(scenario) / 168.0 * calendar.horizon_hours * peak
 
 
 def _count_lines(path: str) -> int:

@@ -78,6 +78,22 @@ def dumps(data: object) -> str:
     return json.dumps(clean(data), default=_json_default, indent=2, allow_nan=False)
 
 
+def _data_file_digests(scenario: Scenario) -> dict:
+    """Return the SHA-256 of each data file the scenario reads, by its dotted key.
+
+    A resumed study must see the same data, not only the same paths.
+    """
+    import hashlib
+
+    digests = {}
+    for key, path in (("users.file", scenario.users.file), ("pools.file", scenario.pools.file),
+                      ("graph.file", scenario.graph.file)):
+        if path is not None:
+            with open(path, "rb") as handle:
+                digests[key] = hashlib.sha256(handle.read()).hexdigest()
+    return digests
+
+
 def _first_difference(a: object, b: object, prefix: str = "") -> str:
     """Return the dotted key of the first place where two JSON values differ."""
     if isinstance(a, dict) and isinstance(b, dict):
@@ -104,7 +120,8 @@ class ResultsFolder:
         settings = scenario_to_dict(scenario)
         settings["study"] = {k: v for k, v in settings["study"].items() if k != "reps"}
         self.fingerprint = {"format": FORMAT_VERSION, "scenario": scenario.name,
-                            "seed": int(seed), "settings": settings}
+                            "seed": int(seed), "settings": settings,
+                            "data_files": _data_file_digests(scenario)}
 
     @property
     def log_path(self) -> Path:
@@ -129,7 +146,11 @@ class ResultsFolder:
                 what = (f"scenario {saved.get('scenario')!r} with seed {saved.get('seed')}, "
                         f"not scenario {mine['scenario']!r} with seed {mine['seed']}")
             else:
-                key = _first_difference(saved.get("settings", {}), mine["settings"])
+                key = _first_difference({"settings": saved.get("settings", {}),
+                                         "data_files": saved.get("data_files", {})},
+                                        {"settings": mine["settings"],
+                                         "data_files": mine["data_files"]})
+                key = key.removeprefix("settings.")
                 what = f"scenario {mine['scenario']!r} with other settings ({key} differs)"
             raise ResultsError(f"{self.path} holds a study of {what}; choose another --out "
                                "folder or delete it")

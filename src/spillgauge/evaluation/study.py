@@ -134,8 +134,10 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
         m = design_metrics(column["estimate"], column["se"], column["ci_low"],
                            column["ci_high"], gte, alpha=alpha)
         metrics[spec.label] = m
+        randomized = np.array([row.get("n_randomized", row["n_units"]) for row in rows],
+                              dtype=float)
         candidates.append(Candidate(label=spec.label, kind=spec.kind, unit=describe_unit(spec),
-                                    n_units=float(np.nanmean(column["n_units"])), metrics=m,
+                                    n_units=float(np.nanmean(randomized)), metrics=m,
                                     params=_design_params(spec)))
     advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
     return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
@@ -175,10 +177,15 @@ def _run_replications(scenario: Scenario, seed: int, todo: list[int], *, workers
     import multiprocessing
 
     context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
-    with ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context) as pool:
+    pool = ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context)
+    try:
         futures = [pool.submit(_run_task, scenario, seed, r, designs) for r in todo]
         for future in as_completed(futures):
             finished(future.result())
+    except BaseException:
+        pool.shutdown(wait=False, cancel_futures=True)  # an interrupt stops queued work at once
+        raise
+    pool.shutdown()
 
 
 def run_truth(scenario: Scenario, *, reps: int | None = None, seed: int | None = None,

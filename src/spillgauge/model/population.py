@@ -17,7 +17,7 @@ from spillgauge.scenario import Scenario
 from spillgauge.seeding import check_rng
 
 __all__ = ["Population", "build_population", "read_csv_columns", "order_up_to_levels",
-           "estimate_rates"]
+           "estimate_rates", "draw_rates"]
 
 HOURS_PER_WEEK = 168.0
 
@@ -125,15 +125,37 @@ def estimate_rates(history: np.ndarray, hours: float) -> np.ndarray:
     >>> estimate_rates(np.array([0.0, 2.0, 4.0]), 10.0).round(4).tolist()
     [0.1, 0.2, 0.3]
     """
+    shape, rate = _gamma_prior(history, hours)
+    if shape is None:
+        return np.full_like(np.asarray(history, dtype=float), rate)
+    return (shape + history) / (rate + hours)
+
+
+def _gamma_prior(history: np.ndarray, hours: float) -> tuple[float | None, float]:
+    """Fit the Gamma prior of the rates by moments; ``(None, pooled rate)`` without dispersion."""
     history = np.asarray(history, dtype=float)
     mean, variance = history.mean(), history.var(ddof=1) if history.size > 1 else 0.0
-    if mean <= 0:
-        return np.zeros_like(history)
-    if variance <= mean:
-        return np.full_like(history, mean / hours)
+    if mean <= 0 or variance <= mean:
+        return None, max(mean, 0.0) / hours
     shape = mean * mean / (variance - mean)
-    rate = shape * hours / mean
-    return (shape + history) / (rate + hours)
+    return shape, shape * hours / mean
+
+
+def draw_rates(history: np.ndarray, hours: float, *, rng: np.random.Generator) -> np.ndarray:
+    """Draw each user's orders per hour from its Gamma posterior given pre-period counts.
+
+    Same model as :func:`estimate_rates`, but each rate is a draw from
+    ``Gamma(k + x_i, rate b + hours)`` rather than its mean, so the simulated
+    market keeps the full spread of rates (posterior means shrink it by the
+    factor ``(v - m) / v``) and the pre-period stays as correlated with the
+    experiment as it really is.
+    """
+    check_rng(rng)
+    history = np.asarray(history, dtype=float)
+    shape, rate = _gamma_prior(history, hours)
+    if shape is None:
+        return np.full_like(history, rate)
+    return rng.gamma(shape + history, 1.0 / (rate + hours))
 
 
 def order_up_to_levels(rate_per_hour: np.ndarray, pool_of_user: np.ndarray, n_pools: int,
@@ -204,7 +226,7 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
                 raise ScenarioError("users.history_days", "the length of the pre-period "
                                     "(>= 1) when rates are estimated from history_orders",
                                     users.history_days)
-            rate = estimate_rates(history, users.history_days * 24.0)
+            rate = draw_rates(history, users.history_days * 24.0, rng=rng)
     else:
         if pool_ids is None:
             pool_ids = np.arange(pools.count)

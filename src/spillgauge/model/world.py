@@ -50,6 +50,9 @@ class CandidateEvents:
         unexposed user.
     uniform : ndarray of float, shape (n_events,)
         The thinning uniform of each event.
+    user_day, pool_tick : ndarray of int, shape (n_events,)
+        Flat indexes ``user * n_days + day`` and ``pool * n_ticks + tick``, computed
+        once for every world's tallies.
     segment_starts : ndarray of int, shape (n_segments + 1,)
         Index of the first event of each segment, then ``n_events``.
     """
@@ -64,6 +67,8 @@ class CandidateEvents:
     segment_starts: np.ndarray
     substitute_uniform: np.ndarray | None
     substitute_pool: np.ndarray | None
+    user_day: np.ndarray
+    pool_tick: np.ndarray
 
     @property
     def n_events(self) -> int:
@@ -120,7 +125,9 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
                            base_accept=base_accept, uniform=uniform,
                            segment_starts=segment_starts, substitute_uniform=substitute_uniform,
-                           substitute_pool=substitute_pool)
+                           substitute_pool=substitute_pool,
+                           user_day=user * calendar.days + day,
+                           pool_tick=pool * calendar.n_ticks + tick)
 
 
 def _accepted(market: Market, events: CandidateEvents, schedule: AssignmentSchedule
@@ -280,19 +287,21 @@ def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
     n_days = calendar.days
 
     def per_user_day(mask: np.ndarray) -> np.ndarray:
-        index = events.user[mask] * n_days + events.day[mask]
-        return np.bincount(index, minlength=n_users * n_days).reshape(n_users, n_days).astype(
-            np.int32)
+        counts = np.bincount(events.user_day[mask], minlength=n_users * n_days)
+        return counts.astype(np.int32).reshape(n_users, n_days)
 
-    def per_pool_tick(mask: np.ndarray, pool: np.ndarray) -> np.ndarray:
-        index = pool[mask] * n_ticks + events.tick[mask]
+    def per_pool_tick(index: np.ndarray) -> np.ndarray:
         return np.bincount(index, minlength=n_pools * n_ticks).reshape(n_pools, n_ticks)
 
-    pool_fulfilled = per_pool_tick(fulfilled, events.pool)
-    pool_demanded = per_pool_tick(accepted, events.pool)
-    sold = per_pool_tick(fulfilled & ~substituted, events.pool)
-    if events.substitute_pool is not None and substituted.any():
-        sold += per_pool_tick(substituted, events.substitute_pool)
+    pool_fulfilled = per_pool_tick(events.pool_tick[fulfilled])
+    pool_demanded = per_pool_tick(events.pool_tick[accepted])
+    if substituted.any():
+        served_home = fulfilled & ~substituted
+        sold = per_pool_tick(events.pool_tick[served_home])
+        sold += per_pool_tick(events.substitute_pool[substituted] * n_ticks
+                              + events.tick[substituted])
+    else:
+        sold = pool_fulfilled
     stock = np.empty((n_pools, n_ticks), dtype=np.int64)
     for s in range(bounds.size - 1):
         a, b = bounds[s], bounds[s + 1]
