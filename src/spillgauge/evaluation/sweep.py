@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from spillgauge.errors import ScenarioError
+from spillgauge.evaluation._sweep_text import answer_one_axis, answer_two_axes, split_key
 from spillgauge.evaluation.plan import describe_unit, estimator_name
 from spillgauge.evaluation.recommend import is_trusted
 from spillgauge.evaluation.store import dumps, write_atomic
@@ -82,7 +83,7 @@ class SweepAxis:
 
 def _field_type(key: str) -> type | None:
     """Return int or float for a numeric key's field (by name alone), else None."""
-    parts = _split_key(key)
+    parts = split_key(key)
     if len(parts) == 2 and parts[0] in _SECTIONS and key not in _NOT_SWEPT:
         hint = typing.get_type_hints(_SECTIONS[parts[0]]).get(parts[1])
     elif len(parts) == 3 and parts[1] and parts[2] in _DESIGN_FIELDS:
@@ -90,16 +91,6 @@ def _field_type(key: str) -> type | None:
     else:
         return None
     return hint if hint in (int, float) else None
-
-
-def _split_key(key: str) -> list[str]:
-    """Split ``section.key`` in two, ``design.<label>.key`` in three (labels may hold dots)."""
-    if not isinstance(key, str):
-        return []
-    if key.startswith("design."):
-        label, _, name = key[len("design."):].rpartition(".")
-        return ["design", label, name]
-    return key.split(".")
 
 
 def valid_keys(scenario: Scenario | None = None) -> list[str]:
@@ -237,7 +228,7 @@ def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
     >>> t.design("switchback-24h").block_hours
     12
     """
-    parts = _split_key(key)
+    parts = split_key(key)
     known = valid_keys(scenario)
     if parts and parts[0] == "design":
         labels = [d.label for d in scenario.designs]
@@ -340,127 +331,8 @@ class SweepResult:
         """
         rows = self.frame().to_dict("records")
         if len(self.axes) == 1:
-            return _answer_one_axis(rows, self.axes[0].key)
-        return _answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
-
-
-def _fmt(value: object) -> str:
-    return str(value) if isinstance(value, (int, np.integer)) else f"{float(value):g}"
-
-
-def _labels(rows: list[dict]) -> list[str]:
-    return list(dict.fromkeys(row["label"] for row in rows))
-
-
-def _recommended_at(rows: list[dict], where: dict) -> str | None:
-    return next((row["label"] for row in rows if row["recommended"]
-                 and all(row[k] == v for k, v in where.items())), None)
-
-
-def _why_not(row: dict, key: str) -> str:
-    """Say in numbers why a design is not trusted at one value."""
-    needed = 1 - row["alpha"] - max(0.05, 2 * row["coverage_se"])  # as is_trusted
-    at = f"at {_fmt(row[key])}"
-    if not all(map(math.isfinite, (row["coverage"], row["bias"], row["sd"]))):
-        return f"it gave no usable estimates {at}"
-    if row["coverage"] < needed or not row["sd"] > 0:
-        return f"its CI covers the GTE in {row['coverage']:.0%} of replications {at}"
-    return f"its bias is {row['bias']:+.3g}, {abs(row['bias']) / row['sd']:.1f} times its SD, {at}"
-
-
-def _trust_clause(design_rows: list[dict], key: str) -> str:
-    first = design_rows[0]
-    units = {row["unit"] for row in design_rows}
-    name = f"the {first['label']} design" + (f" (randomized by {first['unit']})"
-                                             if len(units) == 1 else "")
-    values = [_fmt(row[key]) for row in design_rows]
-    trusted = [bool(row["trusted"]) for row in design_rows]
-    span = f"{key} = {values[0]}" if len(values) == 1 else \
-        f"{key} from {values[0]} to {values[-1]}"
-    if all(trusted):
-        return f"{name} is trustworthy at every {span}"
-    if not any(trusted):
-        best = max(design_rows, key=lambda r: r["coverage"] if math.isfinite(r["coverage"])
-                   else -1.0)
-        return f"{name} is not trustworthy at any {span} ({_why_not(best, key)})"
-    k = trusted.index(True)
-    if all(trusted[k:]):
-        return (f"{name} stops being trustworthy below {key} = {values[k]} "
-                f"({_why_not(design_rows[k - 1], key)})")
-    k = len(trusted) - 1 - trusted[::-1].index(True)
-    if all(trusted[:k + 1]):
-        return (f"{name} stops being trustworthy above {key} = {values[k]} "
-                f"({_why_not(design_rows[k + 1], key)})")
-    shown = [v for v, t in zip(values, trusted) if t]
-    return f"{name} is trustworthy only at {key} = " + ", ".join(shown)
-
-
-def _runs(labels: list[str | None], values: list[str]) -> list[tuple[str | None, str, str]]:
-    runs: list[list] = []
-    for label, value in zip(labels, values):
-        if runs and runs[-1][0] == label:
-            runs[-1][2] = value
-        else:
-            runs.append([label, value, value])
-    return [tuple(run) for run in runs]
-
-
-def _answer_one_axis(rows: list[dict], key: str) -> str:
-    rows = sorted(rows, key=lambda r: r[key])
-    values = list(dict.fromkeys(row[key] for row in rows))
-    shown = [_fmt(v) for v in values]
-    clauses = [_trust_clause([r for r in rows if r["label"] == label], key)
-               for label in _labels(rows)]
-    first = "; ".join(clauses)
-    sentences = [first[0].upper() + first[1:] + "."]
-    chosen = [_recommended_at(rows, {key: v}) for v in values]
-    runs = _runs(chosen, shown)
-    if len(runs) == 1 and len(values) > 1:
-        label = runs[0][0]
-        sentences.append(f"The {label} design is recommended at every value." if label
-                         else "No design is trustworthy at any value.")
-    else:
-        parts = []
-        for label, lo, hi in runs:
-            where = f"{key} = {lo}" if lo == hi else f"{key} from {lo} to {hi}"
-            parts.append(f"{label or 'no design (none is trusted)'} at {where}")
-        sentences.append("Recommended: " + ", then ".join(parts) + ".")
-    parts = _split_key(key)
-    if parts[0] == "design":
-        own = [r for r in rows if r["label"] == parts[1] and math.isfinite(r["rmse"])]
-        if own:
-            best = min(own, key=lambda r: r["rmse"])
-            sentences.append(f"The RMSE of {parts[1]} is lowest at {parts[2]} = "
-                             f"{_fmt(best[key])} ({best['rmse']:.3g} ± {best['rmse_se']:.2g}).")
-    return " ".join(sentences)
-
-
-def _answer_two_axes(rows: list[dict], key_x: str, key_y: str) -> str:
-    grid = list(dict.fromkeys((row[key_x], row[key_y]) for row in rows))
-    xs, ys = sorted({x for x, _ in grid}), sorted({y for _, y in grid})
-    chosen = {(x, y): _recommended_at(rows, {key_x: x, key_y: y}) for x, y in grid}
-    counts = [(label, sum(c == label for c in chosen.values()))
-              for label in [*_labels(rows), None]]
-    tally = ", ".join(f"{label or 'no design (none trusted)'} at {n}" for label, n in counts if n)
-    sentences = [f"Over the {len(xs)} x {len(ys)} grid of {key_x} and {key_y}, the recommended "
-                 f"design is {tally} of {len(grid)} points."]
-    # Describe along the longer axis, one clause per value of the shorter one.
-    outer, inner = (key_y, key_x) if len(ys) <= len(xs) else (key_x, key_y)
-    outer_values, inner_values = (ys, xs) if outer == key_y else (xs, ys)
-    clauses = []
-    for o in outer_values:
-        labels = [chosen[(i, o) if outer == key_y else (o, i)] for i in inner_values]
-        runs = _runs(labels, [_fmt(v) for v in inner_values])
-        if len(runs) == 1:
-            parts = [f"{runs[0][0] or 'no design'} at every {inner}"]
-        else:
-            parts = [f"{label or 'no design'} at {lo if lo == hi else f'{lo} to {hi}'}"
-                     for label, lo, hi in runs]
-            parts[0] = parts[0].replace(" at ", f" at {inner} ", 1)
-        clauses.append(f"at {outer} = {_fmt(o)}, " + ", ".join(parts))
-    text = "; ".join(clauses)
-    sentences.append(text[0].upper() + text[1:] + ".")
-    return " ".join(sentences)
+            return answer_one_axis(rows, self.axes[0].key)
+        return answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
 
 
 def _grid(scenario: Scenario, axes: list[SweepAxis]) -> tuple[list[dict], list[Scenario]]:
