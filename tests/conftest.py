@@ -2,10 +2,17 @@
 
 from __future__ import annotations
 
+import os
+import tempfile
+
 import numpy as np
 import pytest
 
 from spillgauge.scenario import parse_scenario
+
+
+# Keep the community cache of the tests out of the user's cache folder.
+os.environ.setdefault("SPILLGAUGE_CACHE", tempfile.mkdtemp(prefix="spillgauge-test-cache-"))
 
 
 def make_scenario(**sections):

@@ -129,3 +129,21 @@ def test_posterior_rate_draws_keep_the_prior_spread():
     assert drawn.mean() == pytest.approx(k / b, rel=0.01)
     assert drawn.var() == pytest.approx(k / b**2, rel=0.03)
     assert estimate_rates(counts, hours).var() < 0.9 * drawn.var()
+
+
+def test_communities_are_cached_on_disk_and_recomputed_when_damaged(tmp_path, monkeypatch):
+    from spillgauge.model import market as market_module
+
+    monkeypatch.setenv("SPILLGAUGE_CACHE", str(tmp_path))
+    adjacency = small_world_adjacency(600, 6, 0.1, rng=np.random.default_rng(2))
+    first = market_module._cached_communities(adjacency, resolution=1.0, seed=3)
+    files = list(tmp_path.glob("communities-*.npy"))
+    assert len(files) == 1
+    again = market_module._cached_communities(adjacency, resolution=1.0, seed=3)
+    np.testing.assert_array_equal(first, again)
+    files[0].write_bytes(b"not a numpy file")
+    repaired = market_module._cached_communities(adjacency, resolution=1.0, seed=3)
+    np.testing.assert_array_equal(first, repaired)
+    other = market_module._cached_communities(adjacency, resolution=2.0, seed=3)
+    assert len(list(tmp_path.glob("communities-*.npy"))) == 2
+    assert other.max() >= first.max()

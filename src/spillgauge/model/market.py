@@ -2,8 +2,12 @@
 
 from __future__ import annotations
 
+import hashlib
+import os
+import tempfile
 from collections import OrderedDict
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 from scipy import sparse
@@ -86,7 +90,7 @@ class Market:
             if source == "pools":
                 labels = self.pool_of_user
             else:
-                communities = detect_communities(self.adjacency, resolution=resolution,
+                communities = _cached_communities(self.adjacency, resolution=resolution,
                                                   seed=self.seed % (2**32))
                 if source == "graph":
                     labels = communities
@@ -115,15 +119,65 @@ def _read_edges(market_users: Population, path: str) -> tuple[np.ndarray, np.nda
 
 
 def _market_key(scenario: Scenario, seed: int) -> tuple:
-    return (scenario.users, scenario.pools, scenario.graph, scenario.calendar, int(seed))
+    return (scenario.users, scenario.pools, scenario.graph, int(seed))
+
+
+def _cache_dir() -> Path | None:
+    """Return the folder for cached communities (``SPILLGAUGE_CACHE``, else the user cache).
+
+    ``SPILLGAUGE_CACHE=off`` disables the disk cache.
+    """
+    chosen = os.environ.get("SPILLGAUGE_CACHE")
+    if chosen == "off":
+        return None
+    if chosen:
+        return Path(chosen)
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return Path(base) / "spillgauge"
+
+
+def _cached_communities(adjacency: sparse.csr_array, *, resolution: float, seed: int
+                        ) -> np.ndarray:
+    """Louvain communities, kept on disk keyed by the graph's contents, resolution and seed.
+
+    Community detection is the slowest step of building a large market (about a
+    minute at 100,000 users); the cache lets ``check``, ``run`` and later
+    sweeps of the same graph skip it. A damaged or unreadable cache entry is
+    recomputed.
+    """
+    folder = _cache_dir()
+    digest = hashlib.sha256()
+    for part in (adjacency.indptr, adjacency.indices):
+        digest.update(np.ascontiguousarray(part, dtype=np.int64).tobytes())
+    digest.update(f"{resolution!r}/{seed}/v1".encode())
+    path = folder / f"communities-{digest.hexdigest()[:32]}.npy" if folder else None
+    if path is not None and path.is_file():
+        try:
+            labels = np.load(path, allow_pickle=False)
+            if labels.shape == (adjacency.shape[0],) and labels.dtype.kind == "i":
+                return labels
+        except (OSError, ValueError):
+            pass
+    labels = detect_communities(adjacency, resolution=resolution, seed=seed)
+    if path is not None:
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+            handle, temporary = tempfile.mkstemp(dir=folder, suffix=".npy.tmp")
+            with os.fdopen(handle, "wb") as stream:
+                np.save(stream, labels, allow_pickle=False)
+            os.replace(temporary, path)
+        except OSError:
+            pass  # a cache that cannot be written is only slower
+    return labels
 
 
 def build_market(scenario: Scenario, seed: int | None = None) -> Market:
     """Build (or fetch from the cache) the market of a scenario.
 
-    The market depends only on the ``[users]``, ``[pools]``, ``[graph]`` and
-    ``[calendar]`` sections and the seed, so a sweep over effect sizes or
-    designs reuses it. All randomness comes from the study seed's market
+    The market depends only on the ``[users]``, ``[pools]`` and ``[graph]``
+    sections and the seed, so a sweep over effect sizes, the calendar or designs
+    reuses it (in memory; graph communities are also kept on disk, see
+    ``_cached_communities``). All randomness comes from the study seed's market
     stream.
 
     Parameters
