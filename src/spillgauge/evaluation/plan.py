@@ -100,5 +100,5 @@ def describe_unit(spec: DesignSpec) -> str:
         return {"pools": "stock pool", "graph": "graph community",
                 "pools+graph": "pool with its communities"}[spec.clusters]
     where = "pool" if spec.per == "pool" else "market"
-    burn = f", first {spec.burn_in_hours} h after a switch left out" if spec.burn_in_hours else ""
+    burn = f", {spec.burn_in_hours} h burn-in after a switch" if spec.burn_in_hours else ""
     return f"{where} time block of {spec.block_hours} h{burn}"
