@@ -30,7 +30,7 @@ def main() -> None:
                         help="USERSxREPS points")
     parser.add_argument("--workers", type=int, default=2)
     args = parser.parse_args()
-    from spillgauge.scenario import find_scenario
+    from spillgauge.bundled import find_scenario
 
     base = find_scenario("tight_pantry").read_text()
     tmp = Path(tempfile.mkdtemp(prefix="spillgauge-study-"))

@@ -8,7 +8,7 @@ from pathlib import Path
 import spillgauge
 
 ROOT = Path(spillgauge.__file__).parent
-BASE = {"errors", "scenario", "schedule", "panel", "seeding"}
+BASE = {"errors", "scenario", "schedule", "panel", "seeding", "bundled"}
 ALLOWED = {
     "base": BASE,
     "model": BASE | {"model"},

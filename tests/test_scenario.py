@@ -7,9 +7,8 @@ import dataclasses
 import pytest
 
 from spillgauge.errors import ScenarioError
+from spillgauge.bundled import bundled_scenarios, find_scenario
 from spillgauge.scenario import (
-    bundled_scenarios,
-    find_scenario,
     load_scenario,
     parse_scenario,
     scenario_to_dict,

@@ -53,7 +53,8 @@ class _ProgressBar:
 
 
 def _load(path: str):
-    from spillgauge.scenario import find_scenario, load_scenario
+    from spillgauge.bundled import find_scenario
+    from spillgauge.scenario import load_scenario
 
     return load_scenario(find_scenario(path))
 
@@ -149,7 +150,7 @@ def _cmd_report(args) -> int:
 
 
 def _cmd_demo(args) -> int:
-    from spillgauge.scenario import DEFAULT_SCENARIO
+    from spillgauge.bundled import DEFAULT_SCENARIO
 
     args.scenario = DEFAULT_SCENARIO
     args.resume = False
@@ -157,7 +158,7 @@ def _cmd_demo(args) -> int:
 
 
 def _cmd_new(args) -> int:
-    from spillgauge.scenario import new_scenario_text
+    from spillgauge.bundled import new_scenario_text
 
     name = Path(args.name).stem
     path = Path(args.name if args.name.endswith(".toml") else f"{args.name}.toml")
@@ -200,7 +201,8 @@ def _cmd_sweep(args) -> int:
 
 
 def _cmd_list(args) -> int:
-    from spillgauge.scenario import bundled_scenarios, load_scenario
+    from spillgauge.bundled import bundled_scenarios
+    from spillgauge.scenario import load_scenario
 
     for path in bundled_scenarios():
         scenario = load_scenario(path)

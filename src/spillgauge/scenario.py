@@ -34,14 +34,7 @@ __all__ = [
     "parse_scenario",
     "scenario_to_dict",
     "design_to_dict",
-    "scenarios_dir",
-    "bundled_scenarios",
-    "find_scenario",
-    "new_scenario_text",
-    "DEFAULT_SCENARIO",
 ]
-
-DEFAULT_SCENARIO = "tight_pantry"
 
 DESIGN_KINDS = ("user", "cluster", "switchback")
 _STOCKOUT_RULES = ("lost", "substitute")
@@ -539,45 +532,3 @@ def design_to_dict(spec: DesignSpec) -> dict:
 
 _KEY_ORDER = [f.name for f in dataclasses.fields(DesignSpec)]
 
-
-def scenarios_dir() -> Path:
-    """Return the folder of the bundled scenarios."""
-    return Path(__file__).parent / "scenarios"
-
-
-def bundled_scenarios() -> list[Path]:
-    """Return the bundled scenario files, sorted by name."""
-    return sorted(scenarios_dir().glob("*.toml"))
-
-
-def find_scenario(name_or_path: str | Path) -> Path:
-    """Return a scenario file: an existing path, or the bundled scenario of that name.
-
-    Raises
-    ------
-    ScenarioError
-        When it is neither (the message lists the bundled names).
-    """
-    path = Path(name_or_path)
-    if path.is_file():
-        return path
-    bundled = scenarios_dir() / f"{path.name}.toml"
-    if path.suffix == "" and bundled.is_file():
-        return bundled
-    names = ", ".join(p.stem for p in bundled_scenarios())
-    raise ScenarioError("scenario", f"an existing file or a bundled scenario ({names})",
-                        str(name_or_path))
-
-
-def new_scenario_text(name: str) -> str:
-    """Return a commented scenario file to start from, named ``name``.
-
-    Raises
-    ------
-    ScenarioError
-        When the name has characters other than letters, digits, '-', '_' and '.'.
-    """
-    if not name or not all(c.isalnum() or c in "-_." for c in name):
-        raise ScenarioError("name", "letters, digits, '-', '_' or '.'", name)
-    template = (scenarios_dir() / "_template.toml.txt").read_text(encoding="utf-8")
-    return template.replace("{name}", name)

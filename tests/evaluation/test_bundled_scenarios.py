@@ -5,7 +5,8 @@ from __future__ import annotations
 import pytest
 
 from spillgauge.evaluation.study import run_study
-from spillgauge.scenario import find_scenario, load_scenario
+from spillgauge.bundled import find_scenario
+from spillgauge.scenario import load_scenario
 
 # Expected recommendations, one per lesson (issue text; the markets are our own invention):
 # calm market -> user level (no interference: the finest unit wins; REFERENCES check 28);

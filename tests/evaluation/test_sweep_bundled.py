@@ -5,7 +5,8 @@ from __future__ import annotations
 import dataclasses
 
 from spillgauge.evaluation.sweep import parse_vary, run_sweep
-from spillgauge.scenario import find_scenario, load_scenario
+from spillgauge.bundled import find_scenario
+from spillgauge.scenario import load_scenario
 
 
 def test_user_level_bias_tracks_binding_stock_in_tight_pantry():
