@@ -36,7 +36,7 @@ __all__ = [
     "design_to_dict",
 ]
 
-DESIGN_KINDS = ("user", "cluster", "switchback")
+DESIGN_KINDS = ("user", "cluster", "switchback", "interference_test")
 _STOCKOUT_RULES = ("lost", "substitute")
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
 
@@ -207,6 +207,9 @@ class DesignSpec:
       ``"neighbourhood"``).
     - ``switchback``: ``block_hours``, ``burn_in_hours``, ``per`` (``"market"`` or
       ``"pool"``), ``share``.
+    - ``interference_test``: ``clusters``, ``resolution``. Half the clusters run a
+      user-level experiment, the other half a cluster-level one, and the two
+      estimates are compared (Saveski et al. 2017).
     """
 
     kind: str
@@ -257,6 +260,11 @@ class DesignSpec:
             elif self.estimator == "horvitz_thompson":
                 label += "-ht"
             return label
+        if self.kind == "interference_test":
+            label = f"interference-test-{self.clusters.replace('+', '-')}"
+            if self.clusters != "pools" and self.resolution != 1.0:
+                label += f"-r{self.resolution:g}"
+            return label
         label = f"switchback-{self.block_hours}h"
         if self.burn_in_hours:
             label += f"-burn{self.burn_in_hours}h"
@@ -270,6 +278,7 @@ _KIND_KEYS = {
     "cluster": {"kind", "label", "share", "randomization", "clusters", "resolution",
                 "estimator", "exposure"},
     "switchback": {"kind", "label", "share", "block_hours", "burn_in_hours", "per"},
+    "interference_test": {"kind", "label", "clusters", "resolution"},
 }
 
 
@@ -330,7 +339,12 @@ class Scenario:
                        f"{at}.block_hours",
                        f"at most half the horizon ({self.calendar.horizon_hours // 2} hours)",
                        spec.block_hours)
-            if spec.kind == "cluster" and spec.clusters != "pools" or spec.exposure != "none":
+            if spec.kind == "interference_test" and spec.clusters == "pools":
+                _check(self.users.file is not None or self.pools.file is not None
+                       or self.pools.count >= 4, "pools.count",
+                       f">= 4 for a test of interference on pools ({at})", self.pools.count)
+            if spec.kind in ("cluster", "interference_test") and spec.clusters != "pools" or \
+                    spec.exposure != "none":
                 _check(self.graph.model != "none", f"{at}.clusters",
                        "'pools' when graph.model = 'none' (graph clusters need a graph)",
                        spec.clusters if spec.exposure == "none" else spec.exposure)

@@ -42,6 +42,11 @@ class AssignmentSchedule:
         How units were drawn: ``"complete"`` (exactly ``round(share * n_units)``
         units treated per period), ``"bernoulli"`` (each unit independently) or
         ``"fixed"`` (a counterfactual world).
+    cluster_of_user : ndarray of int, shape (n_users,), optional
+        For a test of interference: each user's cluster.
+    is_cluster_arm : ndarray of bool, shape (n_clusters,), optional
+        For a test of interference: the clusters randomized whole (the others'
+        users were randomized one by one).
     exposure_units : scipy.sparse.csr_array of shape (n_users, n_units), optional
         For exposure-mapping estimators: entry ``(i, u)`` is non-zero when unit
         ``u`` holds a member of user ``i``'s closed graph neighbourhood.
@@ -63,6 +68,8 @@ class AssignmentSchedule:
     unit_kind: str = "user"
     randomization: str = "fixed"
     exposure_units: sparse.csr_array | None = None
+    cluster_of_user: np.ndarray | None = None
+    is_cluster_arm: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         unit_of_user = np.asarray(self.unit_of_user, dtype=np.int64)

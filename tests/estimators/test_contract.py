@@ -23,8 +23,10 @@ from spillgauge.schedule import AssignmentSchedule
 _PANEL_FIELDS = ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
                  "pool_demanded", "pool_lost", "pool_stock")
 _SCHEDULE_FIELDS = ("unit_of_user", "is_treated", "period_start_ticks")
+# Helpers, and the test of interference (it returns a test result, not an Estimate; see
+# test_interference.py).
 _HELPERS = {"Estimate", "exposure_probabilities", "switchback_optimal_points",
-            "switchback_exposure_probabilities"}
+            "switchback_exposure_probabilities", "interference_test", "InterferenceTest"}
 
 
 def _user_world(rng: np.random.Generator, n_users: int = 40):

@@ -16,6 +16,7 @@ from spillgauge.estimators.exposure import (
     hajek_exposure,
     horvitz_thompson_exposure,
 )
+from spillgauge.estimators.interference import InterferenceTest, interference_test
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -33,6 +34,8 @@ __all__ = [
     "horvitz_thompson_exposure",
     "hajek_exposure",
     "switchback_difference",
+    "interference_test",
+    "InterferenceTest",
     "switchback_optimal_points",
     "switchback_exposure_probabilities",
 ]

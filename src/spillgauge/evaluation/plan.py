@@ -10,8 +10,12 @@ from __future__ import annotations
 import numpy as np
 
 from spillgauge import estimators
-from spillgauge.designs import draw_cluster_schedule, draw_switchback_schedule, draw_user_schedule
-from spillgauge.estimators import Estimate
+from spillgauge.designs import (
+    draw_cluster_schedule,
+    draw_interference_schedule,
+    draw_switchback_schedule,
+    draw_user_schedule,
+)
 from spillgauge.model.graph import closed_neighbourhood_units
 from spillgauge.model.market import Market
 from spillgauge.panel import OutcomePanel
@@ -42,7 +46,7 @@ def prepare_market(market: Market, designs) -> None:
     community detection again.
     """
     for spec in designs:
-        if spec.kind == "cluster":
+        if spec.kind in ("cluster", "interference_test"):
             _cluster_labels(market, spec)
             if spec.exposure == "neighbourhood":
                 _exposure_units(market, spec)
@@ -62,6 +66,8 @@ def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Gen
                                      randomization=spec.randomization, rng=rng,
                                      exposure_units=exposure,
                                      unit_kind="pool" if spec.clusters == "pools" else "cluster")
+    if spec.kind == "interference_test":
+        return draw_interference_schedule(_cluster_labels(market, spec), n_ticks, rng=rng)
     unit_of_user = (market.pool_of_user if spec.per == "pool"
                     else np.zeros(market.n_users, dtype=np.int64))
     return draw_switchback_schedule(unit_of_user, n_ticks,
@@ -79,12 +85,18 @@ def estimator_name(spec: DesignSpec) -> str:
                 else "hajek_exposure"
         return "horvitz_thompson_cluster" if spec.estimator == "horvitz_thompson" \
             else "hajek_cluster"
+    if spec.kind == "interference_test":
+        return "interference_test"
     return "switchback_difference"
 
 
 def estimate_design(spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                    confidence: float, tick_hours: int) -> Estimate:
-    """Analyse one design's world with its estimator."""
+                    confidence: float, tick_hours: int):
+    """Analyse one design's world with its estimator.
+
+    Returns an :class:`Estimate`, or for a test of interference an
+    :class:`~spillgauge.estimators.InterferenceTest`.
+    """
     function = getattr(estimators, estimator_name(spec))
     if spec.kind == "switchback":
         return function(panel, schedule, confidence=confidence,
@@ -99,6 +111,10 @@ def describe_unit(spec: DesignSpec) -> str:
     if spec.kind == "cluster":
         return {"pools": "stock pool", "graph": "graph community",
                 "pools+graph": "pool with its communities"}[spec.clusters]
+    if spec.kind == "interference_test":
+        half = {"pools": "stock pools", "graph": "graph communities",
+                "pools+graph": "pools with their communities"}[spec.clusters]
+        return f"test of interference: half the {half} by user, half whole"
     where = "pool" if spec.per == "pool" else "market"
     burn = f", {spec.burn_in_hours} h burn-in after a switch" if spec.burn_in_hours else ""
     return f"{where} time block of {spec.block_hours} h{burn}"

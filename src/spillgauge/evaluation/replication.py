@@ -42,7 +42,7 @@ class ReplicationResult:
     def rows(self) -> list[dict]:
         """Return one flat record per design (for replications.csv)."""
         return [{"replication": self.replication, "label": label,
-                 **{k: v for k, v in values.items() if k != "n_randomized"},
+                 **{k: values[k] for k in ("estimate", "se", "ci_low", "ci_high", "n_units")},
                  "gte": self.truth.gte} for label, values in self.estimates.items()]
 
 
@@ -118,10 +118,16 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
             warnings.simplefilter("ignore", DegenerateEstimateWarning)
             result = estimate_design(spec, panel, schedule, confidence=confidence,
                                      tick_hours=scenario.calendar.tick_hours)
+        test = {}
+        if spec.kind == "interference_test":  # its GTE estimate is the cluster half's
+            test = {"delta": result.delta, "delta_se": result.delta_se,
+                    "statistic": result.statistic, "rejects": float(result.rejects),
+                    "rejects_chebyshev": float(result.rejects_chebyshev)}
+            result = result.cluster_arm
         estimates[spec.label] = {"estimate": result.point, "se": result.standard_error,
                                  "ci_low": result.ci_low, "ci_high": result.ci_high,
                                  "n_units": result.n_units,
-                                 "n_randomized": schedule.n_units * schedule.n_periods}
+                                 "n_randomized": schedule.n_units * schedule.n_periods, **test}
     keep = replication == 0 if keep_traces is None else keep_traces
     traces = {}
     if keep:

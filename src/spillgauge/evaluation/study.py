@@ -88,6 +88,32 @@ class StudyResult:
         return {label: np.nanmean(np.stack(rows), axis=0) if rows else np.array([])
                 for label, rows in out.items()}
 
+    def interference_test(self, label: str) -> dict:
+        """Summarise a test-of-interference design over the replications.
+
+        Returns the share of replications where the user half and the cluster
+        half disagree (``rejection_rate``, normal threshold; and
+        ``chebyshev_rejection_rate``, threshold 1/sqrt(alpha)), each with its
+        binomial Monte Carlo SE, and the mean difference ``delta`` (user half
+        minus cluster half, orders per user) with its Monte Carlo SE. Its metrics
+        in the design table are those of the cluster half's GTE estimate.
+        """
+        rows = [r.estimates[label] for r in self.replications]
+        statistic = np.array([row.get("statistic", np.nan) for row in rows], dtype=float)
+        usable = np.isfinite(statistic)
+        n = int(usable.sum())
+        out = {"n_reps": n}
+        for key, name in (("rejects", "rejection_rate"),
+                          ("rejects_chebyshev", "chebyshev_rejection_rate")):
+            flags = np.array([row[key] for row in rows], dtype=float)[usable]
+            rate = float(flags.mean()) if n else float("nan")
+            out[name] = rate
+            out[f"{name}_se"] = float(np.sqrt(rate * (1 - rate) / n)) if n else float("nan")
+        delta = np.array([row["delta"] for row in rows], dtype=float)[usable]
+        out["mean_delta"] = float(delta.mean()) if n else float("nan")
+        out["mean_delta_se"] = float(delta.std(ddof=1) / np.sqrt(n)) if n > 1 else float("nan")
+        return out
+
     def summary(self) -> dict:
         """Return the content of ``summary.json``."""
         from spillgauge.evaluation.plan import describe_unit, estimator_name
@@ -95,9 +121,12 @@ class StudyResult:
         designs = []
         for spec in self.scenario.designs:
             m = self.metrics[spec.label]
-            designs.append({"label": spec.label, "kind": spec.kind,
-                            "estimator": estimator_name(spec), "unit": describe_unit(spec),
-                            **_finite(m.to_dict())})
+            entry = {"label": spec.label, "kind": spec.kind,
+                     "estimator": estimator_name(spec), "unit": describe_unit(spec),
+                     **_finite(m.to_dict())}
+            if spec.kind == "interference_test":
+                entry["interference_test"] = _finite(self.interference_test(spec.label))
+            designs.append(entry)
         truth = _finite(self.truth.to_dict())
         return {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
                 "truth": truth, "designs": designs,
@@ -136,10 +165,20 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
         metrics[spec.label] = m
         randomized = np.array([row.get("n_randomized", row["n_units"]) for row in rows],
                               dtype=float)
+        if spec.kind == "interference_test":
+            continue  # a diagnostic: it is reported, never recommended as a unit
         candidates.append(Candidate(label=spec.label, kind=spec.kind, unit=describe_unit(spec),
                                     n_units=float(np.nanmean(randomized)), metrics=m,
                                     params=_design_params(spec)))
-    advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
+    if candidates:
+        advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
+    else:
+        from spillgauge.evaluation.recommend import Recommendation
+
+        advice = Recommendation(label=None, reason="The scenario has only tests of "
+                                "interference: add user, cluster or switchback designs to "
+                                "get a recommended randomization unit.",
+                                is_trustworthy=False, trusted=(), ranking=())
     return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
                        metrics=metrics, recommendation=advice, replications=results,
                        market_summary=market_summary or {})

@@ -225,6 +225,9 @@ def _recommendation(summary: dict) -> str:
         box = "box" if rec["is_trustworthy"] else "box warn"
     content = (f'<div class="{box}"><p class="verdict">{_e(verdict)}</p>'
                f"<p>{_e(rec['reason'])}</p></div>")
+    from spillgauge.report.text import interference_lines
+
+    content += "".join(f"<p>{_e(line.strip())}</p>" for line in interference_lines(summary))
     return _section("recommendation", "Recommendation", content)
 
 

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-__all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows"]
+__all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows",
+           "interference_lines"]
 
 _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
             ("mean_estimate", "estimate", "{:.3f}"), ("bias", "bias", "{:+.3f}"),
@@ -104,10 +105,30 @@ def study_text(study) -> str:
              f"true GTE {truth['gte']:.4f} orders per user"
              + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
     lines += _table(design_rows(summary))
+    lines += interference_lines(summary)
     rec = summary["recommendation"]
     lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
               rec["reason"]]
     return "\n".join(lines)
+
+
+def interference_lines(summary: dict) -> list[str]:
+    """Describe each test-of-interference design's verdict in a sentence."""
+    lines = []
+    alpha = summary.get("scenario_settings", {}).get("study", {}).get("alpha", 0.05)
+    for design in summary["designs"]:
+        test = design.get("interference_test")
+        if not test or test.get("rejection_rate") is None:
+            continue
+        rate, se = test["rejection_rate"], test["rejection_rate_se"] or 0.0
+        verdict = ("interference is present, so a user-level test of this market would be biased"
+                   if rate - 2 * se > alpha else
+                   "no sign of interference beyond the test's false-alarm rate")
+        lines.append(f"\n{design['label']}: the user-level half and the cluster-level half "
+                     f"disagree in {rate:.0%} of replications (level {alpha:.0%}; mean "
+                     f"difference {_fmt('{:+.3f}', test['mean_delta'])} orders per user): "
+                     f"{verdict}.")
+    return lines
 
 
 def study_markdown(study) -> str:
@@ -120,6 +141,7 @@ def study_markdown(study) -> str:
              f"**{truth['gte']:.4f}** fulfilled orders per user over the horizon.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
+    lines += [line.strip() for line in interference_lines(summary)]
     rec = summary["recommendation"]
     lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
               + rec["reason"], "",
