@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from spillgauge.errors import ScenarioError
@@ -64,6 +64,7 @@ def scenario_tables(draw):
 
 @settings(max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(scenario_tables())
+@example({"name": "fuzz", "design": [{"kind": []}]})  # an unhashable kind once escaped
 def test_loader_loads_or_names_a_field(data):
     try:
         scenario = parse_scenario(data)

@@ -477,7 +477,7 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
                 raise ScenarioError(f"{at}.kind", "present: one of " + ", ".join(
                     map(repr, DESIGN_KINDS)), None)
             kind = table["kind"]
-            if kind not in _KIND_KEYS:
+            if not isinstance(kind, str) or kind not in _KIND_KEYS:
                 raise ScenarioError(f"{at}.kind", "one of " + ", ".join(
                     map(repr, DESIGN_KINDS)), kind)
             built.append(_build(DesignSpec, table, at, base, allowed=_KIND_KEYS[kind], index=i))
