@@ -6,8 +6,8 @@ import dataclasses
 
 import pytest
 
-from spillgauge.errors import ScenarioError
 from spillgauge.bundled import bundled_scenarios, find_scenario
+from spillgauge.errors import ScenarioError
 from spillgauge.scenario import (
     load_scenario,
     parse_scenario,
@@ -119,3 +119,23 @@ def test_relative_files_resolve_against_the_scenario(tmp_path):
     path = tmp_path / "s.toml"
     path.write_text('name = "s"\n[users]\nfile = "data/users.csv"\n')
     assert load_scenario(path).users.file == str(tmp_path / "data" / "users.csv")
+
+
+def test_scenario_error_survives_pickling():
+    # Errors raised in worker processes cross a process boundary by pickle.
+    import pickle
+
+    err = pickle.loads(pickle.dumps(ScenarioError("pools.count", "an int >= 1", -3)))
+    assert (err.field, str(err)) == ("pools.count", "pools.count must be an int >= 1; got -3")
+
+
+def test_interference_test_needs_four_clusters():
+    from spillgauge.evaluation.study import run_study
+
+    scenario = _parse(users={"count": 12}, pools={"count": 2}, calendar={"days": 2},
+                      graph={"model": "communities", "community_count": 2, "mean_degree": 4,
+                             "within_community_share": 1.0},
+                      design=[{"kind": "interference_test", "clusters": "graph"}],
+                      study={"reps": 1})
+    with pytest.raises(ScenarioError, match=r"design\[0\]\.clusters must be a cluster source"):
+        run_study(scenario)

@@ -44,6 +44,10 @@ class ScenarioError(SpillgaugeError, ValueError):
             shown = shown[:117] + "..."
         super().__init__(f"{field} must be {expected}; got {shown}")
 
+    def __reduce__(self):
+        # Keep the three parts when the error crosses a process boundary (workers).
+        return (type(self), (self.field, self.expected, self.got))
+
 
 class ResultsError(SpillgaugeError):
     """A results folder cannot be used (it belongs to another study, or is incomplete)."""

@@ -5,7 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from spillgauge.designs import draw_cluster_schedule, draw_switchback_schedule, draw_user_schedule
+from spillgauge.designs import (
+    draw_cluster_schedule,
+    draw_switchback_schedule,
+    draw_user_schedule,
+)
 
 N_USERS, N_TICKS = 60, 48
 LABELS = np.repeat(np.arange(12), 5)

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from spillgauge.evaluation.study import run_study
 from spillgauge.bundled import find_scenario
+from spillgauge.evaluation.study import run_study
 from spillgauge.scenario import load_scenario
 
 # Expected recommendations, one per lesson (issue text; the markets are our own invention):

@@ -8,7 +8,12 @@ import re
 import pytest
 
 from spillgauge.evaluation.metrics import DesignMetrics
-from spillgauge.evaluation.recommend import Candidate, Recommendation, is_trusted, recommend
+from spillgauge.evaluation.recommend import (
+    Candidate,
+    Recommendation,
+    is_trusted,
+    recommend,
+)
 
 N_REPS = 400
 GTE = 1.07

@@ -11,7 +11,11 @@ import time
 
 import pytest
 
-from spillgauge.evaluation.resources import MemoryLimitError, check_memory, estimate_memory_bytes
+from spillgauge.evaluation.resources import (
+    MemoryLimitError,
+    check_memory,
+    estimate_memory_bytes,
+)
 from spillgauge.evaluation.study import run_study
 from spillgauge.scenario import parse_scenario
 

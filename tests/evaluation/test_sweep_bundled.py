@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import dataclasses
 
-from spillgauge.evaluation.sweep import parse_vary, run_sweep
 from spillgauge.bundled import find_scenario
+from spillgauge.evaluation.sweep import parse_vary, run_sweep
 from spillgauge.scenario import load_scenario
 
 

@@ -22,7 +22,10 @@ from spillgauge.estimators.switchback import (
     switchback_exposure_probabilities,
     switchback_optimal_points,
 )
-from spillgauge.estimators.user_level import difference_in_means, regression_adjusted_difference
+from spillgauge.estimators.user_level import (
+    difference_in_means,
+    regression_adjusted_difference,
+)
 
 __all__ = [
     "Estimate",

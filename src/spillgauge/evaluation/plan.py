@@ -16,6 +16,7 @@ from spillgauge.designs import (
     draw_switchback_schedule,
     draw_user_schedule,
 )
+from spillgauge.errors import ScenarioError
 from spillgauge.model.graph import closed_neighbourhood_units
 from spillgauge.model.market import Market
 from spillgauge.panel import OutcomePanel
@@ -47,7 +48,12 @@ def prepare_market(market: Market, designs) -> None:
     """
     for spec in designs:
         if spec.kind in ("cluster", "interference_test"):
-            _cluster_labels(market, spec)
+            labels = _cluster_labels(market, spec)
+            if spec.kind == "interference_test" and int(labels.max()) + 1 < 4:
+                raise ScenarioError(f"design[{spec.index}].clusters",
+                                    "a cluster source with at least 4 clusters for a test of "
+                                    f"interference (this market has {int(labels.max()) + 1})",
+                                    spec.clusters)
             if spec.exposure == "neighbourhood":
                 _exposure_units(market, spec)
 
@@ -67,7 +73,13 @@ def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Gen
                                      exposure_units=exposure,
                                      unit_kind="pool" if spec.clusters == "pools" else "cluster")
     if spec.kind == "interference_test":
-        return draw_interference_schedule(_cluster_labels(market, spec), n_ticks, rng=rng)
+        labels = _cluster_labels(market, spec)
+        n_clusters = int(labels.max()) + 1
+        if n_clusters < 4:
+            raise ScenarioError(f"design[{spec.index}].clusters",
+                                "a cluster source with at least 4 clusters for a test of "
+                                f"interference (this market has {n_clusters})", spec.clusters)
+        return draw_interference_schedule(labels, n_ticks, rng=rng)
     unit_of_user = (market.pool_of_user if spec.per == "pool"
                     else np.zeros(market.n_users, dtype=np.int64))
     return draw_switchback_schedule(unit_of_user, n_ticks,

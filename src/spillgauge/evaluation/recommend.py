@@ -213,7 +213,9 @@ def _distrust(m: DesignMetrics, alpha: float) -> str | None:
     if m.coverage < needed:
         return f"covers the GTE in {m.coverage:.1%} of replications (needs {needed:.1%})"
     if not (abs(m.bias) <= 2 * m.bias_se or abs(m.bias) <= 0.5 * m.sd):
-        return f"has bias {_num(m.bias, sign=True)}, {abs(m.bias) / m.sd:.1f} times its SD"
+        if m.sd > 0:
+            return f"has bias {_num(m.bias, sign=True)}, {abs(m.bias) / m.sd:.1f} times its SD"
+        return f"has bias {_num(m.bias, sign=True)} with no spread at all"
     return None
 
 

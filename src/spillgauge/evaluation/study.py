@@ -314,7 +314,8 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
 def _run_on_dask(address: str, scenario: Scenario, seed: int, todo: list[int],
                  finished: Callable[[ReplicationResult], None], designs: tuple | None) -> None:
     try:
-        from dask.distributed import Client, as_completed as dask_completed
+        from dask.distributed import Client
+        from dask.distributed import as_completed as dask_completed
     except ImportError as exc:  # pragma: no cover - depends on the environment
         raise RuntimeError("--scheduler needs Dask: pip install 'spillgauge[dask]'") from exc
     with Client(address) as client:

@@ -29,7 +29,11 @@ from pathlib import Path
 import numpy as np
 
 from spillgauge.errors import ScenarioError
-from spillgauge.evaluation._sweep_text import answer_one_axis, answer_two_axes, split_key
+from spillgauge.evaluation._sweep_text import (
+    answer_one_axis,
+    answer_two_axes,
+    split_key,
+)
 from spillgauge.evaluation.plan import describe_unit, estimator_name
 from spillgauge.evaluation.recommend import is_trusted
 from spillgauge.evaluation.store import dumps, write_atomic

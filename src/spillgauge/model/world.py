@@ -26,7 +26,11 @@ from spillgauge.model.calendar import (
     segment_bounds,
 )
 from spillgauge.model.market import Market
-from spillgauge.model.treatment import own_dose_of_events, peer_exposure_of_events, unit_dose
+from spillgauge.model.treatment import (
+    own_dose_of_events,
+    peer_exposure_of_events,
+    unit_dose,
+)
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
