@@ -45,7 +45,7 @@ def _parse(**sections):
     ({"effect": {"carryover_half_life_hours": -2}}, r"effect\.carryover_half_life_hours"),
     ({"study": {"alpha": 1.0}}, r"study\.alpha"),
     ({"study": {"reps": 0}}, r"study\.reps"),
-    ({"design": [{"kind": "rollout"}]}, r"design\[0\]\.kind"),
+    ({"design": [{"kind": "staggered"}]}, r"design\[0\]\.kind"),
     ({"design": [{"share": 0.5}]}, r"design\[0\]\.kind"),
     ({"design": [{"kind": "user", "block_hours": 3}]}, r"design\[0\]\.block_hours"),
     ({"design": [{"kind": "switchback", "block_hours": 12, "burn_in_hours": 12}]},
@@ -54,6 +54,10 @@ def _parse(**sections):
     ({"design": [{"kind": "cluster", "clusters": "graph"}]}, r"design\[0\]\.clusters"),
     ({"design": [{"kind": "user", "share": 1.0}]}, r"design\[0\]\.share"),
     ({"wrong_section": {}}, r"wrong_section"),
+    ({"design": [{"kind": "rollout", "waves": 0}]}, r"design\[0\]\.waves"),
+    ({"pools": {"count": 3}, "design": [{"kind": "rollout", "waves": 4}]}, r"pools\.count"),
+    ({"design": [{"kind": "rollout", "block_hours": 24}]}, r"design\[0\]\.block_hours"),
+    ({"pools": {"count": 3}, "design": [{"kind": "interference_test"}]}, r"pools\.count"),
 ])
 def test_bad_values_name_the_field(sections, field):
     with pytest.raises(ScenarioError, match=field) as info:

@@ -36,7 +36,7 @@ __all__ = [
     "design_to_dict",
 ]
 
-DESIGN_KINDS = ("user", "cluster", "switchback", "interference_test")
+DESIGN_KINDS = ("user", "cluster", "switchback", "interference_test", "rollout")
 _STOCKOUT_RULES = ("lost", "substitute")
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
 
@@ -207,6 +207,8 @@ class DesignSpec:
       ``"neighbourhood"``).
     - ``switchback``: ``block_hours``, ``burn_in_hours``, ``per`` (``"market"`` or
       ``"pool"``), ``share``.
+    - ``rollout``: ``waves``: pools switch on at random in that many waves after
+      an all-control first period; one group of pools never switches.
     - ``interference_test``: ``clusters``, ``resolution``. Half the clusters run a
       user-level experiment, the other half a cluster-level one, and the two
       estimates are compared (Saveski et al. 2017).
@@ -224,6 +226,7 @@ class DesignSpec:
     block_hours: int = 24
     burn_in_hours: int = 0
     per: str = "market"
+    waves: int = 4
     index: int = 0
 
     def __post_init__(self) -> None:
@@ -244,6 +247,7 @@ class DesignSpec:
         _check(0 <= self.burn_in_hours < self.block_hours, f"{at}.burn_in_hours",
                f"in [0, block_hours={self.block_hours})", self.burn_in_hours)
         _check(self.per in ("market", "pool"), f"{at}.per", "'market' or 'pool'", self.per)
+        _check(1 <= self.waves <= 50, f"{at}.waves", "an int in [1, 50]", self.waves)
         if not self.label:
             object.__setattr__(self, "label", self.default_label())
 
@@ -260,6 +264,8 @@ class DesignSpec:
             elif self.estimator == "horvitz_thompson":
                 label += "-ht"
             return label
+        if self.kind == "rollout":
+            return f"rollout-{self.waves}-waves"
         if self.kind == "interference_test":
             label = f"interference-test-{self.clusters.replace('+', '-')}"
             if self.clusters != "pools" and self.resolution != 1.0:
@@ -279,6 +285,7 @@ _KIND_KEYS = {
                 "estimator", "exposure"},
     "switchback": {"kind", "label", "share", "block_hours", "burn_in_hours", "per"},
     "interference_test": {"kind", "label", "clusters", "resolution"},
+    "rollout": {"kind", "label", "waves"},
 }
 
 
@@ -339,6 +346,13 @@ class Scenario:
                        f"{at}.block_hours",
                        f"at most half the horizon ({self.calendar.horizon_hours // 2} hours)",
                        spec.block_hours)
+            if spec.kind == "rollout":
+                _check(self.users.file is not None or self.pools.file is not None
+                       or self.pools.count >= spec.waves + 1, "pools.count",
+                       f">= waves + 1 = {spec.waves + 1} for a staggered rollout ({at})",
+                       self.pools.count)
+                _check((spec.waves + 1) <= self.calendar.n_ticks, f"{at}.waves",
+                       f"at most n_ticks - 1 = {self.calendar.n_ticks - 1}", spec.waves)
             if spec.kind == "interference_test" and spec.clusters == "pools":
                 _check(self.users.file is not None or self.pools.file is not None
                        or self.pools.count >= 4, "pools.count",

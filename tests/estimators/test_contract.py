@@ -81,6 +81,15 @@ def _switchback_world(rng: np.random.Generator, n_users: int = 6):
     return panel, schedule
 
 
+def _rollout_world(rng: np.random.Generator, n_users: int = 24):
+    from spillgauge.designs import draw_rollout_schedule
+
+    pools = np.arange(n_users) % 6
+    schedule = draw_rollout_schedule(pools, 12, waves=2, rng=rng)
+    per_tick = rng.poisson(1.0 + schedule.unit_tick_treated()[pools], (n_users, 12))
+    return OutcomePanel.from_arrays(fulfilled=per_tick, pool_of_user=pools), schedule
+
+
 CASES = {
     "difference_in_means": (estimators.difference_in_means, _user_world),
     "regression_adjusted_difference": (estimators.regression_adjusted_difference, _user_world),
@@ -89,6 +98,7 @@ CASES = {
     "horvitz_thompson_exposure": (estimators.horvitz_thompson_exposure, _exposure_world),
     "hajek_exposure": (estimators.hajek_exposure, _exposure_world),
     "switchback_difference": (estimators.switchback_difference, _switchback_world),
+    "difference_in_differences": (estimators.difference_in_differences, _rollout_world),
 }
 
 

@@ -17,6 +17,7 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
+from spillgauge.estimators.rollout import difference_in_differences
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -37,6 +38,7 @@ __all__ = [
     "horvitz_thompson_exposure",
     "hajek_exposure",
     "switchback_difference",
+    "difference_in_differences",
     "interference_test",
     "InterferenceTest",
     "switchback_optimal_points",

@@ -13,6 +13,7 @@ from spillgauge import estimators
 from spillgauge.designs import (
     draw_cluster_schedule,
     draw_interference_schedule,
+    draw_rollout_schedule,
     draw_switchback_schedule,
     draw_user_schedule,
 )
@@ -72,6 +73,8 @@ def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Gen
                                      randomization=spec.randomization, rng=rng,
                                      exposure_units=exposure,
                                      unit_kind="pool" if spec.clusters == "pools" else "cluster")
+    if spec.kind == "rollout":
+        return draw_rollout_schedule(market.pool_of_user, n_ticks, waves=spec.waves, rng=rng)
     if spec.kind == "interference_test":
         labels = _cluster_labels(market, spec)
         n_clusters = int(labels.max()) + 1
@@ -99,6 +102,8 @@ def estimator_name(spec: DesignSpec) -> str:
             else "hajek_cluster"
     if spec.kind == "interference_test":
         return "interference_test"
+    if spec.kind == "rollout":
+        return "difference_in_differences"
     return "switchback_difference"
 
 
@@ -123,6 +128,8 @@ def describe_unit(spec: DesignSpec) -> str:
     if spec.kind == "cluster":
         return {"pools": "stock pool", "graph": "graph community",
                 "pools+graph": "pool with its communities"}[spec.clusters]
+    if spec.kind == "rollout":
+        return f"pool, staggered rollout in {spec.waves} waves"
     if spec.kind == "interference_test":
         half = {"pools": "stock pools", "graph": "graph communities",
                 "pools+graph": "pools with their communities"}[spec.clusters]

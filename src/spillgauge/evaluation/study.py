@@ -184,7 +184,8 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                        market_summary=market_summary or {})
 
 
-_SHOWN_ALWAYS = {"user": (), "cluster": ("clusters",), "switchback": ("block_hours", "per")}
+_SHOWN_ALWAYS = {"user": (), "cluster": ("clusters",), "switchback": ("block_hours", "per"),
+                 "rollout": ("waves",), "interference_test": ("clusters",)}
 
 
 def _design_params(spec) -> dict:

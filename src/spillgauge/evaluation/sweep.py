@@ -57,7 +57,7 @@ __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys",
 _SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
              "effect": Effect, "study": Study}
 _NOT_SWEPT = {"study.reps", "study.seed"}  # arguments of the sweep itself
-_DESIGN_FIELDS = ("share", "resolution", "block_hours", "burn_in_hours")
+_DESIGN_FIELDS = ("share", "resolution", "block_hours", "burn_in_hours", "waves")
 _GRAPH_USES = {"small_world": {"mean_degree", "rewire_share"},
                "pool_blocks": {"mean_degree", "within_pool_share"},
                "communities": {"mean_degree", "community_count", "within_community_share"}}
