@@ -107,16 +107,17 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     hour = rng.random(user.size) * horizon
     substitute = pools.on_stockout == "substitute" and population.n_pools > 1
     bounds = segment_bounds(pools, calendar, every_tick=substitute)
-    tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
-    segment = np.searchsorted(bounds, tick, side="right") - 1
-    pool = population.pool_of_user[user]
-    key = (segment * population.n_pools + pool).astype(float) + hour / horizon
-    order = np.argsort(key)
-    del key, segment, pool, tick
+
+    def locate(user: np.ndarray, hour: np.ndarray):
+        tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
+        return tick, np.searchsorted(bounds, tick, side="right") - 1, population.pool_of_user[user]
+
+    tick, segment, pool = locate(user, hour)
+    order = np.argsort((segment * population.n_pools + pool).astype(float) + hour / horizon)
     user, hour = user[order], hour[order]
-    tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
-    segment = np.searchsorted(bounds, tick, side="right") - 1
-    pool = population.pool_of_user[user]
+    # Recomputing the small integer columns from the sorted events is cheaper than
+    # permuting them.
+    tick, segment, pool = locate(user, hour)
     uniform = rng.random(user.size)
     segment_starts = np.searchsorted(segment, np.arange(bounds.size))
     substitute_uniform = substitute_pool = None
