@@ -59,10 +59,6 @@ def _load(path: str):
     return load_scenario(find_scenario(path))
 
 
-def _workers(args) -> int | None:
-    return args.workers
-
-
 def _cmd_check(args) -> int:
     from spillgauge.evaluation.market_summary import summarise_market
     from spillgauge.model.market import build_market
@@ -80,7 +76,7 @@ def _cmd_truth(args) -> int:
 
     scenario = _load(args.scenario)
     bar = _ProgressBar("truth", enabled=not args.quiet and not args.json)
-    truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=_workers(args),
+    truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                       scheduler=args.scheduler, progress=bar)
     seed = scenario.study.seed if args.seed is None else args.seed
     if args.json:
@@ -94,28 +90,23 @@ def _cmd_truth(args) -> int:
 
 def _cmd_run(args) -> int:
     from spillgauge.evaluation.study import run_study
+    from spillgauge.report import write_report
     from spillgauge.report.text import study_text
 
     scenario = _load(args.scenario)
     out = Path(args.out) if args.out else Path("results") / scenario.name
     bar = _ProgressBar(scenario.name, enabled=not args.quiet)
     try:
-        study = run_study(scenario, reps=args.reps, seed=args.seed, workers=_workers(args),
+        study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                           scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
     except KeyboardInterrupt:
         sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
                          "run the same command with --resume to continue\n")
         return 130
-    written = _write_reports(study, out)
+    written = write_report(study, out)
     print(study_text(study))
     print(f"\nresults: {out}/ ({', '.join(written)})")
     return 0
-
-
-def _write_reports(study, out: Path) -> list[str]:
-    from spillgauge.report import write_report
-
-    return write_report(study, out)
 
 
 def _add_common(p: argparse.ArgumentParser, *, reps: bool = True) -> None:
@@ -139,11 +130,12 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
 
 def _cmd_report(args) -> int:
     from spillgauge.evaluation.store import load_study
+    from spillgauge.report import write_report
     from spillgauge.report.text import study_text
 
     out = Path(args.dir)
     study = load_study(out)
-    written = _write_reports(study, out)
+    written = write_report(study, out)
     print(study_text(study))
     print(f"\nre-rendered {out}/ ({', '.join(written)}) from {study.reps} saved replications")
     return 0
@@ -185,7 +177,7 @@ def _cmd_sweep(args) -> int:
     bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet)
     try:
         sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
-                          workers=_workers(args), scheduler=args.scheduler, out=out,
+                          workers=args.workers, scheduler=args.scheduler, out=out,
                           resume=args.resume, progress=bar)
     except KeyboardInterrupt:
         sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "

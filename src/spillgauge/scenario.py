@@ -347,21 +347,24 @@ class Scenario:
                        f"at most half the horizon ({self.calendar.horizon_hours // 2} hours)",
                        spec.block_hours)
             if spec.kind == "rollout":
-                _check(self.users.file is not None or self.pools.file is not None
-                       or self.pools.count >= spec.waves + 1, "pools.count",
+                _check(self._has_pools(spec.waves + 1), "pools.count",
                        f">= waves + 1 = {spec.waves + 1} for a staggered rollout ({at})",
                        self.pools.count)
                 _check((spec.waves + 1) <= self.calendar.n_ticks, f"{at}.waves",
                        f"at most n_ticks - 1 = {self.calendar.n_ticks - 1}", spec.waves)
             if spec.kind == "interference_test" and spec.clusters == "pools":
-                _check(self.users.file is not None or self.pools.file is not None
-                       or self.pools.count >= 4, "pools.count",
+                _check(self._has_pools(4), "pools.count",
                        f">= 4 for a test of interference on pools ({at})", self.pools.count)
             if spec.kind in ("cluster", "interference_test") and spec.clusters != "pools" or \
                     spec.exposure != "none":
                 _check(self.graph.model != "none", f"{at}.clusters",
                        "'pools' when graph.model = 'none' (graph clusters need a graph)",
                        spec.clusters if spec.exposure == "none" else spec.exposure)
+
+    def _has_pools(self, n_pools: int) -> bool:
+        """Whether the market has at least ``n_pools`` pools (files are checked when read)."""
+        return self.users.file is not None or self.pools.file is not None or \
+            self.pools.count >= n_pools
 
     def design(self, label: str) -> DesignSpec:
         """Return the design with this label."""

@@ -22,6 +22,7 @@ from spillgauge.schedule import AssignmentSchedule
 __all__ = [
     "check_common_inputs",
     "check_static",
+    "check_over_time",
     "build_estimate",
     "degenerate_estimate",
     "neyman_variance",
@@ -63,6 +64,32 @@ def check_common_inputs(panel: object, schedule: object, confidence: object,
         raise ValueError(f"{method}: confidence must be a number strictly between 0 and 1; "
                          f"got {confidence!r}")
     return float(confidence)
+
+
+def check_over_time(panel: OutcomePanel, schedule: AssignmentSchedule, method: str, *,
+                    allow_market: bool) -> None:
+    """Raise ValueError unless a time-varying schedule fits the panel.
+
+    Both must cover the same ticks, and the units must be the panel's pools
+    (``schedule.unit_of_user == panel.pool_of_user``; trailing pools without
+    users may have no unit) or, when ``allow_market``, the whole market.
+    """
+    if panel.n_ticks != schedule.n_ticks:
+        raise ValueError(f"{method}: panel has {panel.n_ticks} ticks but schedule has "
+                         f"{schedule.n_ticks}; both must cover the same horizon")
+    if allow_market and schedule.unit_kind == "market":
+        if schedule.n_units != 1:
+            raise ValueError(f"{method}: a market schedule must have one unit; got "
+                             f"{schedule.n_units}")
+    elif schedule.unit_kind == "pool":
+        if schedule.n_units > panel.n_pools or not np.array_equal(panel.pool_of_user,
+                                                                   schedule.unit_of_user):
+            raise ValueError(f"{method}: a pool schedule's units must be the panel's pools "
+                             "(schedule.unit_of_user == panel.pool_of_user)")
+    else:
+        allowed = "'market' or 'pool'" if allow_market else "'pool'"
+        raise ValueError(f"{method} needs units {allowed}; got "
+                         f"unit_kind={schedule.unit_kind!r}")
 
 
 def check_static(schedule: AssignmentSchedule, method: str) -> None:

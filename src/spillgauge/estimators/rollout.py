@@ -7,6 +7,7 @@ import numpy as np
 from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
+    check_over_time,
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
@@ -19,13 +20,7 @@ __all__ = ["difference_in_differences"]
 def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
                   method: str) -> float:
     confidence = check_common_inputs(panel, schedule, confidence, method)
-    if panel.n_ticks != schedule.n_ticks:
-        raise ValueError(f"{method}: panel has {panel.n_ticks} ticks but schedule has "
-                         f"{schedule.n_ticks}")
-    if schedule.unit_kind != "pool" or schedule.n_units > panel.n_pools or not np.array_equal(
-            panel.pool_of_user, schedule.unit_of_user):
-        raise ValueError(f"{method} needs a schedule over the panel's pools "
-                         "(schedule.unit_of_user == panel.pool_of_user)")
+    check_over_time(panel, schedule, method, allow_market=False)
     return confidence
 
 

@@ -21,6 +21,7 @@ import numpy as np
 from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
+    check_over_time,
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
@@ -41,21 +42,7 @@ def _is_int(value: object) -> bool:
 def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
                   burn_in_ticks: int, method: str) -> float:
     confidence = check_common_inputs(panel, schedule, confidence, method)
-    if panel.n_ticks != schedule.n_ticks:
-        raise ValueError(f"{method}: panel has {panel.n_ticks} ticks but schedule has "
-                         f"{schedule.n_ticks}; both must cover the same horizon")
-    if schedule.unit_kind == "market":
-        if schedule.n_units != 1:
-            raise ValueError(f"{method}: a market schedule must have one unit; got "
-                             f"{schedule.n_units}")
-    elif schedule.unit_kind == "pool":
-        if schedule.n_units > panel.n_pools or not np.array_equal(panel.pool_of_user,
-                                                                   schedule.unit_of_user):
-            raise ValueError(f"{method}: a pool schedule's units must be the panel's pools "
-                             "(schedule.unit_of_user == panel.pool_of_user)")
-    else:
-        raise ValueError(f"{method} needs units 'market' or 'pool'; got "
-                         f"unit_kind={schedule.unit_kind!r}")
+    check_over_time(panel, schedule, method, allow_market=True)
     if not _is_int(burn_in_ticks) or burn_in_ticks < 0:
         raise ValueError(f"{method}: burn_in_ticks must be an int >= 0; got {burn_in_ticks!r}")
     return confidence

@@ -18,7 +18,6 @@ from spillgauge.designs import (
     draw_user_schedule,
 )
 from spillgauge.errors import ScenarioError
-from spillgauge.model.graph import closed_neighbourhood_units
 from spillgauge.model.market import Market
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec
@@ -32,31 +31,31 @@ def _cluster_labels(market: Market, spec: DesignSpec) -> np.ndarray:
     return market.clusters(spec.clusters, resolution=spec.resolution)
 
 
-def _exposure_units(market: Market, spec: DesignSpec):
-    cache = market._clusters
-    key = ("exposure", spec.clusters, spec.resolution)
-    if key not in cache:
-        labels = _cluster_labels(market, spec)
-        cache[key] = closed_neighbourhood_units(market.adjacency, labels, int(labels.max()) + 1)
-    return cache[key]
+def _interference_labels(market: Market, spec: DesignSpec) -> np.ndarray:
+    """Return a test of interference's clusters, refusing a source with fewer than 4."""
+    labels = _cluster_labels(market, spec)
+    n_clusters = int(labels.max()) + 1
+    if n_clusters < 4:
+        raise ScenarioError(f"design[{spec.index}].clusters",
+                            "a cluster source with at least 4 clusters for a test of "
+                            f"interference (this market has {n_clusters})", spec.clusters)
+    return labels
 
 
 def prepare_market(market: Market, designs) -> None:
     """Build the clusters (and exposure incidences) the designs need, once, before any worker.
 
     Worker processes forked afterwards inherit them instead of each running
-    community detection again.
+    community detection again; a test of interference on too few clusters is
+    refused here, before any replication runs.
     """
     for spec in designs:
-        if spec.kind in ("cluster", "interference_test"):
-            labels = _cluster_labels(market, spec)
-            if spec.kind == "interference_test" and int(labels.max()) + 1 < 4:
-                raise ScenarioError(f"design[{spec.index}].clusters",
-                                    "a cluster source with at least 4 clusters for a test of "
-                                    f"interference (this market has {int(labels.max()) + 1})",
-                                    spec.clusters)
+        if spec.kind == "interference_test":
+            _interference_labels(market, spec)
+        elif spec.kind == "cluster":
+            _cluster_labels(market, spec)
             if spec.exposure == "neighbourhood":
-                _exposure_units(market, spec)
+                market.neighbourhood_clusters(spec.clusters, resolution=spec.resolution)
 
 
 def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Generator
@@ -68,7 +67,8 @@ def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Gen
         return draw_user_schedule(market.n_users, n_ticks, share=spec.share,
                                   randomization=spec.randomization, rng=rng)
     if spec.kind == "cluster":
-        exposure = _exposure_units(market, spec) if spec.exposure == "neighbourhood" else None
+        exposure = (market.neighbourhood_clusters(spec.clusters, resolution=spec.resolution)
+                    if spec.exposure == "neighbourhood" else None)
         return draw_cluster_schedule(_cluster_labels(market, spec), n_ticks, share=spec.share,
                                      randomization=spec.randomization, rng=rng,
                                      exposure_units=exposure,
@@ -76,13 +76,7 @@ def draw_design_schedule(market: Market, spec: DesignSpec, *, rng: np.random.Gen
     if spec.kind == "rollout":
         return draw_rollout_schedule(market.pool_of_user, n_ticks, waves=spec.waves, rng=rng)
     if spec.kind == "interference_test":
-        labels = _cluster_labels(market, spec)
-        n_clusters = int(labels.max()) + 1
-        if n_clusters < 4:
-            raise ScenarioError(f"design[{spec.index}].clusters",
-                                "a cluster source with at least 4 clusters for a test of "
-                                f"interference (this market has {n_clusters})", spec.clusters)
-        return draw_interference_schedule(labels, n_ticks, rng=rng)
+        return draw_interference_schedule(_interference_labels(market, spec), n_ticks, rng=rng)
     unit_of_user = (market.pool_of_user if spec.per == "pool"
                     else np.zeros(market.n_users, dtype=np.int64))
     return draw_switchback_schedule(unit_of_user, n_ticks,

@@ -149,12 +149,9 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
 
 
 def result_to_record(result: ReplicationResult) -> dict:
-    """Return a replication result as JSON-ready data."""
+    """Return a replication result as plain data (``store.dumps`` writes NaN as null)."""
     return {"replication": result.replication, "truth": result.truth.to_dict(),
-            "estimates": {label: {k: (None if isinstance(v, float) and not math.isfinite(v)
-                                      else v) for k, v in values.items()}
-                          for label, values in result.estimates.items()},
-            "traces": result.traces}
+            "estimates": result.estimates, "traces": result.traces}
 
 
 def result_from_record(record: dict) -> ReplicationResult:

@@ -17,7 +17,7 @@ from spillgauge.evaluation.replication import (
 from spillgauge.scenario import Scenario, scenario_to_dict
 
 __all__ = ["ResultsFolder", "write_atomic", "write_atomic_with", "load_study", "dumps",
-           "FORMAT_VERSION"]
+           "json_safe", "FORMAT_VERSION"]
 
 FORMAT_VERSION = 1
 _STUDY = "study.json"
@@ -65,17 +65,23 @@ def _json_default(value):
     raise TypeError(f"cannot write {type(value).__name__} as JSON")
 
 
-def dumps(data: object) -> str:
-    """Return standard JSON (NaN written as null)."""
-    def clean(x):
-        if isinstance(x, float) and not math.isfinite(x):
-            return None
-        if isinstance(x, dict):
-            return {k: clean(v) for k, v in x.items()}
-        if isinstance(x, (list, tuple)):
-            return [clean(v) for v in x]
-        return x
-    return json.dumps(clean(data), default=_json_default, indent=2, allow_nan=False)
+def json_safe(data: object) -> object:
+    """Return ``data`` with NaN and infinities replaced by None (tuples become lists)."""
+    if isinstance(data, float) and not math.isfinite(data):
+        return None
+    if isinstance(data, dict):
+        return {k: json_safe(v) for k, v in data.items()}
+    if isinstance(data, (list, tuple)):
+        return [json_safe(v) for v in data]
+    return data
+
+
+def dumps(data: object, *, compact: bool = False) -> str:
+    """Return standard JSON (NaN written as null): indented, or on one line when ``compact``."""
+    if compact:
+        return json.dumps(json_safe(data), default=_json_default, allow_nan=False,
+                          separators=(",", ":"))
+    return json.dumps(json_safe(data), default=_json_default, indent=2, allow_nan=False)
 
 
 def _data_file_digests(scenario: Scenario) -> dict:
@@ -105,6 +111,15 @@ def _first_difference(a: object, b: object, prefix: str = "") -> str:
             if x != y:
                 return _first_difference(x, y, f"{prefix[:-1]}[{i}].")
     return prefix[:-1] or "the settings"
+
+
+def _latest(records) -> list[ReplicationResult]:
+    """Rebuild saved replications, one per index (the last line wins), sorted."""
+    results = {}
+    for record in records:
+        result = result_from_record(record)
+        results[result.replication] = result
+    return [results[k] for k in sorted(results)]
 
 
 class ResultsFolder:
@@ -165,31 +180,30 @@ class ResultsFolder:
         if not resume or not self.log_path.exists():
             write_atomic(self.log_path, "")
             return []
-        saved = self.read()
+        lines = list(self._valid_lines())
         # Rewrite the log without a torn last line, so new lines append cleanly.
-        write_atomic(self.log_path, "".join(
-            json.dumps(json.loads(dumps(result_to_record(r))), separators=(",", ":")) + "\n"
-            for r in saved))
-        return saved
+        write_atomic(self.log_path, "".join(line + "\n" for line, _ in lines))
+        return _latest(record for _, record in lines)
+
+    def _valid_lines(self):
+        """Yield ``(line, record)`` for every complete line of the log (a torn one is skipped)."""
+        if not self.log_path.exists():
+            return
+        with open(self.log_path, encoding="utf-8") as stream:
+            for line in stream:
+                line = line.rstrip("\n")
+                try:
+                    yield line, json.loads(line)
+                except json.JSONDecodeError:
+                    continue
 
     def read(self) -> list[ReplicationResult]:
         """Return the saved replications (a torn last line from a kill is skipped)."""
-        results = {}
-        if not self.log_path.exists():
-            return []
-        with open(self.log_path, encoding="utf-8") as stream:
-            for line in stream:
-                try:
-                    record = json.loads(line)
-                except json.JSONDecodeError:
-                    continue
-                result = result_from_record(record)
-                results[result.replication] = result
-        return [results[k] for k in sorted(results)]
+        return _latest(record for _, record in self._valid_lines())
 
     def append(self, result: ReplicationResult) -> None:
         """Append one finished replication, flushed and fsynced."""
-        line = json.dumps(json.loads(dumps(result_to_record(result))), separators=(",", ":"))
+        line = dumps(result_to_record(result), compact=True)
         with open(self.log_path, "a", encoding="utf-8") as stream:
             stream.write(line + "\n")
             stream.flush()

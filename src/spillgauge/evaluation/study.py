@@ -10,7 +10,6 @@ nothing; the final files are written atomically.
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -21,7 +20,7 @@ import numpy as np
 
 from spillgauge.evaluation.replication import ReplicationResult, run_replication
 from spillgauge.evaluation.resources import check_memory
-from spillgauge.evaluation.store import ResultsFolder
+from spillgauge.evaluation.store import ResultsFolder, json_safe
 from spillgauge.evaluation.truth import TruthSummary, summarise_truth
 from spillgauge.model.market import build_market
 from spillgauge.scenario import DesignSpec, Scenario, design_to_dict, scenario_to_dict
@@ -123,11 +122,11 @@ class StudyResult:
             m = self.metrics[spec.label]
             entry = {"label": spec.label, "kind": spec.kind,
                      "estimator": estimator_name(spec), "unit": describe_unit(spec),
-                     **_finite(m.to_dict())}
+                     **json_safe(m.to_dict())}
             if spec.kind == "interference_test":
-                entry["interference_test"] = _finite(self.interference_test(spec.label))
+                entry["interference_test"] = json_safe(self.interference_test(spec.label))
             designs.append(entry)
-        truth = _finite(self.truth.to_dict())
+        truth = json_safe(self.truth.to_dict())
         return {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
                 "truth": truth, "designs": designs,
                 "recommendation": {"label": self.recommendation.label,
@@ -135,12 +134,6 @@ class StudyResult:
                                    "is_trustworthy": self.recommendation.is_trustworthy},
                 "market": self.market_summary,
                 "scenario_settings": scenario_to_dict(self.scenario)}
-
-
-def _finite(values: dict) -> dict:
-    """Replace NaN and infinities by None so the JSON is standard."""
-    return {k: (None if isinstance(v, float) and not math.isfinite(v) else v)
-            for k, v in values.items()}
 
 
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
@@ -159,7 +152,7 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
     for spec in scenario.designs:
         rows = [r.estimates[spec.label] for r in results]
         column = {k: np.array([row[k] for row in rows], dtype=float)
-                  for k in ("estimate", "se", "ci_low", "ci_high", "n_units")}
+                  for k in ("estimate", "se", "ci_low", "ci_high")}
         m = design_metrics(column["estimate"], column["se"], column["ci_low"],
                            column["ci_high"], gte, alpha=alpha)
         metrics[spec.label] = m

@@ -15,6 +15,7 @@ from scipy import sparse
 from spillgauge.errors import ScenarioError
 from spillgauge.model.graph import (
     adjacency_from_edges,
+    closed_neighbourhood_units,
     detect_communities,
     pool_block_adjacency,
     small_world_adjacency,
@@ -102,6 +103,22 @@ class Market:
             labels = np.unique(labels, return_inverse=True)[1].astype(np.int64)
             labels.setflags(write=False)
             self._clusters[key] = labels
+        return self._clusters[key]
+
+
+    def neighbourhood_clusters(self, source: str = "pools", *, resolution: float = 1.0
+                               ) -> sparse.csr_array:
+        """Return which clusters touch each user's closed neighbourhood, cached.
+
+        Shape ``(n_users, n_clusters)``; entry ``(i, c)`` is 1 when user ``i`` or a
+        neighbour belongs to cluster ``c`` (the sets S_i of graph cluster
+        randomization; Ugander et al. 2013). Clusters as :meth:`clusters`.
+        """
+        key = ("neighbourhood", source, float(resolution))
+        if key not in self._clusters:
+            labels = self.clusters(source, resolution=resolution)
+            self._clusters[key] = closed_neighbourhood_units(self.adjacency, labels,
+                                                             int(labels.max()) + 1)
         return self._clusters[key]
 
 

@@ -57,6 +57,8 @@ class CandidateEvents:
     user_day, pool_tick : ndarray of int, shape (n_events,)
         Flat indexes ``user * n_days + day`` and ``pool * n_ticks + tick``, computed
         once for every world's tallies.
+    segment_bounds : ndarray of int, shape (n_segments + 1,)
+        First tick of each segment (between two stock events), then ``n_ticks``.
     segment_starts : ndarray of int, shape (n_segments + 1,)
         Index of the first event of each segment, then ``n_events``.
     """
@@ -68,6 +70,7 @@ class CandidateEvents:
     hour: np.ndarray
     base_accept: np.ndarray
     uniform: np.ndarray
+    segment_bounds: np.ndarray
     segment_starts: np.ndarray
     substitute_uniform: np.ndarray | None
     substitute_pool: np.ndarray | None
@@ -129,7 +132,8 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) * (shocks[day] / peak)
     return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
                            base_accept=base_accept, uniform=uniform,
-                           segment_starts=segment_starts, substitute_uniform=substitute_uniform,
+                           segment_bounds=bounds, segment_starts=segment_starts,
+                           substitute_uniform=substitute_uniform,
                            substitute_pool=substitute_pool,
                            user_day=user * calendar.days + day,
                            pool_tick=pool * calendar.n_ticks + tick)
@@ -229,7 +233,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
     order_up_to = population.order_up_to
     substitute = events.substitute_pool is not None
-    bounds = segment_bounds(pools, calendar, every_tick=substitute)
+    bounds = events.segment_bounds
     n_segments = bounds.size - 1
     level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
 
