@@ -12,7 +12,7 @@ import numpy as np
 from spillgauge.designs import draw_user_schedule
 from spillgauge.model.market import build_market
 from spillgauge.model.world import draw_candidates, simulate_worlds
-from spillgauge.scenario import load_scenario
+from spillgauge.scenario.reading import load_scenario
 from spillgauge.schedule import AssignmentSchedule
 
 

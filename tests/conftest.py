@@ -8,7 +8,7 @@ import tempfile
 import numpy as np
 import pytest
 
-from spillgauge.scenario import parse_scenario
+from spillgauge.scenario.reading import parse_scenario
 
 # Keep the community cache of the tests out of the user's cache folder.
 os.environ.setdefault("SPILLGAUGE_CACHE", tempfile.mkdtemp(prefix="spillgauge-test-cache-"))

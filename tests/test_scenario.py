@@ -8,7 +8,7 @@ import pytest
 
 from spillgauge.bundled import bundled_scenarios, find_scenario
 from spillgauge.errors import ScenarioError
-from spillgauge.scenario import (
+from spillgauge.scenario.reading import (
     load_scenario,
     parse_scenario,
     scenario_to_dict,

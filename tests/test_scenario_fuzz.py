@@ -8,7 +8,7 @@ from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from spillgauge.errors import ScenarioError
-from spillgauge.scenario import load_scenario, parse_scenario
+from spillgauge.scenario.reading import load_scenario, parse_scenario
 
 SECTIONS = {
     "calendar": ["days", "tick_hours", "diurnal_amplitude", "daily_shock_sd",

@@ -54,7 +54,7 @@ class _ProgressBar:
 
 def _load(path: str):
     from spillgauge.bundled import find_scenario
-    from spillgauge.scenario import load_scenario
+    from spillgauge.scenario.reading import load_scenario
 
     return load_scenario(find_scenario(path))
 
@@ -194,7 +194,7 @@ def _cmd_sweep(args) -> int:
 
 def _cmd_list(args) -> int:
     from spillgauge.bundled import bundled_scenarios
-    from spillgauge.scenario import load_scenario
+    from spillgauge.scenario.reading import load_scenario
 
     for path in bundled_scenarios():
         scenario = load_scenario(path)

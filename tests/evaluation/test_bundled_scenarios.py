@@ -6,7 +6,7 @@ import pytest
 
 from spillgauge.bundled import find_scenario
 from spillgauge.evaluation.study import run_study
-from spillgauge.scenario import load_scenario
+from spillgauge.scenario.reading import load_scenario
 
 # Expected recommendations, one per lesson (issue text; the markets are our own invention):
 # calm market -> user level (no interference: the finest unit wins; REFERENCES check 28);

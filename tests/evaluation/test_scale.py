@@ -17,7 +17,7 @@ from spillgauge.evaluation.resources import (
     estimate_memory_bytes,
 )
 from spillgauge.evaluation.study import run_study
-from spillgauge.scenario import parse_scenario
+from spillgauge.scenario.reading import parse_scenario
 
 TINY = {"name": "scale", "calendar": {"days": 7}, "users": {"count": 500},
         "pools": {"count": 5, "stock_cover": 1.1},

@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from spillgauge.errors import ScenarioError
 from spillgauge.evaluation.study import run_study
 from spillgauge.report.text import study_text
-from spillgauge.scenario import parse_scenario
+from spillgauge.scenario.reading import parse_scenario
 
 DESIGNS = [
     {"kind": "user"}, {"kind": "user", "adjust": True},

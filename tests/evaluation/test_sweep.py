@@ -31,7 +31,7 @@ from spillgauge.evaluation.sweep import (
     with_value,
     write_sweep,
 )
-from spillgauge.scenario import parse_scenario
+from spillgauge.scenario.reading import parse_scenario
 
 SEED = 20260511
 USERS_PER_POOL = 100        # N of REFERENCES section 4

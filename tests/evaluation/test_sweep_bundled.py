@@ -6,7 +6,7 @@ import dataclasses
 
 from spillgauge.bundled import find_scenario
 from spillgauge.evaluation.sweep import parse_vary, run_sweep
-from spillgauge.scenario import load_scenario
+from spillgauge.scenario.reading import load_scenario
 
 
 def test_user_level_bias_tracks_binding_stock_in_tight_pantry():

@@ -14,7 +14,8 @@ from spillgauge.evaluation.replication import (
     result_from_record,
     result_to_record,
 )
-from spillgauge.scenario import Scenario, scenario_to_dict
+from spillgauge.scenario import Scenario
+from spillgauge.scenario.reading import scenario_to_dict
 
 __all__ = ["ResultsFolder", "write_atomic", "write_atomic_with", "load_study", "dumps",
            "json_safe", "FORMAT_VERSION"]
@@ -225,7 +226,7 @@ def load_study(path: str | Path):
         When the folder holds no study or no finished replication.
     """
     from spillgauge.evaluation.study import summarise_study
-    from spillgauge.scenario import parse_scenario
+    from spillgauge.scenario.reading import parse_scenario
 
     path = Path(path)
     study_file = path / _STUDY

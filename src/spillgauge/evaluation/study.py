@@ -23,7 +23,8 @@ from spillgauge.evaluation.resources import check_memory
 from spillgauge.evaluation.store import ResultsFolder, json_safe
 from spillgauge.evaluation.truth import TruthSummary, summarise_truth
 from spillgauge.model.market import build_market
-from spillgauge.scenario import DesignSpec, Scenario, design_to_dict, scenario_to_dict
+from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.reading import design_to_dict, scenario_to_dict
 
 __all__ = ["StudyResult", "run_study", "run_truth", "summarise_study", "default_workers"]
 

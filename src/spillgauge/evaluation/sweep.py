@@ -47,9 +47,8 @@ from spillgauge.scenario import (
     Scenario,
     Study,
     Users,
-    design_to_dict,
-    scenario_to_dict,
 )
+from spillgauge.scenario.reading import design_to_dict, scenario_to_dict
 
 __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys", "run_sweep",
            "write_sweep"]
@@ -224,7 +223,7 @@ def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
 
     Examples
     --------
-    >>> from spillgauge.scenario import parse_scenario
+    >>> from spillgauge.scenario.reading import parse_scenario
     >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
     >>> with_value(s, "pools.stock_cover", 0.9).pools.stock_cover
     0.9

@@ -431,7 +431,7 @@ def save_figures(study, out_dir: str | Path) -> list[Path]:
     --------
     >>> import tempfile
     >>> from spillgauge.evaluation.study import run_study
-    >>> from spillgauge.scenario import parse_scenario
+    >>> from spillgauge.scenario.reading import parse_scenario
     >>> scenario = parse_scenario({"name": "doc", "calendar": {"days": 2},
     ...     "users": {"count": 200}, "pools": {"count": 4}, "study": {"reps": 2},
     ...     "design": [{"kind": "user"}, {"kind": "switchback", "block_hours": 12}]})

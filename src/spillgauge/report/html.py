@@ -273,7 +273,7 @@ def render_html(study, figures: dict) -> str:
     Examples
     --------
     >>> from spillgauge.evaluation.study import run_study
-    >>> from spillgauge.scenario import parse_scenario
+    >>> from spillgauge.scenario.reading import parse_scenario
     >>> scenario = parse_scenario({"name": "doc", "calendar": {"days": 2},
     ...     "users": {"count": 200}, "pools": {"count": 4}, "study": {"reps": 2},
     ...     "design": [{"kind": "user"}]})

@@ -1,22 +1,15 @@
-"""Scenario files: frozen, validated configuration and :func:`load_scenario`.
+"""Scenario configuration: frozen, validated dataclasses, one per scenario section.
 
-A scenario is a TOML file with the sections ``[calendar]``, ``[users]``,
-``[pools]``, ``[graph]``, ``[effect]``, ``[study]`` and any number of
-``[[design]]`` tables. Every key is documented in ``docs/scenario.md``.
-:func:`load_scenario` is the only TOML reader; it rejects unknown keys by name
-and every value outside its allowed range raises :class:`ScenarioError` naming
-the dotted key.
+A scenario has the sections ``[calendar]``, ``[users]``, ``[pools]``,
+``[graph]``, ``[effect]``, ``[study]`` and any number of ``[[design]]`` tables.
+Every key is documented in ``docs/scenario.md``; :mod:`spillgauge.scenario.reading`
+reads them from TOML.
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
-import tomllib
-import types
-import typing
 from dataclasses import dataclass, field
-from pathlib import Path
 
 from spillgauge.errors import ScenarioError
 
@@ -30,10 +23,8 @@ __all__ = [
     "DesignSpec",
     "Scenario",
     "DESIGN_KINDS",
-    "load_scenario",
-    "parse_scenario",
-    "scenario_to_dict",
-    "design_to_dict",
+    "KIND_KEYS",
+    "default_designs",
 ]
 
 DESIGN_KINDS = ("user", "cluster", "switchback", "interference_test", "rollout")
@@ -279,7 +270,7 @@ class DesignSpec:
         return label
 
 
-_KIND_KEYS = {
+KIND_KEYS = {
     "user": {"kind", "label", "share", "randomization", "adjust"},
     "cluster": {"kind", "label", "share", "randomization", "clusters", "resolution",
                 "estimator", "exposure"},
@@ -289,7 +280,7 @@ _KIND_KEYS = {
 }
 
 
-def _default_designs() -> tuple[DesignSpec, ...]:
+def default_designs() -> tuple[DesignSpec, ...]:
     return (
         DesignSpec(kind="user", index=0),
         DesignSpec(kind="cluster", clusters="pools", index=1),
@@ -309,7 +300,7 @@ class Scenario:
     graph: Graph = field(default_factory=Graph)
     effect: Effect = field(default_factory=Effect)
     study: Study = field(default_factory=Study)
-    designs: tuple[DesignSpec, ...] = field(default_factory=_default_designs)
+    designs: tuple[DesignSpec, ...] = field(default_factory=default_designs)
     source: str | None = None
 
     def __post_init__(self) -> None:
@@ -372,194 +363,3 @@ class Scenario:
             if spec.label == label:
                 return spec
         raise ScenarioError("design", "one of " + ", ".join(d.label for d in self.designs), label)
-
-
-# ---------------------------------------------------------------------------
-# Reading TOML tables into the dataclasses
-
-_SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
-             "effect": Effect, "study": Study}
-_TOP_KEYS = {"name", "description", *_SECTIONS, "design"}
-
-
-def _type_name(tp: object) -> str:
-    names = {int: "an int", float: "a number", str: "a string", bool: "true or false"}
-    return names.get(tp, str(tp))
-
-
-def _coerce(value: object, annotation: object, key: str) -> object:
-    """Check one TOML value against a field annotation; ints are accepted for floats."""
-    allowed = typing.get_args(annotation) if isinstance(annotation, types.UnionType) else (
-        annotation,)
-    if value is None and type(None) in allowed:
-        return None
-    for tp in allowed:
-        if tp is bool and isinstance(value, bool):
-            return value
-        if tp is int and isinstance(value, int) and not isinstance(value, bool):
-            return value
-        if tp is float and isinstance(value, (int, float)) and not isinstance(value, bool):
-            if not math.isfinite(float(value)):
-                raise ScenarioError(key, "a finite number", value)
-            return float(value)
-        if tp is str and isinstance(value, str):
-            return value
-    expected = " or ".join(_type_name(tp) for tp in allowed if tp is not type(None))
-    raise ScenarioError(key, expected, value)
-
-
-def _build(cls: type, table: object, prefix: str, base_dir: Path | None,
-           allowed: set[str] | None = None, **extra: object) -> object:
-    if not isinstance(table, dict):
-        raise ScenarioError(prefix, "a table", table)
-    hints = typing.get_type_hints(cls)
-    names = allowed if allowed is not None else {f.name for f in dataclasses.fields(cls)}
-    kwargs: dict[str, object] = {}
-    for key, value in table.items():
-        dotted = f"{prefix}.{key}"
-        if key not in names or key == "index":
-            raise ScenarioError(dotted, "a known key (one of " + ", ".join(
-                sorted(names - {"index"})) + ")", key)
-        value = _coerce(value, hints[key], dotted)
-        if key == "file" and value is not None:
-            value = _resolve_file(value, dotted, base_dir)
-        kwargs[key] = value
-    return cls(**kwargs, **extra)
-
-
-def _resolve_file(value: str, key: str, base_dir: Path | None) -> str:
-    path = Path(value).expanduser()
-    if not path.is_absolute() and base_dir is not None:
-        path = base_dir / path
-    if not path.is_file():
-        raise ScenarioError(key, "a readable file", value)
-    return str(path.resolve())
-
-
-def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
-                   source: str | None = None) -> Scenario:
-    """Validate a scenario given as a dict (the parsed TOML) and return it.
-
-    Parameters
-    ----------
-    data : dict
-        The scenario's tables, as :func:`tomllib.loads` returns them.
-    base_dir : str or Path, optional
-        Folder that relative ``file`` paths are resolved against.
-    source : str, optional
-        Where the scenario came from, kept for reports.
-
-    Raises
-    ------
-    ScenarioError
-        For an unknown key, a wrong type or a value out of range; ``.field`` names it.
-
-    Examples
-    --------
-    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
-    >>> s.users.count, s.pools.count, [d.label for d in s.designs]
-    (50, 2, ['user', 'cluster-pools', 'switchback-24h'])
-    """
-    if not isinstance(data, dict):
-        raise ScenarioError("scenario", "a table of sections", data)
-    base = Path(base_dir) if base_dir is not None else None
-    for key in data:
-        if key not in _TOP_KEYS:
-            raise ScenarioError(key if key.strip() else '""', "a known top-level key or "
-                                "section (one of "
-                                + ", ".join(sorted(_TOP_KEYS)) + ")", key)
-    if "name" not in data:
-        raise ScenarioError("name", "present (a short name for the scenario)", None)
-    name = _coerce(data["name"], str, "name")
-    description = _coerce(data.get("description", ""), str, "description")
-    sections = {key: _build(cls, data.get(key, {}), key, base) for key, cls in _SECTIONS.items()}
-    users = data.get("users", {})
-    if isinstance(users, dict) and "file" in users:
-        for key in ("count", "orders_per_week", "rate_shape"):
-            if key in users:
-                raise ScenarioError(f"users.{key}", "absent when users.file is given "
-                                    "(the file sets it)", users[key])
-    raw_designs = data.get("design")
-    if raw_designs is None:
-        designs = _default_designs()
-    else:
-        if not isinstance(raw_designs, list):
-            raise ScenarioError("design", "an array of [[design]] tables", raw_designs)
-        built = []
-        for i, table in enumerate(raw_designs):
-            at = f"design[{i}]"
-            if not isinstance(table, dict):
-                raise ScenarioError(at, "a table", table)
-            if "kind" not in table:
-                raise ScenarioError(f"{at}.kind", "present: one of " + ", ".join(
-                    map(repr, DESIGN_KINDS)), None)
-            kind = table["kind"]
-            if not isinstance(kind, str) or kind not in _KIND_KEYS:
-                raise ScenarioError(f"{at}.kind", "one of " + ", ".join(
-                    map(repr, DESIGN_KINDS)), kind)
-            built.append(_build(DesignSpec, table, at, base, allowed=_KIND_KEYS[kind], index=i))
-        designs = tuple(built)
-    return Scenario(name=name, description=description, designs=designs, source=source,
-                    **sections)
-
-
-def load_scenario(path: str | Path) -> Scenario:
-    """Read and validate a scenario file.
-
-    Parameters
-    ----------
-    path : str or Path
-        A TOML scenario file. Relative ``file`` keys inside it are resolved
-        against the file's folder.
-
-    Returns
-    -------
-    Scenario
-
-    Raises
-    ------
-    ScenarioError
-        If the file is missing or unreadable, is not valid TOML, or holds an
-        unknown key or a value out of range.
-    """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ScenarioError("scenario", "an existing file", str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ScenarioError("scenario", f"a readable UTF-8 file ({exc.__class__.__name__})",
-                            str(path)) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ScenarioError("scenario", f"valid TOML ({exc})", str(path)) from None
-    return parse_scenario(data, base_dir=path.parent, source=str(path))
-
-
-def scenario_to_dict(scenario: Scenario) -> dict:
-    """Return the scenario as plain data; :func:`parse_scenario` reads it back.
-
-    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
-    >>> parse_scenario(scenario_to_dict(s)) == s
-    True
-    """
-    out = {"name": scenario.name, "description": scenario.description}
-    for key in _SECTIONS:
-        out[key] = {k: v for k, v in dataclasses.asdict(getattr(scenario, key)).items()
-                    if v is not None}
-    users = out["users"]
-    if "file" in users:
-        for key in ("count", "orders_per_week", "rate_shape"):
-            users.pop(key, None)
-    out["design"] = [design_to_dict(d) for d in scenario.designs]
-    return out
-
-
-def design_to_dict(spec: DesignSpec) -> dict:
-    """Return a design's keys (those its kind accepts) as plain data."""
-    return {k: getattr(spec, k) for k in sorted(_KIND_KEYS[spec.kind], key=_KEY_ORDER.index)}
-
-
-_KEY_ORDER = [f.name for f in dataclasses.fields(DesignSpec)]
-
