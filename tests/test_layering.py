@@ -12,7 +12,8 @@ BASE = {"errors", "scenario", "schedule", "panel", "seeding", "bundled"}
 ALLOWED = {
     "base": BASE,
     "model": BASE | {"model"},
-    "designs": BASE | {"designs"},
+    # a design kind names the estimator that analyses it
+    "designs": BASE | {"designs", "estimators"},
     "estimators": BASE | {"estimators"},
     "evaluation": BASE | {"model", "designs", "estimators", "evaluation"},
     "report": BASE | {"evaluation", "report"},

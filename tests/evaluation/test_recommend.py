@@ -47,17 +47,17 @@ def _nan_metrics() -> DesignMetrics:
 
 
 def _user(metrics, label="user", n_units=10_000.0):
-    return Candidate(label=label, kind="user", unit="user", n_units=n_units, metrics=metrics,
+    return Candidate(label=label, is_user_level=True, unit="user", n_units=n_units, metrics=metrics,
                      params={"share": 0.5})
 
 
 def _pools(metrics, label="cluster-pools", n_units=40.0):
-    return Candidate(label=label, kind="cluster", unit="pool", n_units=n_units, metrics=metrics,
+    return Candidate(label=label, is_user_level=False, unit="pool", n_units=n_units, metrics=metrics,
                      params={"clusters": "pools", "estimator": "hajek"})
 
 
 def _switchback(metrics, label="switchback-24h", n_units=28.0):
-    return Candidate(label=label, kind="switchback", unit="market time block of 24 h",
+    return Candidate(label=label, is_user_level=False, unit="market time block of 24 h",
                      n_units=n_units, metrics=metrics, params={"block_hours": 24})
 
 
@@ -106,7 +106,7 @@ def test_designs_within_monte_carlo_error_prefer_the_finer_unit():
     # Common practice, no source: when trusted designs are equally accurate within MC
     # error, prefer the one with more units. RMSE 0.100 vs 0.102, rmse_se 0.0035 each:
     # gap 0.002 <= 2 * sqrt(2) * 0.0035 = 0.0099.
-    graph = Candidate(label="cluster-graph", kind="cluster", unit="graph community",
+    graph = Candidate(label="cluster-graph", is_user_level=False, unit="graph community",
                       n_units=25.0, metrics=_metrics(sd=0.100))
     pools = _pools(_metrics(sd=0.102), n_units=40.0)
     r = recommend([graph, pools], gte=GTE, gte_se=0.01)
@@ -117,7 +117,7 @@ def test_designs_within_monte_carlo_error_prefer_the_finer_unit():
 
 def test_a_clearly_more_accurate_design_beats_the_finer_unit():
     # Same pair with a gap far beyond MC error: the lower RMSE wins despite fewer units.
-    graph = Candidate(label="cluster-graph", kind="cluster", unit="graph community",
+    graph = Candidate(label="cluster-graph", is_user_level=False, unit="graph community",
                       n_units=25.0, metrics=_metrics(sd=0.10))
     pools = _pools(_metrics(sd=0.13), n_units=40.0)
     assert recommend([graph, pools], gte=GTE, gte_se=0.01).label == "cluster-graph"
@@ -192,7 +192,5 @@ def test_recommend_refuses_bad_input():
         recommend([_user(_metrics()), _user(_metrics())], gte=GTE, gte_se=0.01)
     with pytest.raises(ValueError, match="alpha"):
         recommend([_user(_metrics())], gte=GTE, gte_se=0.01, alpha=0.0)
-    with pytest.raises(ValueError, match="kind"):
-        Candidate(label="x", kind="regional", unit="region", n_units=3.0, metrics=_metrics())
     with pytest.raises(ValueError, match="n_units"):
-        Candidate(label="x", kind="user", unit="user", n_units=-1.0, metrics=_metrics())
+        Candidate(label="x", is_user_level=True, unit="user", n_units=-1.0, metrics=_metrics())

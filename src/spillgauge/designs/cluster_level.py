@@ -6,10 +6,23 @@ import numpy as np
 from scipy import sparse
 
 from spillgauge.designs._draw import draw_treated_units
+from spillgauge.designs.kind import (
+    DesignKind,
+    MarketView,
+    check_graph_clusters,
+    cluster_label,
+    cluster_source_key,
+    describe_clusters,
+    randomization_key,
+    resolution_key,
+    share_key,
+)
+from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.keys import DesignKey
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_cluster_schedule"]
+__all__ = ["draw_cluster_schedule", "ClusterLevel"]
 
 
 def draw_cluster_schedule(cluster_of_user: np.ndarray, n_ticks: int, *, share: float = 0.5,
@@ -50,3 +63,60 @@ def draw_cluster_schedule(cluster_of_user: np.ndarray, n_ticks: int, *, share: f
                               period_start_ticks=np.zeros(1, dtype=np.int64), n_ticks=n_ticks,
                               treated_probability=probability, unit_kind=unit_kind,
                               randomization=randomization, exposure_units=exposure_units)
+
+
+class ClusterLevel(DesignKind):
+    """Whole clusters randomized: Hajek or Horvitz-Thompson, optionally by exposure."""
+
+    name = "cluster"
+    summary = "whole clusters (pools, graph communities) keep one arm over the horizon"
+    keys = (
+        share_key("share of clusters treated"),
+        randomization_key(),
+        cluster_source_key(),
+        resolution_key(),
+        DesignKey(name="estimator", type=str, default="hajek",
+                  choices=("hajek", "horvitz_thompson"),
+                  doc="ratio (Hajek) or unbiased (Horvitz-Thompson) estimator of the cluster "
+                      "means"),
+        DesignKey(name="exposure", type=str, default="none", choices=("none", "neighbourhood"),
+                  doc="\"neighbourhood\": compare users whose whole graph neighbourhood is in "
+                      "one arm (exposure mapping; Aronow & Samii 2017)"),
+    )
+    shown_keys = ("clusters",)
+
+    def check(self, spec: DesignSpec, scenario: Scenario) -> None:
+        if spec.clusters != "pools" or spec.exposure != "none":
+            check_graph_clusters(spec, scenario,
+                                 spec.clusters if spec.exposure == "none" else spec.exposure)
+
+    def default_label(self, spec: DesignSpec) -> str:
+        label = cluster_label("cluster", spec)
+        if spec.exposure == "neighbourhood":
+            label += "-exposure"
+        elif spec.estimator == "horvitz_thompson":
+            label += "-ht"
+        return label
+
+    def describe_unit(self, spec: DesignSpec) -> str:
+        return describe_clusters(spec.clusters)
+
+    def estimator_name(self, spec: DesignSpec) -> str:
+        family = "exposure" if spec.exposure == "neighbourhood" else "cluster"
+        method = "horvitz_thompson" if spec.estimator == "horvitz_thompson" else "hajek"
+        return f"{method}_{family}"
+
+    def prepare(self, market: MarketView, spec: DesignSpec) -> None:
+        market.clusters(spec.clusters, resolution=spec.resolution)
+        if spec.exposure == "neighbourhood":
+            market.neighbourhood_clusters(spec.clusters, resolution=spec.resolution)
+
+    def draw(self, market: MarketView, spec: DesignSpec, *, rng: np.random.Generator
+             ) -> AssignmentSchedule:
+        exposure = (market.neighbourhood_clusters(spec.clusters, resolution=spec.resolution)
+                    if spec.exposure == "neighbourhood" else None)
+        return draw_cluster_schedule(market.clusters(spec.clusters, resolution=spec.resolution),
+                                     market.n_ticks, share=spec.share,
+                                     randomization=spec.randomization, rng=rng,
+                                     exposure_units=exposure,
+                                     unit_kind="pool" if spec.clusters == "pools" else "cluster")

@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from spillgauge.designs.kind import DesignKind, MarketView
+from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_rollout_schedule"]
+__all__ = ["draw_rollout_schedule", "Rollout"]
 
 
 def draw_rollout_schedule(pool_of_user: np.ndarray, n_ticks: int, *, waves: int,
@@ -54,3 +57,38 @@ def draw_rollout_schedule(pool_of_user: np.ndarray, n_ticks: int, *, waves: int,
                               period_start_ticks=starts, n_ticks=n_ticks,
                               treated_probability=float(is_treated.mean()), unit_kind="pool",
                               randomization="complete")
+
+
+class Rollout(DesignKind):
+    """Pools switch on at random times in waves and stay on."""
+
+    name = "rollout"
+    summary = ("staggered rollout: pools switch on at random in waves after an all-control "
+               "first period; one group never switches")
+    keys = (
+        DesignKey(name="waves", type=int, default=4, minimum=1, maximum=50,
+                  doc="number of switch-on times (needs at least waves + 1 pools)"),
+    )
+    shown_keys = ("waves",)
+
+    def check(self, spec: DesignSpec, scenario: Scenario) -> None:
+        check(scenario.has_pools(spec.waves + 1), "pools.count",
+              f">= waves + 1 = {spec.waves + 1} for a staggered rollout ({spec.at})",
+              scenario.pools.count)
+        n_ticks = scenario.calendar.n_ticks
+        check(spec.waves + 1 <= n_ticks, f"{spec.at}.waves",
+              f"at most n_ticks - 1 = {n_ticks - 1}", spec.waves)
+
+    def default_label(self, spec: DesignSpec) -> str:
+        return f"rollout-{spec.waves}-waves"
+
+    def describe_unit(self, spec: DesignSpec) -> str:
+        return f"pool, staggered rollout in {spec.waves} waves"
+
+    def estimator_name(self, spec: DesignSpec) -> str:
+        return "difference_in_differences"
+
+    def draw(self, market: MarketView, spec: DesignSpec, *, rng: np.random.Generator
+             ) -> AssignmentSchedule:
+        return draw_rollout_schedule(market.pool_of_user, market.n_ticks, waves=spec.waves,
+                                     rng=rng)

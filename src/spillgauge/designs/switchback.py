@@ -5,10 +5,15 @@ from __future__ import annotations
 import numpy as np
 
 from spillgauge.designs._draw import draw_treated_units
+from spillgauge.designs.kind import DesignKind, MarketView, share_key
+from spillgauge.estimators.estimate import Estimate
+from spillgauge.panel import OutcomePanel
+from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_switchback_schedule"]
+__all__ = ["draw_switchback_schedule", "Switchback"]
 
 
 def draw_switchback_schedule(unit_of_user: np.ndarray, n_ticks: int, *, block_ticks: int,
@@ -49,3 +54,66 @@ def draw_switchback_schedule(unit_of_user: np.ndarray, n_ticks: int, *, block_ti
                               treated_probability=share,
                               unit_kind="market" if n_units == 1 else "pool",
                               randomization="bernoulli")
+
+
+class Switchback(DesignKind):
+    """The market (or each pool) alternates arms in time blocks; burn-in hours dropped."""
+
+    name = "switchback"
+    summary = "the market, or each pool, redraws its arm in every time block"
+    keys = (
+        share_key("probability that a unit is treated in a block"),
+        DesignKey(name="block_hours", type=int, default=24, minimum=1,
+                  doc="length of a time block in hours (a multiple of calendar.tick_hours, "
+                      "at most half the horizon)"),
+        DesignKey(name="burn_in_hours", type=int, default=0, minimum=0,
+                  doc="hours after each switch left out of the analysis (less than "
+                      "block_hours)"),
+        DesignKey(name="per", type=str, default="market", choices=("market", "pool"),
+                  doc="switch the whole market at once, or each pool on its own"),
+    )
+    shown_keys = ("block_hours", "per")
+    keeps_switch_profile = True
+
+    def check(self, spec: DesignSpec, scenario: Scenario) -> None:
+        check(spec.burn_in_hours < spec.block_hours, f"{spec.at}.burn_in_hours",
+              f"in [0, block_hours={spec.block_hours})", spec.burn_in_hours)
+        tick = scenario.calendar.tick_hours
+        for key in ("block_hours", "burn_in_hours"):
+            hours = getattr(spec, key)
+            check(hours % tick == 0, f"{spec.at}.{key}",
+                  f"a multiple of calendar.tick_hours={tick}", hours)
+        horizon = scenario.calendar.horizon_hours
+        check(spec.block_hours * 2 <= horizon, f"{spec.at}.block_hours",
+              f"at most half the horizon ({horizon // 2} hours)", spec.block_hours)
+
+    def default_label(self, spec: DesignSpec) -> str:
+        label = f"switchback-{spec.block_hours}h"
+        if spec.burn_in_hours:
+            label += f"-burn{spec.burn_in_hours}h"
+        if spec.per == "pool":
+            label += "-per-pool"
+        return label
+
+    def describe_unit(self, spec: DesignSpec) -> str:
+        where = "pool" if spec.per == "pool" else "market"
+        burn = f", {spec.burn_in_hours} h burn-in after a switch" if spec.burn_in_hours else ""
+        return f"{where} time block of {spec.block_hours} h{burn}"
+
+    def estimator_name(self, spec: DesignSpec) -> str:
+        return "switchback_difference"
+
+    def draw(self, market: MarketView, spec: DesignSpec, *, rng: np.random.Generator
+             ) -> AssignmentSchedule:
+        unit_of_user = (market.pool_of_user if spec.per == "pool"
+                        else np.zeros(market.n_users, dtype=np.int64))
+        return draw_switchback_schedule(unit_of_user, market.n_ticks,
+                                        block_ticks=spec.block_hours // market.tick_hours,
+                                        share=spec.share, rng=rng)
+
+    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                confidence: float, tick_hours: int) -> Estimate:
+        from spillgauge.estimators.switchback import switchback_difference
+
+        return switchback_difference(panel, schedule, confidence=confidence,
+                                     burn_in_ticks=spec.burn_in_hours // tick_hours)

@@ -1,15 +1,45 @@
-"""Estimate: the small result every estimator returns."""
+"""Estimate: the small result every estimator returns, with typed design-specific extras."""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["Estimate"]
+__all__ = ["Estimate", "InterferenceDiagnostic"]
+
+
+@dataclass(frozen=True, slots=True)
+class InterferenceDiagnostic:
+    """What a test of interference adds to its estimate (Saveski et al. 2017).
+
+    Parameters
+    ----------
+    user_arm_point, cluster_arm_point : float
+        The two halves' estimates of the effect (orders per user).
+    delta, delta_se : float
+        ``user_arm_point - cluster_arm_point`` and its standard error.
+    statistic : float
+        ``delta / delta_se``.
+    p_value : float
+        Two-sided p-value of "no interference".
+    rejects : bool
+        Whether the test rejects at the estimate's level.
+    rejects_chebyshev : bool
+        Whether ``|statistic| >= 1 / sqrt(alpha)`` (distribution-free, level at most alpha).
+    """
+
+    user_arm_point: float
+    cluster_arm_point: float
+    delta: float
+    delta_se: float
+    statistic: float
+    p_value: float
+    rejects: bool
+    rejects_chebyshev: bool
 
 
 @dataclass(frozen=True, slots=True)
 class Estimate:
-    """One design's estimate of the GTE in one world.
+    """One design's estimate of its estimand in one world.
 
     All values are on the GTE's scale: fulfilled orders per user over the horizon.
 
@@ -20,11 +50,20 @@ class Estimate:
     standard_error : float
         Its estimated standard error.
     ci_low, ci_high : float
-        Confidence interval at the requested level.
+        Confidence interval at level ``confidence``.
     method : str
         Full name of the estimator, e.g. ``"difference_in_means"``.
     n_units : int
         Number of units (users, clusters, blocks) the estimate used.
+    confidence : float
+        Level of the interval (NaN when the estimator did not say).
+    degrees_of_freedom : float
+        Degrees of freedom of the t reference distribution of the interval
+        (``inf`` for a normal interval; NaN when not stated).
+    p_value : float
+        Two-sided p-value of "no effect" (NaN when not computed).
+    diagnostic : InterferenceDiagnostic, optional
+        A test of interference's statistics.
     """
 
     point: float
@@ -33,3 +72,7 @@ class Estimate:
     ci_high: float
     method: str
     n_units: int = 0
+    confidence: float = float("nan")
+    degrees_of_freedom: float = float("nan")
+    p_value: float = float("nan")
+    diagnostic: InterferenceDiagnostic | None = None

@@ -15,7 +15,6 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
 from spillgauge.evaluation.metrics import DesignMetrics
-from spillgauge.scenario import DESIGN_KINDS
 
 __all__ = ["Candidate", "Recommendation", "is_trusted", "recommend"]
 
@@ -28,8 +27,9 @@ class Candidate:
     ----------
     label : str
         The design's label, unique in the study (e.g. ``"cluster-pools"``).
-    kind : {"user", "cluster", "switchback"}
-        The design's kind.
+    is_user_level : bool
+        Whether the design randomizes single users: other designs' spillover is
+        measured against it in the explanation.
     unit : str
         The randomization unit in words, e.g. ``"user"``, ``"pool"``,
         ``"graph community"``, ``"market time block of 24 h"``.
@@ -43,7 +43,7 @@ class Candidate:
     """
 
     label: str
-    kind: str
+    is_user_level: bool
     unit: str
     n_units: float
     metrics: DesignMetrics
@@ -52,8 +52,6 @@ class Candidate:
     def __post_init__(self) -> None:
         if not self.label:
             raise ValueError("Candidate.label must be a non-empty string; got ''")
-        if self.kind not in DESIGN_KINDS:
-            raise ValueError(f"Candidate.kind must be one of {DESIGN_KINDS}; got {self.kind!r}")
         if not (self.n_units >= 0 or math.isnan(self.n_units)):
             raise ValueError(f"Candidate.n_units must be >= 0 (or NaN); got {self.n_units}")
 
@@ -165,7 +163,7 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
     >>> from spillgauge.evaluation.metrics import design_metrics
     >>> m = design_metrics([0.9, 1.1, 1.0, 1.2], [0.1] * 4, [0.7, 0.9, 0.8, 1.0],
     ...                    [1.1, 1.3, 1.2, 1.4], [1.0] * 4)
-    >>> c = Candidate(label="user", kind="user", unit="user", n_units=1000.0, metrics=m)
+    >>> c = Candidate(label="user", is_user_level=True, unit="user", n_units=1000.0, metrics=m)
     >>> r = recommend([c], gte=1.0, gte_se=0.01)
     >>> r.label, r.is_trustworthy, r.ranking
     ('user', True, ('user',))
@@ -229,8 +227,8 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
         f"{_num(m.bias, sign=True)} orders per user ({_pct(m.relative_bias, sign=True)} of the "
         f"GTE of {gte_text}), SD {_num(m.sd)}, RMSE {_num(m.rmse)}, CI coverage "
         f"{m.coverage:.1%} against the nominal {1 - alpha:.0%}, and power {m.power:.0%}."]
-    user = next((c for c in ranked if c.kind == "user" and math.isfinite(c.metrics.rmse)), None)
-    if user is not None and chosen.kind != "user":
+    user = next((c for c in ranked if c.is_user_level and math.isfinite(c.metrics.rmse)), None)
+    if user is not None and not chosen.is_user_level:
         sentences += _versus_user(chosen, user, gte)
     else:
         runner_up = next((c for c in ranked if c is not chosen and math.isfinite(c.metrics.rmse)),

@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.evaluation.truth import ReplicationTruth, replication_truth
 from spillgauge.model.market import Market, build_market
@@ -119,11 +120,10 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
             result = estimate_design(spec, panel, schedule, confidence=confidence,
                                      tick_hours=scenario.calendar.tick_hours)
         test = {}
-        if spec.kind == "interference_test":  # its GTE estimate is the cluster half's
-            test = {"delta": result.delta, "delta_se": result.delta_se,
-                    "statistic": result.statistic, "rejects": float(result.rejects),
-                    "rejects_chebyshev": float(result.rejects_chebyshev)}
-            result = result.cluster_arm
+        if result.diagnostic is not None:
+            d = result.diagnostic
+            test = {"delta": d.delta, "delta_se": d.delta_se, "statistic": d.statistic,
+                    "rejects": float(d.rejects), "rejects_chebyshev": float(d.rejects_chebyshev)}
         estimates[spec.label] = {"estimate": result.point, "se": result.standard_error,
                                  "ci_low": result.ci_low, "ci_high": result.ci_high,
                                  "n_units": result.n_units,
@@ -140,7 +140,7 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
             traces["worlds"][spec.label] = _pool_traces(panel, pools)
     profiles = {}
     for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
-        if spec.kind == "switchback":
+        if kind_of(spec).keeps_switch_profile:
             profile = _switch_profile(panel, schedule)
             profiles[spec.label] = [x if math.isfinite(x) else None for x in profile.tolist()]
     traces["switch_profiles"] = profiles

@@ -18,13 +18,14 @@ from pathlib import Path
 
 import numpy as np
 
+from spillgauge.designs.registry import kind_of
 from spillgauge.evaluation.replication import ReplicationResult, run_replication
 from spillgauge.evaluation.resources import check_memory
 from spillgauge.evaluation.store import ResultsFolder, json_safe
 from spillgauge.evaluation.truth import TruthSummary, summarise_truth
 from spillgauge.model.market import build_market
-from spillgauge.scenario import DesignSpec, Scenario
-from spillgauge.scenario.reading import design_to_dict, scenario_to_dict
+from spillgauge.scenario import Scenario
+from spillgauge.scenario.reading import scenario_to_dict
 
 __all__ = ["StudyResult", "run_study", "run_truth", "summarise_study", "default_workers"]
 
@@ -78,6 +79,10 @@ class StudyResult:
         return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
                                            "ci_high", "n_units", "gte"])
 
+    def design_kind(self, label: str):
+        """Return the registered kind of the design with this label."""
+        return kind_of(self.scenario.design(label))
+
     def switch_profiles(self) -> dict:
         """Return each switchback's mean effect per user-tick by ticks since a switch."""
         out = {}
@@ -124,7 +129,7 @@ class StudyResult:
             entry = {"label": spec.label, "kind": spec.kind,
                      "estimator": estimator_name(spec), "unit": describe_unit(spec),
                      **json_safe(m.to_dict())}
-            if spec.kind == "interference_test":
+            if not kind_of(spec).is_recommendable:
                 entry["interference_test"] = json_safe(self.interference_test(spec.label))
             designs.append(entry)
         truth = json_safe(self.truth.to_dict())
@@ -159,9 +164,11 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
         metrics[spec.label] = m
         randomized = np.array([row.get("n_randomized", row["n_units"]) for row in rows],
                               dtype=float)
-        if spec.kind == "interference_test":
+        kind = kind_of(spec)
+        if not kind.is_recommendable:
             continue  # a diagnostic: it is reported, never recommended as a unit
-        candidates.append(Candidate(label=spec.label, kind=spec.kind, unit=describe_unit(spec),
+        candidates.append(Candidate(label=spec.label, is_user_level=kind.is_user_level,
+                                    unit=describe_unit(spec),
                                     n_units=float(np.nanmean(randomized)), metrics=m,
                                     params=_design_params(spec)))
     if candidates:
@@ -178,16 +185,11 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                        market_summary=market_summary or {})
 
 
-_SHOWN_ALWAYS = {"user": (), "cluster": ("clusters",), "switchback": ("block_hours", "per"),
-                 "rollout": ("waves",), "interference_test": ("clusters",)}
-
-
 def _design_params(spec) -> dict:
     """Return the design's parameters worth naming: those off their default, plus its identity."""
-    defaults = DesignSpec(kind=spec.kind)
-    return {k: v for k, v in design_to_dict(spec).items()
-            if k not in ("kind", "label")
-            and (k in _SHOWN_ALWAYS[spec.kind] or v != getattr(defaults, k))}
+    kind = kind_of(spec)
+    return {key.name: spec.params[key.name] for key in kind.keys
+            if key.name in kind.shown_keys or spec.params[key.name] != key.default}
 
 
 def _run_task(scenario: Scenario, seed: int, replication: int,

@@ -35,12 +35,12 @@ from spillgauge.evaluation._sweep_text import (
     split_key,
 )
 from spillgauge.evaluation.plan import describe_unit, estimator_name
+from spillgauge.designs.registry import KINDS, make_design_spec
 from spillgauge.evaluation.recommend import is_trusted
 from spillgauge.evaluation.store import dumps, write_atomic
 from spillgauge.evaluation.study import StudyResult, run_study
 from spillgauge.scenario import (
     Calendar,
-    DesignSpec,
     Effect,
     Graph,
     Pools,
@@ -48,7 +48,7 @@ from spillgauge.scenario import (
     Study,
     Users,
 )
-from spillgauge.scenario.reading import design_to_dict, scenario_to_dict
+from spillgauge.scenario.reading import scenario_to_dict, validate_scenario
 
 __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys", "run_sweep",
            "write_sweep"]
@@ -56,7 +56,9 @@ __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys",
 _SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
              "effect": Effect, "study": Study}
 _NOT_SWEPT = {"study.reps", "study.seed"}  # arguments of the sweep itself
-_DESIGN_FIELDS = ("share", "resolution", "block_hours", "burn_in_hours", "waves")
+# the numeric keys the design kinds declare, by name
+_DESIGN_FIELDS = {key.name: key.type for kind in KINDS.values() for key in kind.keys
+                  if key.is_numeric}
 _GRAPH_USES = {"small_world": {"mean_degree", "rewire_share"},
                "pool_blocks": {"mean_degree", "within_pool_share"},
                "communities": {"mean_degree", "community_count", "within_community_share"}}
@@ -90,7 +92,7 @@ def _field_type(key: str) -> type | None:
     if len(parts) == 2 and parts[0] in _SECTIONS and key not in _NOT_SWEPT:
         hint = typing.get_type_hints(_SECTIONS[parts[0]]).get(parts[1])
     elif len(parts) == 3 and parts[1] and parts[2] in _DESIGN_FIELDS:
-        hint = typing.get_type_hints(DesignSpec)[parts[2]]
+        hint = _DESIGN_FIELDS[parts[2]]
     else:
         return None
     return hint if hint in (int, float) else None
@@ -108,7 +110,7 @@ def valid_keys(scenario: Scenario | None = None) -> list[str]:
     if scenario is None:
         return keys + [f"design.<label>.{f}" for f in _DESIGN_FIELDS]
     for spec in scenario.designs:
-        keys += [f"design.{spec.label}.{f}" for f in design_to_dict(spec) if f in _DESIGN_FIELDS]
+        keys += [f"design.{spec.label}.{f}" for f in spec.params if f in _DESIGN_FIELDS]
     return keys
 
 
@@ -239,13 +241,15 @@ def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
             raise ScenarioError(key, "a design label of the scenario (one of "
                                 + ", ".join(labels) + ")", parts[1])
         spec = scenario.design(parts[1])
-        if parts[2] not in design_to_dict(spec) or parts[2] not in _DESIGN_FIELDS:
+        if parts[2] not in spec.params or parts[2] not in _DESIGN_FIELDS:
             raise ScenarioError(key, f"a numeric key of a {spec.kind} design (one of "
                                 + ", ".join(k for k in known if k.startswith(
                                     f"design.{spec.label}.")) + ")", parts[2])
-        new = dataclasses.replace(spec, **{parts[2]: _typed(value, _field_type(key), key)})
+        new = make_design_spec(spec.kind, {**spec.params,
+                                           parts[2]: _typed(value, _field_type(key), key)},
+                               label=spec.label, index=spec.index)
         designs = tuple(new if d is spec else d for d in scenario.designs)
-        return dataclasses.replace(scenario, designs=designs)
+        return validate_scenario(dataclasses.replace(scenario, designs=designs))
     if len(parts) != 2 or parts[0] not in _SECTIONS or parts[1] not in typing.get_type_hints(
             _SECTIONS[parts[0]]):
         raise ScenarioError(key, "a numeric scenario key (one of " + ", ".join(known) + ")",
@@ -260,7 +264,7 @@ def with_value(scenario: Scenario, key: str, value: float) -> Scenario:
         raise ScenarioError(key, f"a key the scenario uses ({reason})", value)
     section = getattr(scenario, parts[0])
     section = dataclasses.replace(section, **{parts[1]: _typed(value, kind, key)})
-    return dataclasses.replace(scenario, **{parts[0]: section})
+    return validate_scenario(dataclasses.replace(scenario, **{parts[0]: section}))
 
 
 def _typed(value: object, kind: type, key: str) -> int | float:

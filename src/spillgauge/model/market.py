@@ -66,6 +66,16 @@ class Market:
         """Home pool of each user, shape ``(n_users,)``."""
         return self.population.pool_of_user
 
+    @property
+    def n_ticks(self) -> int:
+        """Number of ticks in the horizon."""
+        return self.scenario.calendar.n_ticks
+
+    @property
+    def tick_hours(self) -> int:
+        """Length of one tick in hours."""
+        return self.scenario.calendar.tick_hours
+
     def degree(self) -> np.ndarray:
         """Return each user's number of graph neighbours, shape ``(n_users,)``."""
         return np.diff(self.adjacency.indptr)

@@ -246,11 +246,9 @@ def _traces(study) -> tuple[int, dict]:
 
 def _design_world(study, worlds: dict) -> str | None:
     """Return the design whose world is drawn: the user-level design if any, else the first."""
-    specs = [spec for spec in study.scenario.designs if spec.label in worlds]
-    for spec in specs:
-        if spec.kind == "user":
-            return spec.label
-    return specs[0].label if specs else None
+    labels = [spec.label for spec in study.scenario.designs if spec.label in worlds]
+    user_level = [label for label in labels if study.design_kind(label).is_user_level]
+    return (user_level or labels or [None])[0]
 
 
 def plot_stock(study, fig=None):

@@ -6,7 +6,6 @@ layer up because validating ``[[design]]`` tables needs the design kinds.
 """
 
 from spillgauge.scenario.config import (
-    DESIGN_KINDS,
     Calendar,
     DesignSpec,
     Effect,
@@ -17,5 +16,4 @@ from spillgauge.scenario.config import (
     Users,
 )
 
-__all__ = ["Calendar", "Users", "Pools", "Graph", "Effect", "Study", "DesignSpec", "Scenario",
-           "DESIGN_KINDS"]
+__all__ = ["Calendar", "Users", "Pools", "Graph", "Effect", "Study", "DesignSpec", "Scenario"]

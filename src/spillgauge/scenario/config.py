@@ -12,6 +12,7 @@ import math
 from dataclasses import dataclass, field
 
 from spillgauge.errors import ScenarioError
+from spillgauge.scenario.keys import check as _check
 
 __all__ = [
     "Calendar",
@@ -22,19 +23,12 @@ __all__ = [
     "Study",
     "DesignSpec",
     "Scenario",
-    "DESIGN_KINDS",
-    "KIND_KEYS",
-    "default_designs",
 ]
 
-DESIGN_KINDS = ("user", "cluster", "switchback", "interference_test", "rollout")
 _STOCKOUT_RULES = ("lost", "substitute")
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
 
 
-def _check(condition: bool, key: str, expected: str, got: object) -> None:
-    if not condition:
-        raise ScenarioError(key, expected, got)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -187,105 +181,46 @@ class Study:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class DesignSpec:
-    """One ``[[design]]`` table: a randomization rule and the estimator that analyses it.
+    """One ``[[design]]`` table: a design kind, its label and its values.
 
-    Keys by kind (others are refused):
+    The keys each kind accepts, their defaults and allowed values are declared
+    by the kind (see :mod:`spillgauge.designs`); a spec built by
+    :func:`spillgauge.designs.make_design_spec` or read from a scenario file
+    holds every declared key. Values are read as attributes (``spec.share``).
 
-    - ``user``: ``share``, ``randomization`` (``"complete"`` or ``"bernoulli"``), ``adjust``.
-    - ``cluster``: ``clusters`` (``"pools"``, ``"graph"``, ``"pools+graph"``),
-      ``resolution``, ``share``, ``randomization``, ``estimator``
-      (``"hajek"`` or ``"horvitz_thompson"``), ``exposure`` (``"none"`` or
-      ``"neighbourhood"``).
-    - ``switchback``: ``block_hours``, ``burn_in_hours``, ``per`` (``"market"`` or
-      ``"pool"``), ``share``.
-    - ``rollout``: ``waves``: pools switch on at random in that many waves after
-      an all-control first period; one group of pools never switches.
-    - ``interference_test``: ``clusters``, ``resolution``. Half the clusters run a
-      user-level experiment, the other half a cluster-level one, and the two
-      estimates are compared (Saveski et al. 2017).
+    Parameters
+    ----------
+    kind : str
+        The design kind, e.g. ``"cluster"``.
+    label : str
+        Unique label of the design in its scenario.
+    values : tuple of (str, object) pairs
+        Every declared key of the kind with its value, in declaration order.
+    index : int
+        Position of the table in the scenario file (names it in error messages).
     """
 
     kind: str
-    label: str = ""
-    share: float = 0.5
-    randomization: str = "complete"
-    adjust: bool = False
-    clusters: str = "pools"
-    resolution: float = 1.0
-    estimator: str = "hajek"
-    exposure: str = "none"
-    block_hours: int = 24
-    burn_in_hours: int = 0
-    per: str = "market"
-    waves: int = 4
+    label: str
+    values: tuple[tuple[str, object], ...] = ()
     index: int = 0
 
-    def __post_init__(self) -> None:
-        at = f"design[{self.index}]"
-        _check(self.kind in DESIGN_KINDS, f"{at}.kind",
-               "one of " + ", ".join(map(repr, DESIGN_KINDS)), self.kind)
-        _check(0 < self.share < 1, f"{at}.share", "in (0, 1)", self.share)
-        _check(self.randomization in ("complete", "bernoulli"), f"{at}.randomization",
-               "'complete' or 'bernoulli'", self.randomization)
-        _check(self.clusters in ("pools", "graph", "pools+graph"), f"{at}.clusters",
-               "'pools', 'graph' or 'pools+graph'", self.clusters)
-        _check(0 < self.resolution <= 100, f"{at}.resolution", "in (0, 100]", self.resolution)
-        _check(self.estimator in ("hajek", "horvitz_thompson"), f"{at}.estimator",
-               "'hajek' or 'horvitz_thompson'", self.estimator)
-        _check(self.exposure in ("none", "neighbourhood"), f"{at}.exposure",
-               "'none' or 'neighbourhood'", self.exposure)
-        _check(self.block_hours >= 1, f"{at}.block_hours", "an int >= 1", self.block_hours)
-        _check(0 <= self.burn_in_hours < self.block_hours, f"{at}.burn_in_hours",
-               f"in [0, block_hours={self.block_hours})", self.burn_in_hours)
-        _check(self.per in ("market", "pool"), f"{at}.per", "'market' or 'pool'", self.per)
-        _check(1 <= self.waves <= 50, f"{at}.waves", "an int in [1, 50]", self.waves)
-        if not self.label:
-            object.__setattr__(self, "label", self.default_label())
+    def __getattr__(self, name: str) -> object:
+        for key, value in object.__getattribute__(self, "values"):
+            if key == name:
+                return value
+        raise AttributeError(f"a {object.__getattribute__(self, 'kind')!r} design has no "
+                             f"key {name!r}")
 
-    def default_label(self) -> str:
-        """Return a readable label built from the design's parameters."""
-        if self.kind == "user":
-            return "user-cuped" if self.adjust else "user"
-        if self.kind == "cluster":
-            label = f"cluster-{self.clusters.replace('+', '-')}"
-            if self.clusters != "pools" and self.resolution != 1.0:
-                label += f"-r{self.resolution:g}"
-            if self.exposure == "neighbourhood":
-                label += "-exposure"
-            elif self.estimator == "horvitz_thompson":
-                label += "-ht"
-            return label
-        if self.kind == "rollout":
-            return f"rollout-{self.waves}-waves"
-        if self.kind == "interference_test":
-            label = f"interference-test-{self.clusters.replace('+', '-')}"
-            if self.clusters != "pools" and self.resolution != 1.0:
-                label += f"-r{self.resolution:g}"
-            return label
-        label = f"switchback-{self.block_hours}h"
-        if self.burn_in_hours:
-            label += f"-burn{self.burn_in_hours}h"
-        if self.per == "pool":
-            label += "-per-pool"
-        return label
+    @property
+    def params(self) -> dict[str, object]:
+        """Return the declared keys and their values."""
+        return dict(self.values)
 
-
-KIND_KEYS = {
-    "user": {"kind", "label", "share", "randomization", "adjust"},
-    "cluster": {"kind", "label", "share", "randomization", "clusters", "resolution",
-                "estimator", "exposure"},
-    "switchback": {"kind", "label", "share", "block_hours", "burn_in_hours", "per"},
-    "interference_test": {"kind", "label", "clusters", "resolution"},
-    "rollout": {"kind", "label", "waves"},
-}
-
-
-def default_designs() -> tuple[DesignSpec, ...]:
-    return (
-        DesignSpec(kind="user", index=0),
-        DesignSpec(kind="cluster", clusters="pools", index=1),
-        DesignSpec(kind="switchback", block_hours=24, index=2),
-    )
+    @property
+    def at(self) -> str:
+        """Return the table's name in error messages, e.g. ``"design[2]"``."""
+        return f"design[{self.index}]"
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -300,7 +235,7 @@ class Scenario:
     graph: Graph = field(default_factory=Graph)
     effect: Effect = field(default_factory=Effect)
     study: Study = field(default_factory=Study)
-    designs: tuple[DesignSpec, ...] = field(default_factory=default_designs)
+    designs: tuple[DesignSpec, ...] = ()
     source: str | None = None
 
     def __post_init__(self) -> None:
@@ -328,31 +263,8 @@ class Scenario:
                    spec.label)
             _check(all(c.isalnum() or c in "-_." for c in spec.label), f"{at}.label",
                    "letters, digits, '-', '_' or '.'", spec.label)
-            if spec.kind == "switchback":
-                for key in ("block_hours", "burn_in_hours"):
-                    hours = getattr(spec, key)
-                    _check(hours % tick == 0, f"{at}.{key}",
-                           f"a multiple of calendar.tick_hours={tick}", hours)
-                _check(spec.block_hours * 2 <= self.calendar.horizon_hours,
-                       f"{at}.block_hours",
-                       f"at most half the horizon ({self.calendar.horizon_hours // 2} hours)",
-                       spec.block_hours)
-            if spec.kind == "rollout":
-                _check(self._has_pools(spec.waves + 1), "pools.count",
-                       f">= waves + 1 = {spec.waves + 1} for a staggered rollout ({at})",
-                       self.pools.count)
-                _check((spec.waves + 1) <= self.calendar.n_ticks, f"{at}.waves",
-                       f"at most n_ticks - 1 = {self.calendar.n_ticks - 1}", spec.waves)
-            if spec.kind == "interference_test" and spec.clusters == "pools":
-                _check(self._has_pools(4), "pools.count",
-                       f">= 4 for a test of interference on pools ({at})", self.pools.count)
-            if spec.kind in ("cluster", "interference_test") and spec.clusters != "pools" or \
-                    spec.exposure != "none":
-                _check(self.graph.model != "none", f"{at}.clusters",
-                       "'pools' when graph.model = 'none' (graph clusters need a graph)",
-                       spec.clusters if spec.exposure == "none" else spec.exposure)
 
-    def _has_pools(self, n_pools: int) -> bool:
+    def has_pools(self, n_pools: int) -> bool:
         """Whether the market has at least ``n_pools`` pools (files are checked when read)."""
         return self.users.file is not None or self.pools.file is not None or \
             self.pools.count >= n_pools

@@ -8,16 +8,19 @@ the dotted key.
 from __future__ import annotations
 
 import dataclasses
-import math
 import tomllib
-import types
 import typing
 from pathlib import Path
 
+from spillgauge.designs.registry import (
+    DESIGN_KINDS,
+    check_design,
+    default_designs,
+    design_kind,
+    make_design_spec,
+)
 from spillgauge.errors import ScenarioError
 from spillgauge.scenario.config import (
-    DESIGN_KINDS,
-    KIND_KEYS,
     Calendar,
     DesignSpec,
     Effect,
@@ -26,10 +29,11 @@ from spillgauge.scenario.config import (
     Scenario,
     Study,
     Users,
-    default_designs,
 )
+from spillgauge.scenario.keys import coerce
 
-__all__ = ["load_scenario", "parse_scenario", "scenario_to_dict", "design_to_dict"]
+__all__ = ["load_scenario", "parse_scenario", "validate_scenario", "scenario_to_dict",
+           "design_to_dict"]
 
 # ---------------------------------------------------------------------------
 # Reading TOML tables into the dataclasses
@@ -39,49 +43,46 @@ _SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Grap
 _TOP_KEYS = {"name", "description", *_SECTIONS, "design"}
 
 
-def _type_name(tp: object) -> str:
-    names = {int: "an int", float: "a number", str: "a string", bool: "true or false"}
-    return names.get(tp, str(tp))
-
-
-def _coerce(value: object, annotation: object, key: str) -> object:
-    """Check one TOML value against a field annotation; ints are accepted for floats."""
-    allowed = typing.get_args(annotation) if isinstance(annotation, types.UnionType) else (
-        annotation,)
-    if value is None and type(None) in allowed:
-        return None
-    for tp in allowed:
-        if tp is bool and isinstance(value, bool):
-            return value
-        if tp is int and isinstance(value, int) and not isinstance(value, bool):
-            return value
-        if tp is float and isinstance(value, (int, float)) and not isinstance(value, bool):
-            if not math.isfinite(float(value)):
-                raise ScenarioError(key, "a finite number", value)
-            return float(value)
-        if tp is str and isinstance(value, str):
-            return value
-    expected = " or ".join(_type_name(tp) for tp in allowed if tp is not type(None))
-    raise ScenarioError(key, expected, value)
-
-
-def _build(cls: type, table: object, prefix: str, base_dir: Path | None,
-           allowed: set[str] | None = None, **extra: object) -> object:
+def _build(cls: type, table: object, prefix: str, base_dir: Path | None) -> object:
     if not isinstance(table, dict):
         raise ScenarioError(prefix, "a table", table)
     hints = typing.get_type_hints(cls)
-    names = allowed if allowed is not None else {f.name for f in dataclasses.fields(cls)}
+    names = {f.name for f in dataclasses.fields(cls)}
     kwargs: dict[str, object] = {}
     for key, value in table.items():
         dotted = f"{prefix}.{key}"
-        if key not in names or key == "index":
-            raise ScenarioError(dotted, "a known key (one of " + ", ".join(
-                sorted(names - {"index"})) + ")", key)
-        value = _coerce(value, hints[key], dotted)
+        if key not in names:
+            raise ScenarioError(dotted, "a known key (one of " + ", ".join(sorted(names)) + ")",
+                                key)
+        value = coerce(value, hints[key], dotted)
         if key == "file" and value is not None:
             value = _resolve_file(value, dotted, base_dir)
         kwargs[key] = value
-    return cls(**kwargs, **extra)
+    return cls(**kwargs)
+
+
+def _design(table: object, index: int) -> DesignSpec:
+    at = f"design[{index}]"
+    if not isinstance(table, dict):
+        raise ScenarioError(at, "a table", table)
+    if "kind" not in table:
+        raise ScenarioError(f"{at}.kind", "present: one of " + ", ".join(
+            map(repr, DESIGN_KINDS)), None)
+    design_kind(table["kind"], field=f"{at}.kind")
+    values = {k: v for k, v in table.items() if k not in ("kind", "label")}
+    return make_design_spec(table["kind"], values, label=table.get("label", ""), index=index)
+
+
+def validate_scenario(scenario: Scenario) -> Scenario:
+    """Check every design against its scenario and return the scenario unchanged.
+
+    Run by :func:`parse_scenario`; call it again after changing a scenario with
+    :func:`dataclasses.replace` (the sections re-validate themselves, the designs'
+    checks against the market need this).
+    """
+    for spec in scenario.designs:
+        check_design(spec, scenario)
+    return scenario
 
 
 def _resolve_file(value: str, key: str, base_dir: Path | None) -> str:
@@ -127,8 +128,8 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
                                 + ", ".join(sorted(_TOP_KEYS)) + ")", key)
     if "name" not in data:
         raise ScenarioError("name", "present (a short name for the scenario)", None)
-    name = _coerce(data["name"], str, "name")
-    description = _coerce(data.get("description", ""), str, "description")
+    name = coerce(data["name"], str, "name")
+    description = coerce(data.get("description", ""), str, "description")
     sections = {key: _build(cls, data.get(key, {}), key, base) for key, cls in _SECTIONS.items()}
     users = data.get("users", {})
     if isinstance(users, dict) and "file" in users:
@@ -142,22 +143,9 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
     else:
         if not isinstance(raw_designs, list):
             raise ScenarioError("design", "an array of [[design]] tables", raw_designs)
-        built = []
-        for i, table in enumerate(raw_designs):
-            at = f"design[{i}]"
-            if not isinstance(table, dict):
-                raise ScenarioError(at, "a table", table)
-            if "kind" not in table:
-                raise ScenarioError(f"{at}.kind", "present: one of " + ", ".join(
-                    map(repr, DESIGN_KINDS)), None)
-            kind = table["kind"]
-            if not isinstance(kind, str) or kind not in KIND_KEYS:
-                raise ScenarioError(f"{at}.kind", "one of " + ", ".join(
-                    map(repr, DESIGN_KINDS)), kind)
-            built.append(_build(DesignSpec, table, at, base, allowed=KIND_KEYS[kind], index=i))
-        designs = tuple(built)
-    return Scenario(name=name, description=description, designs=designs, source=source,
-                    **sections)
+        designs = tuple(_design(table, i) for i, table in enumerate(raw_designs))
+    return validate_scenario(Scenario(name=name, description=description, designs=designs,
+                                      source=source, **sections))
 
 
 def load_scenario(path: str | Path) -> Scenario:
@@ -214,9 +202,5 @@ def scenario_to_dict(scenario: Scenario) -> dict:
 
 
 def design_to_dict(spec: DesignSpec) -> dict:
-    """Return a design's keys (those its kind accepts) as plain data."""
-    return {k: getattr(spec, k) for k in sorted(KIND_KEYS[spec.kind], key=_KEY_ORDER.index)}
-
-
-_KEY_ORDER = [f.name for f in dataclasses.fields(DesignSpec)]
-
+    """Return a design's table (kind, label and every key its kind declares) as plain data."""
+    return {"kind": spec.kind, "label": spec.label, **spec.params}

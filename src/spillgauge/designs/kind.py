@@ -1,0 +1,174 @@
+"""What a design kind declares: its keys, how it draws a schedule and how it is analysed.
+
+Every design kind is one module holding one subclass of :class:`DesignKind`
+and one line in :mod:`spillgauge.designs.registry`. The rest of spillgauge
+(scenario reading, the study, the recommendation, the report) asks the
+registry and never branches on a kind's name.
+
+A kind draws from a :class:`MarketView`, the few questions a design may ask of
+a market (how many users, each user's pool, cluster labels, neighbourhood
+incidences), never the market itself.
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar, Protocol
+
+import numpy as np
+from scipy import sparse
+
+from spillgauge.estimators.estimate import Estimate
+from spillgauge.panel import OutcomePanel
+from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.keys import DesignKey, check
+from spillgauge.schedule import AssignmentSchedule
+
+__all__ = ["DesignKind", "MarketView", "CLUSTER_SOURCES", "cluster_source_key",
+           "resolution_key", "share_key", "randomization_key", "describe_clusters",
+           "cluster_label", "check_graph_clusters"]
+
+
+class MarketView(Protocol):
+    """What a design may ask of a market (:class:`~spillgauge.model.market.Market` answers)."""
+
+    @property
+    def n_users(self) -> int: ...
+
+    @property
+    def n_ticks(self) -> int: ...
+
+    @property
+    def tick_hours(self) -> int: ...
+
+    @property
+    def pool_of_user(self) -> np.ndarray: ...
+
+    def clusters(self, source: str = "pools", *, resolution: float = 1.0) -> np.ndarray: ...
+
+    def neighbourhood_clusters(self, source: str = "pools", *, resolution: float = 1.0
+                               ) -> sparse.csr_array: ...
+
+
+class DesignKind:
+    """Base class of a design kind; subclasses fill the class attributes and methods.
+
+    Class attributes
+    ----------------
+    name : str
+        The ``kind`` value in a ``[[design]]`` table.
+    summary : str
+        One line for the key reference.
+    keys : tuple of DesignKey
+        The keys the kind accepts besides ``kind`` and ``label``.
+    shown_keys : tuple of str
+        Keys always named when the design is described (others only when off their
+        default).
+    estimand : str
+        What the design's estimate targets (``"gte"`` for randomized designs).
+    is_recommendable : bool
+        Whether the recommendation may choose it (a diagnostic may not).
+    is_user_level : bool
+        Whether units are single users: the recommendation measures other designs'
+        spillover against it.
+    keeps_switch_profile : bool
+        Whether the report draws its effect by ticks since a switch.
+    """
+
+    name: ClassVar[str] = ""
+    summary: ClassVar[str] = ""
+    keys: ClassVar[tuple[DesignKey, ...]] = ()
+    shown_keys: ClassVar[tuple[str, ...]] = ()
+    estimand: ClassVar[str] = "gte"
+    is_recommendable: ClassVar[bool] = True
+    is_user_level: ClassVar[bool] = False
+    keeps_switch_profile: ClassVar[bool] = False
+
+    def check(self, spec: DesignSpec, scenario: Scenario) -> None:
+        """Raise :class:`~spillgauge.errors.ScenarioError` when the spec cannot run in the scenario.
+
+        The declared keys are already valid one by one; this checks them against
+        each other and against the market (tick length, pool count, graph).
+        """
+
+    def default_label(self, spec: DesignSpec) -> str:
+        """Return a readable label built from the design's values."""
+        return self.name
+
+    def describe_unit(self, spec: DesignSpec) -> str:
+        """Return the randomization unit in words, e.g. ``"stock pool"``."""
+        raise NotImplementedError
+
+    def estimator_name(self, spec: DesignSpec) -> str:
+        """Return the full name of the estimator that analyses the design."""
+        raise NotImplementedError
+
+    def prepare(self, market: MarketView, spec: DesignSpec) -> None:
+        """Build what the design needs from the market once (clusters), before workers start."""
+
+    def draw(self, market: MarketView, spec: DesignSpec, *, rng: np.random.Generator
+             ) -> AssignmentSchedule:
+        """Draw one assignment schedule of the design in a market."""
+        raise NotImplementedError
+
+    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                confidence: float, tick_hours: int) -> Estimate:
+        """Analyse the design's world with its estimator and return the :class:`Estimate`."""
+        from spillgauge import estimators
+
+        function = getattr(estimators, self.estimator_name(spec))
+        return function(panel, schedule, confidence=confidence)
+
+
+# Keys and words shared by the kinds that randomize clusters.
+CLUSTER_SOURCES = ("pools", "graph", "pools+graph")
+
+
+def cluster_source_key() -> DesignKey:
+    """Return the declaration of ``clusters``: where the clusters come from."""
+    return DesignKey(name="clusters", type=str, default="pools", choices=CLUSTER_SOURCES,
+                     doc="stock pools, graph communities (Leiden/Louvain on the social graph), "
+                         "or pools split by communities")
+
+
+def resolution_key() -> DesignKey:
+    """Return the declaration of ``resolution``: the community detection's resolution."""
+    return DesignKey(name="resolution", type=float, default=1.0, minimum=0, maximum=100,
+                     exclusive_minimum=True,
+                     doc="resolution of graph community detection (larger: more, smaller "
+                         "clusters)")
+
+
+def share_key(doc: str = "share of units treated") -> DesignKey:
+    """Return the declaration of ``share``: the treated share."""
+    return DesignKey(name="share", type=float, default=0.5, minimum=0, maximum=1,
+                     exclusive_minimum=True, exclusive_maximum=True, doc=doc)
+
+
+def randomization_key() -> DesignKey:
+    """Return the declaration of ``randomization``: complete or Bernoulli."""
+    return DesignKey(name="randomization", type=str, default="complete",
+                     choices=("complete", "bernoulli"),
+                     doc="exactly round(share x units) treated, or each unit independently")
+
+
+def describe_clusters(source: str, *, plural: bool = False) -> str:
+    """Return a cluster source in words, e.g. ``"graph community"``."""
+    if plural:
+        return {"pools": "stock pools", "graph": "graph communities",
+                "pools+graph": "pools with their communities"}[source]
+    return {"pools": "stock pool", "graph": "graph community",
+            "pools+graph": "pool with its communities"}[source]
+
+
+def cluster_label(prefix: str, spec: DesignSpec) -> str:
+    """Return ``prefix-<source>[-r<resolution>]``, the start of a cluster design's label."""
+    label = f"{prefix}-{spec.clusters.replace('+', '-')}"
+    if spec.clusters != "pools" and spec.resolution != 1.0:
+        label += f"-r{spec.resolution:g}"
+    return label
+
+
+def check_graph_clusters(spec: DesignSpec, scenario: Scenario, value: object) -> None:
+    """Refuse graph clusters (or exposure) when the scenario has no graph."""
+    check(scenario.graph.model != "none", f"{spec.at}.clusters",
+          "'pools' when graph.model = 'none' (graph clusters need a graph)", value)
