@@ -134,7 +134,7 @@ def test_scenario_error_survives_pickling():
 
 
 def test_interference_test_needs_four_clusters():
-    from spillgauge.evaluation.study import run_study
+    from spillgauge.study.run import run_study
 
     scenario = _parse(users={"count": 12}, pools={"count": 2}, calendar={"days": 2},
                       graph={"model": "communities", "community_count": 2, "mean_degree": 4,

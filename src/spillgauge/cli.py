@@ -60,7 +60,7 @@ def _load(path: str):
 
 
 def _cmd_check(args) -> int:
-    from spillgauge.evaluation.market_summary import summarise_market
+    from spillgauge.study.market_summary import summarise_market
     from spillgauge.model.market import build_market
     from spillgauge.report.text import market_text
 
@@ -71,7 +71,7 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_truth(args) -> int:
-    from spillgauge.evaluation.study import run_truth
+    from spillgauge.study.run import run_truth
     from spillgauge.report.text import truth_text
 
     scenario = _load(args.scenario)
@@ -80,7 +80,7 @@ def _cmd_truth(args) -> int:
                       scheduler=args.scheduler, progress=bar)
     seed = scenario.study.seed if args.seed is None else args.seed
     if args.json:
-        from spillgauge.evaluation.store import dumps
+        from spillgauge.files import dumps
 
         print(dumps({"scenario": scenario.name, "seed": seed, **truth.to_dict()}))
     else:
@@ -89,7 +89,7 @@ def _cmd_truth(args) -> int:
 
 
 def _cmd_run(args) -> int:
-    from spillgauge.evaluation.study import run_study
+    from spillgauge.study.run import run_study
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
 
@@ -129,7 +129,7 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_report(args) -> int:
-    from spillgauge.evaluation.store import load_study
+    from spillgauge.study.store import load_study
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
 
@@ -163,8 +163,8 @@ def _cmd_new(args) -> int:
 
 
 def _cmd_sweep(args) -> int:
-    from spillgauge.evaluation.store import write_atomic
-    from spillgauge.evaluation.sweep import parse_vary, run_sweep, write_sweep
+    from spillgauge.files import write_atomic
+    from spillgauge.sweep.sweep import parse_vary, run_sweep, write_sweep
     from spillgauge.report.sweep_figures import render_sweep_html, save_sweep_figures
 
     scenario = _load(args.scenario)

@@ -6,7 +6,8 @@ import dataclasses
 
 import pytest
 
-from spillgauge.evaluation.study import run_study, summarise_study
+from spillgauge.study.result import summarise_study
+from spillgauge.study.run import run_study
 from spillgauge.report import write_report
 from tests.conftest import make_scenario
 

@@ -13,8 +13,8 @@ from html.parser import HTMLParser
 
 import pytest
 
-from spillgauge.evaluation.recommend import Recommendation
-from spillgauge.evaluation.store import load_study
+from spillgauge.statistics.recommend import Recommendation
+from spillgauge.study.store import load_study
 from spillgauge.report import write_report
 from spillgauge.report.html import CAUTION, SECTION_IDS, render_html
 

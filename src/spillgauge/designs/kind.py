@@ -113,7 +113,7 @@ class DesignKind:
     def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
                 confidence: float, tick_hours: int) -> Estimate:
         """Analyse the design's world with its estimator and return the :class:`Estimate`."""
-        from spillgauge import estimators
+        import spillgauge.estimators as estimators
 
         function = getattr(estimators, self.estimator_name(spec))
         return function(panel, schedule, confidence=confidence)

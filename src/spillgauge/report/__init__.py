@@ -31,7 +31,7 @@ def write_report(study, out: str | Path) -> list[str]:
         ``replications.csv`` when the study's results folder holds them, then the
         files written here.
     """
-    from spillgauge.evaluation.store import write_atomic
+    from spillgauge.files import write_atomic
     from spillgauge.report.figures import save_figures
     from spillgauge.report.html import render_html
 

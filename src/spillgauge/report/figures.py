@@ -247,7 +247,7 @@ def _traces(study) -> tuple[int, dict]:
 def _design_world(study, worlds: dict) -> str | None:
     """Return the design whose world is drawn: the user-level design if any, else the first."""
     labels = [spec.label for spec in study.scenario.designs if spec.label in worlds]
-    user_level = [label for label in labels if study.design_kind(label).is_user_level]
+    user_level = [label for label in labels if study.designs[label].is_user_level]
     return (user_level or labels or [None])[0]
 
 
@@ -403,7 +403,7 @@ def _draw(study, name: str):
 
 def _save_png(fig, path: Path) -> None:
     """Write a figure as PNG atomically (a temporary file in the same folder, then a rename)."""
-    from spillgauge.evaluation.store import write_atomic_with
+    from spillgauge.files import write_atomic_with
 
     write_atomic_with(path, lambda stream: fig.savefig(stream, format="png", dpi=FIGURE_DPI))
 
@@ -428,7 +428,7 @@ def save_figures(study, out_dir: str | Path) -> list[Path]:
     Examples
     --------
     >>> import tempfile
-    >>> from spillgauge.evaluation.study import run_study
+    >>> from spillgauge.study.run import run_study
     >>> from spillgauge.scenario.reading import parse_scenario
     >>> scenario = parse_scenario({"name": "doc", "calendar": {"days": 2},
     ...     "users": {"count": 200}, "pools": {"count": 4}, "study": {"reps": 2},

@@ -12,6 +12,8 @@ import base64
 import html
 from pathlib import Path
 
+from spillgauge.formatting import format_quantity
+
 __all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "render_html"]
 
 SECTION_IDS = ("scenario", "market", "truth", "designs", "recommendation", "figures",
@@ -90,23 +92,13 @@ def _e(value: object) -> str:
     return html.escape(str(value), quote=True)
 
 
-def _number(value: object, template: str = "{:.4g}") -> str:
-    if value is None:
-        return "n/a"
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        return str(value)
-    if isinstance(value, int):
-        return f"{value:,}"
-    return template.format(value) if value == value else "n/a"
-
-
 def _plain(value: object) -> str:
     """Return a settings or market value in words (nested dicts as ``key value`` pairs)."""
     if isinstance(value, dict):
         return ", ".join(f"{k} {_plain(v)}" for k, v in value.items())
     if isinstance(value, (list, tuple)):
         return ", ".join(_plain(v) for v in value)
-    return _number(value)
+    return format_quantity(value)
 
 
 def _pairs(rows: list[tuple[str, object]]) -> str:
@@ -167,15 +159,15 @@ def _market(summary: dict) -> str:
 def _truth(summary: dict) -> str:
     t = summary["truth"]
     se = t.get("gte_se")
-    lead = (f'<p class="verdict">True GTE {_e(_number(t.get("gte")))} fulfilled orders per '
-            "user over the horizon" + (f" (Monte Carlo SE {_e(_number(se))})" if se is not None
+    lead = (f'<p class="verdict">True GTE {_e(format_quantity(t.get("gte")))} fulfilled orders per '
+            "user over the horizon" + (f" (Monte Carlo SE {_e(format_quantity(se))})" if se is not None
                                        else "") + f", over {t['reps']:,} replications.</p>")
     rows = [("fulfilled orders per user", "control_mean", "treated_mean", "{:.4g}"),
             ("demanded orders per user", "control_demanded", "treated_demanded", "{:.4g}"),
             ("fill rate", "control_fill_rate", "treated_fill_rate", "{:.2%}"),
             ("lost-order share", "control_lost_share", "treated_lost_share", "{:.2%}")]
     table = _grid(["", "all control (no one treated)", "all treated (everyone)"],
-                  [[_e(name), _e(_number(t.get(c), f)), _e(_number(t.get(tr), f))]
+                  [[_e(name), _e(format_quantity(t.get(c), f)), _e(format_quantity(t.get(tr), f))]
                    for name, c, tr, f in rows])
     note = ("<p>Both worlds run on the same random numbers in each replication, so the GTE "
             "is their difference, free of sampling noise between the two.</p>")
@@ -183,11 +175,11 @@ def _truth(summary: dict) -> str:
 
 
 def _cell(design: dict, key: str, template: str, se_key: str | None) -> str:
-    value = _e(_number(design.get(key), template))
+    value = _e(format_quantity(design.get(key), template))
     se = design.get(se_key) if se_key else None
     if se is not None and design.get(key) is not None:
         shown = template.replace("+", "")
-        value += f' <span class="se">\u00b1{_e(_number(se, shown))}</span>'
+        value += f' <span class="se">\u00b1{_e(format_quantity(se, shown))}</span>'
     return value
 
 
@@ -215,7 +207,7 @@ def _designs(study, summary: dict) -> str:
     return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
 
 
-def _recommendation(summary: dict) -> str:
+def _recommendation(study, summary: dict) -> str:
     rec = summary["recommendation"]
     if rec["label"] is None:
         verdict = "No design can be trusted in this market."
@@ -227,7 +219,7 @@ def _recommendation(summary: dict) -> str:
                f"<p>{_e(rec['reason'])}</p></div>")
     from spillgauge.report.text import interference_lines
 
-    content += "".join(f"<p>{_e(line.strip())}</p>" for line in interference_lines(summary))
+    content += "".join(f"<p>{_e(line.strip())}</p>" for line in interference_lines(study))
     return _section("recommendation", "Recommendation", content)
 
 
@@ -250,7 +242,7 @@ def _glance(summary: dict) -> str:
     verdict = (f"Recommended: {rec['label']}" if rec["label"] is not None
                else "No design can be trusted")
     return (f'<p class="box">{_e(verdict)}; true GTE '
-            f"{_e(_number(summary['truth'].get('gte')))} fulfilled orders per user. "
+            f"{_e(format_quantity(summary['truth'].get('gte')))} fulfilled orders per user. "
             '<a href="#recommendation">Why</a></p>')
 
 
@@ -272,7 +264,7 @@ def render_html(study, figures: dict) -> str:
 
     Examples
     --------
-    >>> from spillgauge.evaluation.study import run_study
+    >>> from spillgauge.study.run import run_study
     >>> from spillgauge.scenario.reading import parse_scenario
     >>> scenario = parse_scenario({"name": "doc", "calendar": {"days": 2},
     ...     "users": {"count": 200}, "pools": {"count": 4}, "study": {"reps": 2},
@@ -285,7 +277,7 @@ def render_html(study, figures: dict) -> str:
     title = f"{summary['scenario']}: which randomization unit?"
     nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS)
     body = "".join([_scenario(study, summary), _market(summary), _truth(summary),
-                    _designs(study, summary), _recommendation(summary), _figures(figures),
+                    _designs(study, summary), _recommendation(study, summary), _figures(figures),
                     _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
     return ("<!DOCTYPE html>\n"
             '<html lang="en"><head><meta charset="utf-8">'

@@ -1,6 +1,6 @@
 """Figures and a small HTML page for a sweep: metrics along a swept key, the recommendation grid.
 
-They draw what :meth:`SweepResult.frame <spillgauge.evaluation.sweep.SweepResult.frame>`
+They draw what :meth:`SweepResult.frame <spillgauge.sweep.sweep.SweepResult.frame>`
 holds and compute no statistics: error bars are the frame's Monte Carlo
 standard errors (the ``*_se`` columns). Figures share the study report's size,
 resolution and palette (:mod:`spillgauge.report.figures`); matplotlib is
@@ -13,6 +13,7 @@ import base64
 import html
 from pathlib import Path
 
+from spillgauge.formatting import format_value
 from spillgauge.report.figures import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
 from spillgauge.report.html import CAUTION
 
@@ -40,10 +41,6 @@ def _new_axes():
 
 def _colour(index: int) -> str:
     return PALETTE[index % len(PALETTE)]
-
-
-def _fmt(value: object) -> str:
-    return f"{value:g}" if isinstance(value, float) else str(value)
 
 
 def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: float | None = None):
@@ -112,7 +109,7 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
         ax.axhline(0.0, color="0.3", linestyle="--", linewidth=1.1, label="no bias")
     if len(values) <= 12:  # more ticks than that would overlap; matplotlib then picks them
         ax.set_xticks(values)
-        ax.set_xticklabels([_fmt(v) for v in values])
+        ax.set_xticklabels([format_value(v) for v in values])
     ax.set_xlabel(key)
     ax.set_ylabel(_METRIC_NAMES.get(metric, metric))
     name = _METRIC_NAMES.get(metric, metric).split(" (")[0]
@@ -159,9 +156,9 @@ def plot_recommendation_grid(frame, key_x: str, key_y: str, ax=None):
             ax.text(i, j, text, ha="center", va="center", fontsize=size,
                     color="black" if code == len(labels) - 1 else "white", fontweight="bold")
     ax.set_xticks(range(len(xs)))
-    ax.set_xticklabels([_fmt(v) for v in xs])
+    ax.set_xticklabels([format_value(v) for v in xs])
     ax.set_yticks(range(len(ys)))
-    ax.set_yticklabels([_fmt(v) for v in ys])
+    ax.set_yticklabels([format_value(v) for v in ys])
     ax.set_xlabel(key_x)
     ax.set_ylabel(key_y)
     ax.set_title("Recommended design at each point (grey: no design trusted)", fontsize=10)
@@ -198,7 +195,7 @@ def save_sweep_figures(sweep, out: str | Path) -> list[Path]:
 
 def _save_png(fig, path: Path) -> None:
     """Write a figure as PNG atomically (a temporary file in the same folder, then a rename)."""
-    from spillgauge.evaluation.store import write_atomic_with
+    from spillgauge.files import write_atomic_with
 
     write_atomic_with(path, lambda stream: fig.savefig(stream, format="png", dpi=FIGURE_DPI))
 
@@ -207,7 +204,7 @@ def _table(frame, keys: list[str]) -> str:
     head = [*keys, "design", "bias ± SE", "RMSE", "coverage", "trusted", "recommended"]
     lines = ["<table>", "<tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in head) + "</tr>"]
     for row in frame.to_dict("records"):
-        cells = [*(_fmt(row[k]) for k in keys), row["label"],
+        cells = [*(format_value(row[k]) for k in keys), row["label"],
                  f"{row['bias']:+.3g} ± {row['bias_se']:.2g}", f"{row['rmse']:.3g}",
                  f"{row['coverage']:.1%}", "yes" if row["trusted"] else "no",
                  "yes" if row["recommended"] else ""]

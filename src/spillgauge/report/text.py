@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from spillgauge.formatting import format_cell
+
 __all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows",
            "interference_lines"]
 
@@ -10,15 +12,6 @@ _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
             ("relative_bias", "rel.bias", "{:+.0%}"), ("sd", "SD", "{:.3f}"),
             ("rmse", "RMSE", "{:.3f}"), ("coverage", "coverage", "{:.0%}"),
             ("power", "power", "{:.0%}")]
-
-
-def _fmt(template: str, value) -> str:
-    if value is None:
-        return "n/a"
-    try:
-        return template.format(value)
-    except (ValueError, TypeError):
-        return str(value)
 
 
 def market_text(scenario, market: dict) -> str:
@@ -72,7 +65,7 @@ def truth_text(name: str, seed: int, truth) -> str:
              f"(Monte Carlo SE {se})", "",
              f"{'':<26}{'all control':>14}{'all treated':>14}"]
     for label, c, tr, template in rows:
-        lines.append(f"{label:<26}{_fmt(template, c):>14}{_fmt(template, tr):>14}")
+        lines.append(f"{label:<26}{format_cell(template, c):>14}{format_cell(template, tr):>14}")
     return "\n".join(lines)
 
 
@@ -80,7 +73,7 @@ def design_rows(summary: dict) -> list[list[str]]:
     """Return the design table as formatted cells, header first."""
     rows = [[header for _, header, _ in _COLUMNS]]
     for design in summary["designs"]:
-        rows.append([_fmt(template, design.get(key)) for key, _, template in _COLUMNS])
+        rows.append([format_cell(template, design.get(key)) for key, _, template in _COLUMNS])
     return rows
 
 
@@ -105,29 +98,28 @@ def study_text(study) -> str:
              f"true GTE {truth['gte']:.4f} orders per user"
              + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
     lines += _table(design_rows(summary))
-    lines += interference_lines(summary)
+    lines += interference_lines(study)
     rec = summary["recommendation"]
     lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
               rec["reason"]]
     return "\n".join(lines)
 
 
-def interference_lines(summary: dict) -> list[str]:
-    """Describe each test-of-interference design's verdict in a sentence."""
+def interference_lines(study) -> list[str]:
+    """Describe each test-of-interference design's verdict (decided by the statistics) in a sentence."""
     lines = []
-    alpha = summary.get("scenario_settings", {}).get("study", {}).get("alpha", 0.05)
-    for design in summary["designs"]:
-        test = design.get("interference_test")
-        if not test or test.get("rejection_rate") is None:
+    alpha = study.scenario.study.alpha
+    for design in study.designs.values():
+        test = design.interference
+        if test is None or not test.n_reps:
             continue
-        rate, se = test["rejection_rate"], test["rejection_rate_se"] or 0.0
         verdict = ("interference is present, so a user-level test of this market would be biased"
-                   if rate - 2 * se > alpha else
+                   if test.is_detected else
                    "no sign of interference beyond the test's false-alarm rate")
-        lines.append(f"\n{design['label']}: the user-level half and the cluster-level half "
-                     f"disagree in {rate:.0%} of replications (level {alpha:.0%}; mean "
-                     f"difference {_fmt('{:+.3f}', test['mean_delta'])} orders per user): "
-                     f"{verdict}.")
+        lines.append(f"\n{design.label}: the user-level half and the cluster-level half "
+                     f"disagree in {test.rejection_rate:.0%} of replications (level {alpha:.0%}; "
+                     f"mean difference {format_cell('{:+.3f}', test.mean_delta)} orders per "
+                     f"user): {verdict}.")
     return lines
 
 
@@ -141,7 +133,7 @@ def study_markdown(study) -> str:
              f"**{truth['gte']:.4f}** fulfilled orders per user over the horizon.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
-    lines += [line.strip() for line in interference_lines(summary)]
+    lines += [line.strip() for line in interference_lines(study)]
     rec = summary["recommendation"]
     lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
               + rec["reason"], "",

@@ -11,12 +11,12 @@ import time
 
 import pytest
 
-from spillgauge.evaluation.resources import (
+from spillgauge.study.resources import (
     MemoryLimitError,
     check_memory,
     estimate_memory_bytes,
 )
-from spillgauge.evaluation.study import run_study
+from spillgauge.study.run import run_study
 from spillgauge.scenario.reading import parse_scenario
 
 TINY = {"name": "scale", "calendar": {"days": 7}, "users": {"count": 500},

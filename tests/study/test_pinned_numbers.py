@@ -2,7 +2,7 @@
 
 Results must be reproducible across versions: a change that is not meant to
 move numbers must leave these files' values unchanged. A change that must move
-them regenerates the files with ``tests/evaluation/pinned/make_pins.py`` and says
+them regenerates the files with ``tests/study/pinned/make_pins.py`` and says
 so in its commit message.
 """
 

@@ -1,4 +1,4 @@
-"""Tests of spillgauge.evaluation.metrics against published values, scipy and statsmodels."""
+"""Tests of spillgauge.statistics.metrics against published values, scipy and statsmodels."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import pytest
 from scipy import integrate, stats
 from statsmodels.stats.power import NormalIndPower, TTestIndPower
 
-from spillgauge.evaluation.metrics import (
+from spillgauge.statistics.metrics import (
     DesignMetrics,
     Retrodesign,
     design_metrics,

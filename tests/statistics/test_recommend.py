@@ -1,4 +1,4 @@
-"""Tests of spillgauge.evaluation.recommend on hand-built design metrics."""
+"""Tests of spillgauge.statistics.recommend on hand-built design metrics."""
 
 from __future__ import annotations
 
@@ -7,13 +7,9 @@ import re
 
 import pytest
 
-from spillgauge.evaluation.metrics import DesignMetrics
-from spillgauge.evaluation.recommend import (
-    Candidate,
-    Recommendation,
-    is_trusted,
-    recommend,
-)
+from spillgauge.statistics.metrics import DesignMetrics
+from spillgauge.statistics.recommend import Candidate, Recommendation, recommend
+from spillgauge.statistics.trust import is_trusted
 
 N_REPS = 400
 GTE = 1.07

@@ -9,7 +9,8 @@ import tempfile
 from pathlib import Path
 
 from spillgauge.errors import ResultsError
-from spillgauge.evaluation.replication import (
+from spillgauge.files import dumps, write_atomic
+from spillgauge.study.replication import (
     ReplicationResult,
     result_from_record,
     result_to_record,
@@ -17,72 +18,11 @@ from spillgauge.evaluation.replication import (
 from spillgauge.scenario import Scenario
 from spillgauge.scenario.reading import scenario_to_dict
 
-__all__ = ["ResultsFolder", "write_atomic", "write_atomic_with", "load_study", "dumps",
-           "json_safe", "FORMAT_VERSION"]
+__all__ = ["ResultsFolder", "load_study", "FORMAT_VERSION"]
 
 FORMAT_VERSION = 1
 _STUDY = "study.json"
 _LOG = "replications.jsonl"
-
-
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
-def write_atomic_with(path: str | Path, write) -> None:
-    """Write a file atomically: ``write(stream)`` fills a temporary binary file, then a rename.
-
-    The file gets the usual permissions (0666 minus the umask), not the
-    owner-only mode of a temporary file.
-    """
-    path = Path(path)
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            write(stream)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.chmod(temporary, 0o666 & ~_umask())
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
-
-
-def write_atomic(path: str | Path, text: str) -> None:
-    """Write a text file (UTF-8) atomically: a temporary file in the same folder, then a rename."""
-    data = text.encode("utf-8")
-    write_atomic_with(path, lambda stream: stream.write(data))
-
-
-def _json_default(value):
-    if hasattr(value, "item"):
-        return value.item()
-    if hasattr(value, "tolist"):
-        return value.tolist()
-    raise TypeError(f"cannot write {type(value).__name__} as JSON")
-
-
-def json_safe(data: object) -> object:
-    """Return ``data`` with NaN and infinities replaced by None (tuples become lists)."""
-    if isinstance(data, float) and not math.isfinite(data):
-        return None
-    if isinstance(data, dict):
-        return {k: json_safe(v) for k, v in data.items()}
-    if isinstance(data, (list, tuple)):
-        return [json_safe(v) for v in data]
-    return data
-
-
-def dumps(data: object, *, compact: bool = False) -> str:
-    """Return standard JSON (NaN written as null): indented, or on one line when ``compact``."""
-    if compact:
-        return json.dumps(json_safe(data), default=_json_default, allow_nan=False,
-                          separators=(",", ":"))
-    return json.dumps(json_safe(data), default=_json_default, indent=2, allow_nan=False)
 
 
 def _data_file_digests(scenario: Scenario) -> dict:
@@ -225,7 +165,7 @@ def load_study(path: str | Path):
     ResultsError
         When the folder holds no study or no finished replication.
     """
-    from spillgauge.evaluation.study import summarise_study
+    from spillgauge.study.result import summarise_study
     from spillgauge.scenario.reading import parse_scenario
 
     path = Path(path)

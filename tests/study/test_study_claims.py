@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from spillgauge.evaluation.study import run_study
+from spillgauge.study.run import run_study
 from tests.conftest import make_scenario
 
 
@@ -106,11 +106,11 @@ def test_interference_test_detects_stock_out_spillover(cover, interference):
     study = run_study(scenario, workers=2)
     test = study.interference_test("interference-test-pools")
     if interference:
-        assert test["rejection_rate"] > 0.5
-        assert test["mean_delta"] > 4 * test["mean_delta_se"]
+        assert test.rejection_rate > 0.5
+        assert test.mean_delta > 4 * test.mean_delta_se
     else:
-        assert test["rejection_rate"] <= 0.05 + 4 * np.sqrt(0.05 * 0.95 / 60)
-        assert abs(test["mean_delta"]) < 4 * test["mean_delta_se"]
+        assert test.rejection_rate <= 0.05 + 4 * np.sqrt(0.05 * 0.95 / 60)
+        assert abs(test.mean_delta) < 4 * test.mean_delta_se
     assert study.recommendation.label != "interference-test-pools"
 
 

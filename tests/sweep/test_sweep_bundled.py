@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 
 from spillgauge.bundled import find_scenario
-from spillgauge.evaluation.sweep import parse_vary, run_sweep
+from spillgauge.sweep.sweep import parse_vary, run_sweep
 from spillgauge.scenario.reading import load_scenario
 
 

@@ -1,6 +1,6 @@
 """Write the pinned short runs of every bundled scenario (run by hand when numbers must change).
 
-    python tests/evaluation/pinned/make_pins.py
+    python tests/study/pinned/make_pins.py
 
 Each file holds, per replication and design, the estimate, SE, interval and
 that replication's GTE, as exact float reprs. ``test_pinned_numbers.py`` re-runs
@@ -27,9 +27,9 @@ def pinned_run(name: str) -> dict:
     rows = []
     for rep in study.replications:
         truth = {k: repr(float(v)) for k, v in rep.truth.to_dict().items()}
-        for label, values in rep.estimates.items():
+        for label, run in rep.runs.items():
             rows.append({"replication": rep.replication, "label": label, "truth": truth,
-                         **{k: repr(float(v)) for k, v in values.items()}})
+                         **{k: repr(float(v)) for k, v in run.to_record().items()}})
     metrics = {label: {k: repr(float(v)) for k, v in m.to_dict().items()}
                for label, m in study.metrics.items()}
     return {"scenario": name, "reps": REPS, "seed": SEED, "rows": rows, "metrics": metrics,

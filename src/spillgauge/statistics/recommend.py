@@ -14,9 +14,11 @@ import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
-from spillgauge.evaluation.metrics import DesignMetrics
+from spillgauge.formatting import format_number, format_percent
+from spillgauge.statistics.metrics import DesignMetrics
+from spillgauge.statistics.trust import assess_trust
 
-__all__ = ["Candidate", "Recommendation", "is_trusted", "recommend"]
+__all__ = ["Candidate", "Recommendation", "recommend"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -81,48 +83,6 @@ class Recommendation:
     ranking: tuple[str, ...]
 
 
-def is_trusted(metrics: DesignMetrics, *, alpha: float = 0.05) -> bool:
-    """Return whether a design's confidence intervals and bias can be trusted.
-
-    Parameters
-    ----------
-    metrics : DesignMetrics
-        The design's metrics.
-    alpha : float, default 0.05
-        Level of the design's confidence intervals (nominal coverage ``1 - alpha``).
-
-    Returns
-    -------
-    bool
-        True when both hold:
-
-        - coverage >= (1 - alpha) - max(0.05, 2 coverage_se): the CI covers the
-          GTE nearly as often as promised (a 5-point allowance, widened when the
-          Monte Carlo error is larger);
-        - |bias| <= 2 bias_se or |bias| <= 0.5 sd: the bias is not detectable or is
-          small next to the noise.
-
-        False when coverage, bias, SD or RMSE is not finite.
-
-    Notes
-    -----
-    The allowances are common practice, not from a published source. A biased
-    design can keep its coverage only by having wide intervals; when its bias is
-    at most half its SD that is accepted here, and the recommender then ranks it
-    down by its RMSE. A design whose bias exceeds half its SD is refused even if
-    over-wide intervals keep its coverage.
-
-    Examples
-    --------
-    >>> from spillgauge.evaluation.metrics import design_metrics
-    >>> m = design_metrics([0.9, 1.1, 1.0, 1.2], [0.1] * 4, [0.7, 0.9, 0.8, 1.0],
-    ...                    [1.1, 1.3, 1.2, 1.4], [1.0] * 4)
-    >>> is_trusted(m)
-    True
-    """
-    return _distrust(metrics, alpha) is None
-
-
 def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
               alpha: float = 0.05) -> Recommendation:
     """Choose the randomization unit to use and explain the trade-off in numbers.
@@ -160,7 +120,7 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
 
     Examples
     --------
-    >>> from spillgauge.evaluation.metrics import design_metrics
+    >>> from spillgauge.statistics.metrics import design_metrics
     >>> m = design_metrics([0.9, 1.1, 1.0, 1.2], [0.1] * 4, [0.7, 0.9, 0.8, 1.0],
     ...                    [1.1, 1.3, 1.2, 1.4], [1.0] * 4)
     >>> c = Candidate(label="user", is_user_level=True, unit="user", n_units=1000.0, metrics=m)
@@ -170,7 +130,7 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
     """
     ranked = _check_inputs(candidates, gte, gte_se, alpha)
     ranking = tuple(c.label for c in ranked)
-    trusted = [c for c in ranked if _distrust(c.metrics, alpha) is None]
+    trusted = [c for c in ranked if assess_trust(c.metrics, alpha=alpha).reason is None]
     if not trusted:
         return Recommendation(label=None, reason=_explain_none(ranked, gte, alpha),
                               is_trustworthy=False, trusted=(), ranking=ranking)
@@ -203,29 +163,15 @@ def _check_inputs(candidates, gte, gte_se, alpha) -> list[Candidate]:
     return [candidates[i] for i in order]
 
 
-def _distrust(m: DesignMetrics, alpha: float) -> str | None:
-    """Return why a design is not trusted, in words, or None when it is."""
-    if m.n_reps == 0 or not all(map(math.isfinite, (m.coverage, m.bias, m.sd, m.rmse))):
-        return "gave no usable estimates"
-    needed = (1 - alpha) - max(0.05, 2 * _zero_nan(m.coverage_se))
-    if m.coverage < needed:
-        return f"covers the GTE in {m.coverage:.1%} of replications (needs {needed:.1%})"
-    if not (abs(m.bias) <= 2 * m.bias_se or abs(m.bias) <= 0.5 * m.sd):
-        if m.sd > 0:
-            return f"has bias {_num(m.bias, sign=True)}, {abs(m.bias) / m.sd:.1f} times its SD"
-        return f"has bias {_num(m.bias, sign=True)} with no spread at all"
-    return None
-
-
 def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
     m = chosen.metrics
     params = ", ".join(f"{k}={v}" for k, v in chosen.params.items())
     where = f"{chosen.label}: {params}" if params else chosen.label
-    gte_text = f"{_num(gte)} ± {_num(gte_se)}" if math.isfinite(gte_se) else _num(gte)
+    gte_text = f"{format_number(gte)} ± {format_number(gte_se)}" if math.isfinite(gte_se) else format_number(gte)
     sentences = [
         f"Randomize by {chosen.unit} ({where}): over {m.n_reps} replications its bias is "
-        f"{_num(m.bias, sign=True)} orders per user ({_pct(m.relative_bias, sign=True)} of the "
-        f"GTE of {gte_text}), SD {_num(m.sd)}, RMSE {_num(m.rmse)}, CI coverage "
+        f"{format_number(m.bias, sign=True)} orders per user ({format_percent(m.relative_bias, sign=True)} of the "
+        f"GTE of {gte_text}), SD {format_number(m.sd)}, RMSE {format_number(m.rmse)}, CI coverage "
         f"{m.coverage:.1%} against the nominal {1 - alpha:.0%}, and power {m.power:.0%}."]
     user = next((c for c in ranked if c.is_user_level and math.isfinite(c.metrics.rmse)), None)
     if user is not None and not chosen.is_user_level:
@@ -237,15 +183,15 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
             sentences.append("It is the only design with usable estimates.")
         elif chosen is best:
             sentences.append(f"No design was more accurate: the runner-up, {runner_up.label} "
-                             f"(by {runner_up.unit}), has RMSE {_num(runner_up.metrics.rmse)} "
-                             f"against {_num(m.rmse)}.")
+                             f"(by {runner_up.unit}), has RMSE {format_number(runner_up.metrics.rmse)} "
+                             f"against {format_number(m.rmse)}.")
     if chosen is not best:
         sentences.append(
-            f"{best.label} has a slightly lower RMSE ({_num(best.metrics.rmse)}), but the gap is "
+            f"{best.label} has a slightly lower RMSE ({format_number(best.metrics.rmse)}), but the gap is "
             f"within Monte Carlo error, so the finer unit is preferred: {chosen.n_units:,.0f} "
             f"units per replication against {best.n_units:,.0f}.")
-    untrusted = [f"{c.label} {_distrust(c.metrics, alpha)}" for c in ranked
-                 if _distrust(c.metrics, alpha) is not None]
+    untrusted = [f"{c.label} {assess_trust(c.metrics, alpha=alpha).reason}" for c in ranked
+                 if assess_trust(c.metrics, alpha=alpha).reason is not None]
     if untrusted:
         sentences.append("Not trusted: " + "; ".join(untrusted) + ".")
     return " ".join(sentences)
@@ -256,33 +202,33 @@ def _versus_user(chosen, user, gte) -> list[str]:
     is_biased = abs(u.bias) > 2 * _zero_nan(u.bias_se)
     if not is_biased:
         first = (f"The user-level design ({user.label}) shows no clear bias "
-                 f"({_num(u.bias, sign=True)} ± {_num(u.bias_se)} orders per user) but has "
-                 f"RMSE {_num(u.rmse)} against {_num(m.rmse)}.")
+                 f"({format_number(u.bias, sign=True)} ± {format_number(u.bias_se)} orders per user) but has "
+                 f"RMSE {format_number(u.rmse)} against {format_number(m.rmse)}.")
     elif u.mean_estimate != 0 and 0 < u.bias / u.mean_estimate <= 1:
         first = (f"{u.bias / u.mean_estimate:.0%} of the user-level estimate of "
-                 f"{_num(u.mean_estimate)} is spillover: bias {_num(u.bias, sign=True)} orders "
-                 f"per user on a GTE of {_num(gte)} ({_pct(u.relative_bias, sign=True)}), and its "
+                 f"{format_number(u.mean_estimate)} is spillover: bias {format_number(u.bias, sign=True)} orders "
+                 f"per user on a GTE of {format_number(gte)} ({format_percent(u.relative_bias, sign=True)}), and its "
                  f"CI covers the GTE in {u.coverage:.1%} of replications.")
     else:
-        first = (f"The user-level estimate of {_num(u.mean_estimate)} is off by "
-                 f"{_num(u.bias, sign=True)} orders per user on a GTE of {_num(gte)} "
-                 f"({_pct(u.relative_bias, sign=True)}) because of spillover, and its CI covers "
+        first = (f"The user-level estimate of {format_number(u.mean_estimate)} is off by "
+                 f"{format_number(u.bias, sign=True)} orders per user on a GTE of {format_number(gte)} "
+                 f"({format_percent(u.relative_bias, sign=True)}) because of spillover, and its CI covers "
                  f"the GTE in {u.coverage:.1%} of replications.")
     sd_ratio = m.sd / u.sd if u.sd > 0 else math.inf
     inflated = (" (the user-level power is inflated by its bias)"
                 if is_biased and u.bias * gte > 0 else "")
     if sd_ratio > 1:
-        second = (f"The price is noise: SD {_num(m.sd)} against {_num(u.sd)} for user-level "
+        second = (f"The price is noise: SD {format_number(m.sd)} against {format_number(u.sd)} for user-level "
                   f"({sd_ratio:.1f} times), and power {m.power:.0%} against {u.power:.0%}"
                   f"{inflated}.")
     else:
-        second = (f"It is also no noisier than user-level: SD {_num(m.sd)} against "
-                  f"{_num(u.sd)}, and power {m.power:.0%} against {u.power:.0%}{inflated}.")
+        second = (f"It is also no noisier than user-level: SD {format_number(m.sd)} against "
+                  f"{format_number(u.sd)}, and power {m.power:.0%} against {u.power:.0%}{inflated}.")
     return [first, second]
 
 
 def _explain_none(ranked, gte, alpha) -> str:
-    problems = "; ".join(f"{c.label} {_distrust(c.metrics, alpha)}" for c in ranked)
+    problems = "; ".join(f"{c.label} {assess_trust(c.metrics, alpha=alpha).reason}" for c in ranked)
     sentences = [f"No design can be trusted at the nominal {1 - alpha:.0%} level: {problems}."]
     least_bad = next((c for c in ranked if math.isfinite(c.metrics.rmse)), None)
     if least_bad is None:
@@ -292,30 +238,11 @@ def _explain_none(ranked, gte, alpha) -> str:
         m = least_bad.metrics
         sentences.append(
             f"If you must run one, {least_bad.label} (by {least_bad.unit}) has the lowest RMSE, "
-            f"{_num(m.rmse)} orders per user on a GTE of {_num(gte)}, with bias "
-            f"{_num(m.bias, sign=True)} and CI coverage {m.coverage:.1%}; do not take its "
+            f"{format_number(m.rmse)} orders per user on a GTE of {format_number(gte)}, with bias "
+            f"{format_number(m.bias, sign=True)} and CI coverage {m.coverage:.1%}; do not take its "
             f"confidence interval at face value.")
     return " ".join(sentences)
 
 
 def _zero_nan(x: float) -> float:
     return 0.0 if math.isnan(x) else x
-
-
-def _num(x: float, *, sign: bool = False) -> str:
-    """Format a number with three significant digits (thousands in full)."""
-    if not math.isfinite(x):
-        return "n/a"
-    if x == 0:
-        return "0"
-    if abs(x) >= 1000:
-        return f"{x:+,.0f}" if sign else f"{x:,.0f}"
-    return f"{x:+.3g}" if sign else f"{x:.3g}"
-
-
-def _pct(x: float, *, sign: bool = False) -> str:
-    """Format a fraction as a percentage, one decimal below 10%."""
-    if not math.isfinite(x):
-        return "n/a"
-    spec = ".1%" if abs(x) < 0.1 else ".0%"
-    return format(x, ("+" if sign else "") + spec)

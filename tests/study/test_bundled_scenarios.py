@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from spillgauge.bundled import find_scenario
-from spillgauge.evaluation.study import run_study
+from spillgauge.study.run import run_study
 from spillgauge.scenario.reading import load_scenario
 
 # Expected recommendations, one per lesson (issue text; the markets are our own invention):

@@ -3,7 +3,7 @@
 A sweep asks where a design stops being trustworthy: the stock cover below
 which user-level randomization overstates the effect, the block length that
 minimises a switchback's RMSE, the peer lift past which graph clusters win.
-Each grid point is a full study (:func:`~spillgauge.evaluation.study.run_study`)
+Each grid point is a full study (:func:`~spillgauge.study.run.run_study`)
 of the scenario with the swept keys set by :func:`with_value`.
 
 Every point runs from the same study seed: common random numbers across
@@ -29,16 +29,17 @@ from pathlib import Path
 import numpy as np
 
 from spillgauge.errors import ScenarioError
-from spillgauge.evaluation._sweep_text import (
+from spillgauge.sweep.answers import (
     answer_one_axis,
     answer_two_axes,
     split_key,
 )
-from spillgauge.evaluation.plan import describe_unit, estimator_name
+from spillgauge.study.compose import describe_unit, estimator_name
 from spillgauge.designs.registry import KINDS, make_design_spec
-from spillgauge.evaluation.recommend import is_trusted
-from spillgauge.evaluation.store import dumps, write_atomic
-from spillgauge.evaluation.study import StudyResult, run_study
+from spillgauge.statistics.trust import assess_trust
+from spillgauge.files import dumps, write_atomic
+from spillgauge.study.result import StudyResult
+from spillgauge.study.run import run_study
 from spillgauge.scenario import (
     Calendar,
     Effect,
@@ -308,10 +309,11 @@ class SweepResult:
         """Return one row per point x design as a pandas DataFrame.
 
         Columns: ``point``, the swept keys, ``label``, ``kind``, ``estimator``,
-        ``unit``, every :class:`~spillgauge.evaluation.metrics.DesignMetrics` field
+        ``unit``, every :class:`~spillgauge.statistics.metrics.DesignMetrics` field
         (``bias``, ``bias_se``, ``rmse``, ``coverage``, ...), ``gte``, ``gte_se``,
         ``alpha``, ``recommended`` and ``trusted`` (from
-        :func:`~spillgauge.evaluation.recommend.is_trusted`).
+        :func:`~spillgauge.statistics.trust.assess_trust`), and ``distrust``: which check
+        failed (``"no_estimates"``, ``"coverage"``, ``"bias"``; empty when trusted).
         """
         import pandas as pd
 
@@ -320,12 +322,13 @@ class SweepResult:
             alpha = study.scenario.study.alpha
             for spec in study.scenario.designs:
                 m = study.metrics[spec.label]
+                verdict = assess_trust(m, alpha=alpha)
                 rows.append({"point": index, **point, "label": spec.label, "kind": spec.kind,
                              "estimator": estimator_name(spec), "unit": describe_unit(spec),
                              **m.to_dict(), "gte": study.truth.gte, "gte_se": study.truth.gte_se,
                              "alpha": alpha,
                              "recommended": study.recommendation.label == spec.label,
-                             "trusted": is_trusted(m, alpha=alpha)})
+                             "trusted": verdict.is_trusted, "distrust": verdict.problem or ""})
         return pd.DataFrame(rows)
 
     def answer(self) -> str:
@@ -374,7 +377,7 @@ def run_sweep(scenario: Scenario, axes: list[SweepAxis], *, reps: int | None = N
         Override ``study.reps`` and ``study.seed``; every point uses the same seed
         (common random numbers across points).
     workers, scheduler
-        As for :func:`~spillgauge.evaluation.study.run_study`.
+        As for :func:`~spillgauge.study.run.run_study`.
     out : path, optional
         Results folder: point ``i``'s study goes to ``out/points/<i>/`` as it runs,
         and ``sweep.csv`` and ``sweep.json`` are written at the end.

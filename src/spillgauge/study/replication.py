@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import warnings
 from dataclasses import dataclass, field
 
@@ -10,7 +9,9 @@ import numpy as np
 
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning
-from spillgauge.evaluation.truth import ReplicationTruth, replication_truth
+from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic
+from spillgauge.files import nan_from_null
+from spillgauge.statistics.truth import ReplicationTruth, replication_truth
 from spillgauge.model.market import Market, build_market
 from spillgauge.model.world import simulate_worlds
 from spillgauge.panel import OutcomePanel
@@ -18,33 +19,82 @@ from spillgauge.scenario import Scenario
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import ASSIGNMENT, DEMAND, design_key, stream
 
-__all__ = ["ReplicationResult", "run_replication", "result_to_record", "result_from_record",
-           "SAMPLE_POOLS"]
+__all__ = ["DesignRun", "ReplicationResult", "run_replication", "result_to_record",
+           "result_from_record", "SAMPLE_POOLS"]
 
 SAMPLE_POOLS = 4  # pools whose stock paths are kept for the report
+
+# How an estimate is saved in replications.jsonl and replications.csv (the file format's names).
+_SAVED_FIELDS = (("estimate", "point"), ("se", "standard_error"), ("ci_low", "ci_low"),
+                 ("ci_high", "ci_high"), ("n_units", "n_units"))
+_SAVED_DIAGNOSTIC = ("delta", "delta_se", "statistic", "rejects", "rejects_chebyshev")
+
+
+@dataclass(frozen=True, slots=True)
+class DesignRun:
+    """One design in one replication: its estimate and how many units it randomized.
+
+    Parameters
+    ----------
+    estimate : Estimate
+        The design's estimate of its estimand (the test of interference's
+        statistics ride on ``estimate.diagnostic``).
+    n_randomized : int
+        Units x periods the design's schedule randomized.
+    """
+
+    estimate: Estimate
+    n_randomized: int
+
+    def to_record(self) -> dict:
+        """Return the run as saved in ``replications.jsonl`` (NaN kept; the writer nulls it)."""
+        record = {saved: getattr(self.estimate, name) for saved, name in _SAVED_FIELDS}
+        record["n_randomized"] = self.n_randomized
+        diagnostic = self.estimate.diagnostic
+        if diagnostic is not None:
+            record.update({k: float(getattr(diagnostic, k)) for k in _SAVED_DIAGNOSTIC})
+        return record
+
+    @classmethod
+    def from_record(cls, record: dict) -> DesignRun:
+        """Rebuild a run saved with :meth:`to_record`."""
+        values = {k: nan_from_null(v) for k, v in record.items()}
+        diagnostic = None
+        if "statistic" in values:
+            diagnostic = InterferenceDiagnostic(
+                user_arm_point=float("nan"), cluster_arm_point=values["estimate"],
+                delta=values["delta"], delta_se=values["delta_se"],
+                statistic=values["statistic"], p_value=float("nan"),
+                rejects=bool(values["rejects"]),
+                rejects_chebyshev=bool(values["rejects_chebyshev"]))
+        estimate = Estimate(**{name: values[saved] for saved, name in _SAVED_FIELDS},
+                            method="", diagnostic=diagnostic)
+        return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]))
 
 
 @dataclass(frozen=True, slots=True)
 class ReplicationResult:
-    """What one replication leaves behind: the truth, and one estimate per design.
+    """What one replication leaves behind: the truth, and one :class:`DesignRun` per design.
 
-    ``estimates`` maps a design label to a dict with ``estimate``, ``se``,
-    ``ci_low``, ``ci_high``, ``n_units`` (units the estimator used) and
-    ``n_randomized`` (units x periods the design randomized). ``traces`` (first replication only)
+    ``runs`` maps a design label to its run. ``traces`` (first replication only)
     holds small arrays for the report: sample pools' stock and lost orders per
     world, and each switchback's effect by ticks since a switch.
     """
 
     replication: int
     truth: ReplicationTruth
-    estimates: dict
+    runs: dict[str, DesignRun]
     traces: dict = field(default_factory=dict)
 
     def rows(self) -> list[dict]:
         """Return one flat record per design (for replications.csv)."""
-        return [{"replication": self.replication, "label": label,
-                 **{k: values[k] for k in ("estimate", "se", "ci_low", "ci_high", "n_units")},
-                 "gte": self.truth.gte} for label, values in self.estimates.items()]
+        rows = []
+        for label, run in self.runs.items():
+            record = run.to_record()
+            rows.append({"replication": self.replication, "label": label,
+                         **{saved: record[saved] for saved, _ in _SAVED_FIELDS},
+                         "gte": self.truth.gte})
+        return rows
 
 
 def _switch_profile(panel: OutcomePanel, schedule: AssignmentSchedule) -> np.ndarray:
@@ -101,7 +151,7 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
     """
     designs = scenario.designs if designs is None else tuple(designs)
     if designs:  # estimators (and scipy.stats) load only when a design is run
-        from spillgauge.evaluation.plan import draw_design_schedule, estimate_design
+        from spillgauge.study.compose import draw_design_schedule, estimate_design
     market = market if market is not None else build_market(scenario, seed)
     n_users, n_ticks = market.n_users, scenario.calendar.n_ticks
     schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),
@@ -113,21 +163,14 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
     panels = simulate_worlds(market, schedules, rng=demand_rng)
     truth = replication_truth(panels[0], panels[1])
     confidence = 1.0 - scenario.study.alpha
-    estimates = {}
+    runs = {}
     for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", DegenerateEstimateWarning)
-            result = estimate_design(spec, panel, schedule, confidence=confidence,
-                                     tick_hours=scenario.calendar.tick_hours)
-        test = {}
-        if result.diagnostic is not None:
-            d = result.diagnostic
-            test = {"delta": d.delta, "delta_se": d.delta_se, "statistic": d.statistic,
-                    "rejects": float(d.rejects), "rejects_chebyshev": float(d.rejects_chebyshev)}
-        estimates[spec.label] = {"estimate": result.point, "se": result.standard_error,
-                                 "ci_low": result.ci_low, "ci_high": result.ci_high,
-                                 "n_units": result.n_units,
-                                 "n_randomized": schedule.n_units * schedule.n_periods, **test}
+            estimate = estimate_design(spec, panel, schedule, confidence=confidence,
+                                       tick_hours=scenario.calendar.tick_hours)
+        runs[spec.label] = DesignRun(estimate=estimate,
+                                     n_randomized=schedule.n_units * schedule.n_periods)
     keep = replication == 0 if keep_traces is None else keep_traces
     traces = {}
     if keep:
@@ -142,23 +185,21 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
     for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
         if kind_of(spec).keeps_switch_profile:
             profile = _switch_profile(panel, schedule)
-            profiles[spec.label] = [x if math.isfinite(x) else None for x in profile.tolist()]
+            profiles[spec.label] = profile.tolist()
     traces["switch_profiles"] = profiles
-    return ReplicationResult(replication=replication, truth=truth, estimates=estimates,
-                             traces=traces)
+    return ReplicationResult(replication=replication, truth=truth, runs=runs, traces=traces)
 
 
 def result_to_record(result: ReplicationResult) -> dict:
-    """Return a replication result as plain data (``store.dumps`` writes NaN as null)."""
+    """Return a replication result as plain data (``files.dumps`` writes NaN as null)."""
     return {"replication": result.replication, "truth": result.truth.to_dict(),
-            "estimates": result.estimates, "traces": result.traces}
+            "estimates": {label: run.to_record() for label, run in result.runs.items()},
+            "traces": result.traces}
 
 
 def result_from_record(record: dict) -> ReplicationResult:
     """Rebuild a replication result saved with :func:`result_to_record`."""
-    estimates = {label: {k: (float("nan") if v is None else v) for k, v in values.items()}
-                 for label, values in record["estimates"].items()}
-    truth = ReplicationTruth(**{k: (float("nan") if v is None else v)
-                                for k, v in record["truth"].items()})
-    return ReplicationResult(replication=int(record["replication"]), truth=truth,
-                             estimates=estimates, traces=record.get("traces", {}))
+    runs = {label: DesignRun.from_record(values) for label, values in record["estimates"].items()}
+    truth = ReplicationTruth(**{k: nan_from_null(v) for k, v in record["truth"].items()})
+    return ReplicationResult(replication=int(record["replication"]), truth=truth, runs=runs,
+                             traces=record.get("traces", {}))

@@ -1,4 +1,4 @@
-"""Tests of spillgauge.evaluation.sweep (and report.sweep_figures) on small shared-stock markets.
+"""Tests of spillgauge.sweep.sweep (and report.sweep_figures) on small shared-stock markets.
 
 The statistical checks use the closed-form shared-stock toy model of REFERENCES.md
 section 4 (one pool restocked to S each period, N users with Poisson(lambda0) or
@@ -20,9 +20,9 @@ import pytest
 from scipy import stats
 
 from spillgauge.errors import ScenarioError
-from spillgauge.evaluation.recommend import is_trusted
-from spillgauge.evaluation.study import run_study
-from spillgauge.evaluation.sweep import (
+from spillgauge.statistics.trust import is_trusted
+from spillgauge.study.run import run_study
+from spillgauge.sweep.sweep import (
     SweepAxis,
     SweepResult,
     parse_vary,

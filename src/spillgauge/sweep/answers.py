@@ -7,9 +7,10 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 
-__all__ = ["answer_one_axis", "answer_two_axes", "format_value", "split_key"]
+from spillgauge.formatting import format_value
+
+__all__ = ["answer_one_axis", "answer_two_axes", "split_key"]
 
 
 def split_key(key: str) -> list[str]:
@@ -20,10 +21,6 @@ def split_key(key: str) -> list[str]:
         label, _, name = key[len("design."):].rpartition(".")
         return ["design", label, name]
     return key.split(".")
-
-
-def format_value(value: object) -> str:
-    return str(value) if isinstance(value, (int, np.integer)) else f"{float(value):g}"
 
 
 def _labels(rows: list[dict]) -> list[str]:
@@ -37,12 +34,13 @@ def _recommended_at(rows: list[dict], where: dict) -> str | None:
 
 def _why_not(row: dict, key: str) -> str:
     """Say in numbers why a design is not trusted at one value."""
-    needed = 1 - row["alpha"] - max(0.05, 2 * row["coverage_se"])  # as is_trusted
     at = f"at {format_value(row[key])}"
-    if not all(map(math.isfinite, (row["coverage"], row["bias"], row["sd"]))):
+    if row["distrust"] == "no_estimates":
         return f"it gave no usable estimates {at}"
-    if row["coverage"] < needed or not row["sd"] > 0:
+    if row["distrust"] == "coverage":
         return f"its CI covers the GTE in {row['coverage']:.0%} of replications {at}"
+    if not row["sd"] > 0:
+        return f"its bias is {row['bias']:+.3g} with no spread at all, {at}"
     return f"its bias is {row['bias']:+.3g}, {abs(row['bias']) / row['sd']:.1f} times its SD, {at}"
 
 

@@ -8,7 +8,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from spillgauge.errors import ScenarioError
-from spillgauge.evaluation.study import run_study
+from spillgauge.study.run import run_study
 from spillgauge.report.text import study_text
 from spillgauge.scenario.reading import parse_scenario
 

@@ -1,0 +1,87 @@
+"""Files: atomic writes, and JSON with NaN written as null (and read back as NaN).
+
+Every file spillgauge writes goes through :func:`write_atomic` or
+:func:`write_atomic_with` (a temporary file in the same folder, then a rename),
+so an interrupted run never leaves half a file. JSON is standard: NaN and
+infinities become ``null`` (:func:`json_safe`), and :func:`nan_from_null` turns
+them back into NaN when a saved record is read.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from pathlib import Path
+
+__all__ = ["write_atomic", "write_atomic_with", "json_safe", "dumps", "nan_from_null"]
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def write_atomic_with(path: str | Path, write) -> None:
+    """Write a file atomically: ``write(stream)`` fills a temporary binary file, then a rename.
+
+    The file gets the usual permissions (0666 minus the umask), not the
+    owner-only mode of a temporary file.
+    """
+    path = Path(path)
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            write(stream)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.chmod(temporary, 0o666 & ~_umask())
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
+
+
+def write_atomic(path: str | Path, text: str) -> None:
+    """Write a text file (UTF-8) atomically: a temporary file in the same folder, then a rename."""
+    data = text.encode("utf-8")
+    write_atomic_with(path, lambda stream: stream.write(data))
+
+
+def _json_default(value):
+    if hasattr(value, "item"):
+        return value.item()
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    raise TypeError(f"cannot write {type(value).__name__} as JSON")
+
+
+def json_safe(data: object) -> object:
+    """Return ``data`` with NaN and infinities replaced by None (tuples become lists)."""
+    if isinstance(data, float) and not math.isfinite(data):
+        return None
+    if isinstance(data, dict):
+        return {k: json_safe(v) for k, v in data.items()}
+    if isinstance(data, (list, tuple)):
+        return [json_safe(v) for v in data]
+    return data
+
+
+def dumps(data: object, *, compact: bool = False) -> str:
+    """Return standard JSON (NaN written as null): indented, or on one line when ``compact``."""
+    if compact:
+        return json.dumps(json_safe(data), default=_json_default, allow_nan=False,
+                          separators=(",", ":"))
+    return json.dumps(json_safe(data), default=_json_default, indent=2, allow_nan=False)
+
+
+def nan_from_null(value: object) -> object:
+    """Return NaN for ``None`` and the value otherwise (the inverse of :func:`json_safe`).
+
+    >>> nan_from_null(None), nan_from_null(2.0)
+    (nan, 2.0)
+    """
+    return float("nan") if value is None else value

@@ -1,0 +1,61 @@
+"""Numbers in words: every figure spillgauge prints goes through one of these.
+
+>>> format_number(0.012345), format_number(1234.5, sign=True), format_percent(0.0456)
+('0.0123', '+1,234', '4.6%')
+>>> format_value(12), format_value(0.5), format_cell("{:.2f}", None), format_quantity(12000)
+('12', '0.5', 'n/a', '12,000')
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+
+__all__ = ["format_number", "format_percent", "format_value", "format_cell", "format_quantity"]
+
+
+def format_number(x: float, *, sign: bool = False) -> str:
+    """Format a number with three significant digits (thousands in full); ``n/a`` if not finite."""
+    if not math.isfinite(x):
+        return "n/a"
+    if x == 0:
+        return "0"
+    if abs(x) >= 1000:
+        return f"{x:+,.0f}" if sign else f"{x:,.0f}"
+    return f"{x:+.3g}" if sign else f"{x:.3g}"
+
+
+def format_percent(x: float, *, sign: bool = False) -> str:
+    """Format a fraction as a percentage, one decimal below 10%; ``n/a`` if not finite."""
+    if not math.isfinite(x):
+        return "n/a"
+    spec = ".1%" if abs(x) < 0.1 else ".0%"
+    return format(x, ("+" if sign else "") + spec)
+
+
+def format_value(value: object) -> str:
+    """Format a scenario value: integers as they are, other numbers in ``g`` format."""
+    if isinstance(value, numbers.Integral):
+        return str(value)
+    return f"{float(value):g}"
+
+
+def format_cell(template: str, value: object) -> str:
+    """Format a table cell with ``template``; ``n/a`` for None, the value as text if it won't fit."""
+    if value is None:
+        return "n/a"
+    try:
+        return template.format(value)
+    except (ValueError, TypeError):
+        return str(value)
+
+
+def format_quantity(value: object, template: str = "{:.4g}") -> str:
+    """Format a value for a page: ints with thousands separators, floats by ``template``."""
+    if value is None:
+        return "n/a"
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return str(value)
+    if isinstance(value, int):
+        return f"{value:,}"
+    return template.format(value) if value == value else "n/a"

@@ -1,0 +1,110 @@
+"""The trust rule: when a design's intervals and bias can be trusted (written once, used everywhere)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from spillgauge.formatting import format_number
+from spillgauge.statistics.metrics import DesignMetrics
+
+__all__ = ["TrustVerdict", "assess_trust", "is_trusted", "COVERAGE_ALLOWANCE"]
+
+COVERAGE_ALLOWANCE = 0.05  # points of coverage below nominal that are tolerated
+
+
+@dataclass(frozen=True, slots=True)
+class TrustVerdict:
+    """Whether a design is trusted, and if not, which check failed.
+
+    Parameters
+    ----------
+    is_trusted : bool
+    problem : {None, "no_estimates", "coverage", "bias"}
+        The first check that failed.
+    needed_coverage : float
+        The coverage the design needed.
+    reason : str or None
+        Why it is not trusted, in words with numbers (None when it is trusted).
+    """
+
+    is_trusted: bool
+    problem: str | None
+    needed_coverage: float
+    reason: str | None
+
+
+def _zero_nan(x: float) -> float:
+    return 0.0 if math.isnan(x) else x
+
+
+def assess_trust(metrics: DesignMetrics, *, alpha: float = 0.05) -> TrustVerdict:
+    """Apply the trust rule (see :func:`is_trusted`) and say which check failed.
+
+    Examples
+    --------
+    >>> from spillgauge.statistics.metrics import design_metrics
+    >>> m = design_metrics([2.0, 2.1, 1.9, 2.0], [0.1] * 4, [1.8, 1.9, 1.7, 1.8],
+    ...                    [2.2, 2.3, 2.1, 2.2], [1.0] * 4)
+    >>> v = assess_trust(m)
+    >>> v.is_trusted, v.problem, v.reason
+    (False, 'coverage', 'covers the GTE in 0.0% of replications (needs 90.0%)')
+    """
+    m = metrics
+    needed = (1 - alpha) - max(COVERAGE_ALLOWANCE, 2 * _zero_nan(m.coverage_se))
+    if m.n_reps == 0 or not all(map(math.isfinite, (m.coverage, m.bias, m.sd, m.rmse))):
+        return TrustVerdict(False, "no_estimates", needed, "gave no usable estimates")
+    if m.coverage < needed:
+        return TrustVerdict(False, "coverage", needed,
+                            f"covers the GTE in {m.coverage:.1%} of replications "
+                            f"(needs {needed:.1%})")
+    if not (abs(m.bias) <= 2 * m.bias_se or abs(m.bias) <= 0.5 * m.sd):
+        if m.sd > 0:
+            why = f"has bias {format_number(m.bias, sign=True)}, {abs(m.bias) / m.sd:.1f} " \
+                  f"times its SD"
+        else:
+            why = f"has bias {format_number(m.bias, sign=True)} with no spread at all"
+        return TrustVerdict(False, "bias", needed, why)
+    return TrustVerdict(True, None, needed, None)
+
+
+def is_trusted(metrics: DesignMetrics, *, alpha: float = 0.05) -> bool:
+    """Return whether a design's confidence intervals and bias can be trusted.
+
+    Parameters
+    ----------
+    metrics : DesignMetrics
+        The design's metrics.
+    alpha : float, default 0.05
+        Level of the design's confidence intervals (nominal coverage ``1 - alpha``).
+
+    Returns
+    -------
+    bool
+        True when both hold:
+
+        - coverage >= (1 - alpha) - max(0.05, 2 coverage_se): the CI covers the
+          GTE nearly as often as promised (a 5-point allowance, widened when the
+          Monte Carlo error is larger);
+        - |bias| <= 2 bias_se or |bias| <= 0.5 sd: the bias is not detectable or is
+          small next to the noise.
+
+        False when coverage, bias, SD or RMSE is not finite.
+
+    Notes
+    -----
+    The allowances are common practice, not from a published source. A biased
+    design can keep its coverage only by having wide intervals; when its bias is
+    at most half its SD that is accepted here, and the recommender then ranks it
+    down by its RMSE. A design whose bias exceeds half its SD is refused even if
+    over-wide intervals keep its coverage.
+
+    Examples
+    --------
+    >>> from spillgauge.statistics.metrics import design_metrics
+    >>> m = design_metrics([0.9, 1.1, 1.0, 1.2], [0.1] * 4, [0.7, 0.9, 0.8, 1.0],
+    ...                    [1.1, 1.3, 1.2, 1.4], [1.0] * 4)
+    >>> is_trusted(m)
+    True
+    """
+    return assess_trust(metrics, alpha=alpha).is_trusted

@@ -1,0 +1,196 @@
+"""The typed result of a study, and how finished replications become one.
+
+:func:`summarise_study` turns replications into per-design metrics, the test of
+interference's summary and the recommendation (all computed by
+:mod:`spillgauge.statistics`); :class:`StudyResult` holds them as typed objects
+and writes ``summary.json``'s content.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from spillgauge.designs.registry import kind_of
+from spillgauge.files import json_safe, nan_from_null
+from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.reading import scenario_to_dict
+from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
+from spillgauge.statistics.metrics import DesignMetrics, design_metrics
+from spillgauge.statistics.recommend import Candidate, Recommendation, recommend
+from spillgauge.statistics.truth import TruthSummary, summarise_truth
+from spillgauge.study.replication import ReplicationResult
+
+__all__ = ["DesignSummary", "StudyResult", "summarise_study"]
+
+
+@dataclass(frozen=True, slots=True)
+class DesignSummary:
+    """One design over a study: what it is, and its metrics.
+
+    Parameters
+    ----------
+    label, kind, estimator, unit : str
+        The design's label, kind, estimator's full name and randomization unit in words.
+    params : dict
+        The parameters worth naming (those off their default, plus its identity).
+    is_user_level : bool
+        Whether it randomizes single users.
+    is_recommendable : bool
+        Whether the recommendation may choose it (False for a diagnostic).
+    metrics : DesignMetrics
+    interference : InterferenceSummary or None
+        For a test of interference.
+    """
+
+    label: str
+    kind: str
+    estimator: str
+    unit: str
+    params: dict
+    is_user_level: bool
+    is_recommendable: bool
+    metrics: DesignMetrics
+    interference: InterferenceSummary | None = None
+
+    def to_dict(self) -> dict:
+        """Return the design's entry of ``summary.json``."""
+        entry = {"label": self.label, "kind": self.kind, "estimator": self.estimator,
+                 "unit": self.unit, **json_safe(self.metrics.to_dict())}
+        if self.interference is not None:
+            entry["interference_test"] = json_safe(self.interference.to_dict())
+        return entry
+
+
+@dataclass(frozen=True, eq=False)
+class StudyResult:
+    """Everything a study produced.
+
+    Attributes
+    ----------
+    scenario : Scenario
+    seed, reps : int
+    truth : TruthSummary
+    designs : dict of str to DesignSummary
+        Per design label, in scenario order.
+    recommendation : Recommendation
+    replications : list of ReplicationResult
+        Sorted by replication index.
+    market_summary : dict
+        The market described in plain data (what ``spillgauge check`` prints).
+    """
+
+    scenario: Scenario
+    seed: int
+    reps: int
+    truth: TruthSummary
+    designs: dict[str, DesignSummary]
+    recommendation: Recommendation
+    replications: list[ReplicationResult] = field(repr=False)
+    market_summary: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def metrics(self) -> dict[str, DesignMetrics]:
+        """Return each design's metrics by label."""
+        return {label: d.metrics for label, d in self.designs.items()}
+
+    def designs_frame(self):
+        """Return the design table (one row per design, all metrics) as a DataFrame."""
+        import pandas as pd
+
+        return pd.DataFrame(self.summary()["designs"])
+
+    def replications_frame(self):
+        """Return one row per replication x design as a DataFrame."""
+        import pandas as pd
+
+        rows = [row for rep in self.replications for row in rep.rows()]
+        return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
+                                           "ci_high", "n_units", "gte"])
+
+    def switch_profiles(self) -> dict:
+        """Return each switchback's mean effect per user-tick by ticks since a switch."""
+        out = {}
+        for rep in self.replications:
+            for label, profile in rep.traces.get("switch_profiles", {}).items():
+                values = np.array([nan_from_null(v) for v in profile], dtype=float)
+                out.setdefault(label, []).append(values)
+        return {label: np.nanmean(np.stack(rows), axis=0) if rows else np.array([])
+                for label, rows in out.items()}
+
+    def interference_test(self, label: str) -> InterferenceSummary:
+        """Return a test-of-interference design's summary over the replications."""
+        summary = self.designs[label].interference
+        if summary is None:
+            raise KeyError(f"{label!r} is not a test of interference")
+        return summary
+
+    def summary(self) -> dict:
+        """Return the content of ``summary.json``."""
+        return {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
+                "truth": json_safe(self.truth.to_dict()),
+                "designs": [d.to_dict() for d in self.designs.values()],
+                "recommendation": {"label": self.recommendation.label,
+                                   "reason": self.recommendation.reason,
+                                   "is_trustworthy": self.recommendation.is_trustworthy},
+                "market": self.market_summary,
+                "scenario_settings": scenario_to_dict(self.scenario)}
+
+
+def _design_params(spec: DesignSpec) -> dict:
+    """Return the design's parameters worth naming: those off their default, plus its identity."""
+    kind = kind_of(spec)
+    return {key.name: spec.params[key.name] for key in kind.keys
+            if key.name in kind.shown_keys or spec.params[key.name] != key.default}
+
+
+def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: np.ndarray,
+                      alpha: float) -> DesignSummary:
+    kind = kind_of(spec)
+    estimates = [r.runs[spec.label].estimate for r in results]
+    column = {name: np.array([getattr(e, name) for e in estimates], dtype=float)
+              for name in ("point", "standard_error", "ci_low", "ci_high")}
+    metrics = design_metrics(column["point"], column["standard_error"], column["ci_low"],
+                             column["ci_high"], gte, alpha=alpha)
+    interference = None
+    diagnostics = [e.diagnostic for e in estimates]
+    if diagnostics and all(d is not None for d in diagnostics):
+        interference = summarise_interference_test(
+            [d.statistic for d in diagnostics], [d.rejects for d in diagnostics],
+            [d.rejects_chebyshev for d in diagnostics], [d.delta for d in diagnostics],
+            alpha=alpha)
+    return DesignSummary(label=spec.label, kind=spec.kind, estimator=kind.estimator_name(spec),
+                         unit=kind.describe_unit(spec), params=_design_params(spec),
+                         is_user_level=kind.is_user_level,
+                         is_recommendable=kind.is_recommendable, metrics=metrics,
+                         interference=interference)
+
+
+def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
+                    market_summary: dict | None = None) -> StudyResult:
+    """Turn finished replications into metrics and a recommendation."""
+    results = sorted(results, key=lambda r: r.replication)
+    truth = summarise_truth([r.truth for r in results])
+    gte = np.array([r.truth.gte for r in results])
+    alpha = scenario.study.alpha
+    designs = {spec.label: _summarise_design(spec, results, gte, alpha)
+               for spec in scenario.designs}
+    candidates = []
+    for d in designs.values():
+        if not d.is_recommendable:
+            continue  # a diagnostic: it is reported, never recommended as a unit
+        randomized = np.array([r.runs[d.label].n_randomized for r in results], dtype=float)
+        candidates.append(Candidate(label=d.label, is_user_level=d.is_user_level, unit=d.unit,
+                                    n_units=float(np.nanmean(randomized)), metrics=d.metrics,
+                                    params=d.params))
+    if candidates:
+        advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
+    else:
+        advice = Recommendation(label=None, reason="The scenario has only tests of "
+                                "interference: add user, cluster or switchback designs to "
+                                "get a recommended randomization unit.",
+                                is_trustworthy=False, trusted=(), ranking=())
+    return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
+                       designs=designs, recommendation=advice, replications=results,
+                       market_summary=market_summary or {})

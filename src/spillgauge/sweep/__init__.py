@@ -1,0 +1,3 @@
+"""Sweeps: one study per value of one or two scenario keys, and the answer in sentences."""
+
+__all__: list[str] = []
