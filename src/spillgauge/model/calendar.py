@@ -1,13 +1,22 @@
-"""The calendar: ticks, the diurnal demand rhythm and the stock-event times."""
+"""The calendar: ticks, the diurnal demand rhythm, the daily shocks and the stock calendar.
+
+The stock calendar (when pools are reviewed and deliveries arrive) is one simpy
+process, :func:`start_stock_calendar`. The engine runs it to move stock; the
+segment bounds that group order events for vectorized serving are derived from
+the same process (:func:`stock_event_hours`, :func:`segment_bounds`).
+"""
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
+import simpy
 
 from spillgauge.scenario import Calendar, Pools
 
-__all__ = ["diurnal_multiplier", "day_of_tick", "stock_event_hours", "segment_bounds",
-           "draw_daily_shocks"]
+__all__ = ["diurnal_multiplier", "day_of_tick", "start_stock_calendar", "stock_event_hours",
+           "segment_bounds", "draw_daily_shocks"]
 
 _TWO_PI_24 = 2.0 * np.pi / 24.0
 
@@ -38,12 +47,57 @@ def day_of_tick(calendar: Calendar) -> np.ndarray:
     return np.arange(calendar.n_ticks) * calendar.tick_hours // 24
 
 
+def start_stock_calendar(env: simpy.Environment, pools: Pools, *,
+                         review: Callable[[], object], deliver: Callable[[object], None]
+                         ) -> simpy.Process:
+    """Start the restock calendar of the pools in a simpy environment.
+
+    This process is the one place that decides when stock changes: every
+    ``restock_every_hours``, starting at hour 0, ``review()`` is called and
+    returns the quantity ordered (up to each pool's level S); ``lead_time_hours``
+    later ``deliver(quantity)`` is called (in the same step when the lead time
+    is 0). Both callbacks see the time as ``env.now``. The engine passes
+    callbacks that move the stock; :func:`stock_event_hours` passes callbacks
+    that only note the times.
+
+    Parameters
+    ----------
+    env : simpy.Environment
+    pools : Pools
+        ``restock_every_hours`` and ``lead_time_hours`` are used.
+    review : callable, ``() -> quantity``
+    deliver : callable, ``(quantity) -> None``
+
+    Returns
+    -------
+    simpy.Process
+        The review loop (it never ends; run the environment up to a time).
+    """
+    lead_time = pools.lead_time_hours
+
+    def delivery(quantity: object):
+        yield env.timeout(lead_time)
+        deliver(quantity)
+
+    def reviews():
+        while True:
+            quantity = review()
+            if lead_time == 0:
+                deliver(quantity)
+            else:
+                env.process(delivery(quantity))
+            yield env.timeout(pools.restock_every_hours)
+
+    return env.process(reviews())
+
+
 def stock_event_hours(pools: Pools, horizon_hours: int) -> tuple[np.ndarray, np.ndarray]:
     """Return the review times and the delivery times of the restock policy, in hours.
 
-    Every ``restock_every_hours`` (starting at hour 0) each pool orders up to
-    its level S; the order arrives ``lead_time_hours`` later (at once when the
-    lead time is 0). Times at or after the horizon are left out.
+    The times are those of :func:`start_stock_calendar`, read by running it
+    without stock: a review every ``restock_every_hours`` from hour 0, a
+    delivery ``lead_time_hours`` after each (at the review itself when the lead
+    time is 0). Times at or after the horizon are left out.
 
     Examples
     --------
@@ -53,9 +107,13 @@ def stock_event_hours(pools: Pools, horizon_hours: int) -> tuple[np.ndarray, np.
     >>> reviews.tolist(), deliveries.tolist()
     ([0, 24, 48], [6, 30, 54])
     """
-    reviews = np.arange(0, horizon_hours, pools.restock_every_hours)
-    deliveries = reviews + pools.lead_time_hours
-    return reviews, deliveries[deliveries < horizon_hours]
+    env = simpy.Environment()
+    reviews: list[float] = []
+    deliveries: list[float] = []
+    start_stock_calendar(env, pools, review=lambda: reviews.append(env.now),
+                         deliver=lambda _: deliveries.append(env.now))
+    env.run(until=horizon_hours)  # an event at the horizon itself is not run
+    return (np.array(reviews, dtype=np.int64), np.array(deliveries, dtype=np.int64))
 
 
 def segment_bounds(pools: Pools, calendar: Calendar, *, every_tick: bool) -> np.ndarray:

@@ -7,7 +7,9 @@ event when its uniform falls below the world's rate / the highest rate
 (thinning; Lewis & Shedler 1979), so the worlds differ only where their rates
 differ. Kept orders are served from their home pool's stock in arrival order;
 within a tick that order is random. simpy holds the stock calendar (reviews,
-deliveries after the lead time); between two stock events the arithmetic is
+deliveries after the lead time; ``calendar.start_stock_calendar``), and the
+segments that group the order events are read from that same calendar
+(``calendar.segment_bounds``); between two stock events the arithmetic is
 vectorized numpy over all order events and all worlds at once, so the cost
 grows with the number of order events, not with users x ticks.
 """
@@ -24,6 +26,7 @@ from spillgauge.model.calendar import (
     diurnal_multiplier,
     draw_daily_shocks,
     segment_bounds,
+    start_stock_calendar,
 )
 from spillgauge.model.market import Market
 from spillgauge.model.treatment import (
@@ -238,21 +241,23 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
 
     env = simpy.Environment()
+    start_hour = 0
 
-    def deliver(quantity: np.ndarray):
-        yield env.timeout(pools.lead_time_hours)
+    def on_time() -> None:
+        # The bounds come from the same calendar, so every stock event falls on a segment's
+        # first tick; anything else would serve a segment from the wrong level.
+        if env.now != start_hour:
+            raise RuntimeError(f"stock event at hour {env.now} is not on a segment bound")
+
+    def review() -> np.ndarray:
+        on_time()
+        return np.maximum(order_up_to[None, :] - level, 0)
+
+    def deliver(quantity: np.ndarray) -> None:
+        on_time()
         level[:] += quantity
 
-    def restock():
-        while True:
-            quantity = np.maximum(order_up_to[None, :] - level, 0)
-            if pools.lead_time_hours == 0:
-                level[:] += quantity
-            else:
-                env.process(deliver(quantity))
-            yield env.timeout(pools.restock_every_hours)
-
-    env.process(restock())
+    start_stock_calendar(env, pools, review=review, deliver=deliver)
     for s in range(n_segments):
         start_hour = bounds[s] * calendar.tick_hours
         while env.peek() <= start_hour:
@@ -267,6 +272,8 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         level -= sold
         if substitute:
             _substitute(events, accepted, served, substituted, level, lo, hi, pools)
+    if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
+        raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
     return [_panel(market, events, accepted[w], served[w] | substituted[w], substituted[w],
                    level_at_start[:, w, :], bounds) for w in range(n_worlds)]
 
