@@ -143,3 +143,21 @@ def test_interference_test_needs_four_clusters():
                       study={"reps": 1})
     with pytest.raises(ScenarioError, match=r"design\[0\]\.clusters must be a cluster source"):
         run_study(scenario)
+
+
+def test_schedules_and_panels_leave_the_callers_arrays_writable():
+    # Constructing the frozen containers must not freeze the arrays the caller still owns.
+    import numpy as np
+
+    from spillgauge.panel import OutcomePanel
+    from spillgauge.schedule import AssignmentSchedule
+
+    units = np.arange(4)
+    treated = np.array([[True], [False], [True], [False]])
+    schedule = AssignmentSchedule(unit_of_user=units, is_treated=treated,
+                                  period_start_ticks=np.zeros(1, dtype=np.int64), n_ticks=2)
+    assert units.flags.writeable and treated.flags.writeable
+    assert not schedule.unit_of_user.flags.writeable
+    fulfilled = np.ones((4, 2), dtype=np.int64)
+    panel = OutcomePanel.from_arrays(fulfilled=fulfilled)
+    assert fulfilled.flags.writeable and not panel.fulfilled.flags.writeable

@@ -6,6 +6,7 @@ __all__ = [
     "SpillgaugeError",
     "ScenarioError",
     "ResultsError",
+    "MemoryLimitError",
     "DegenerateEstimateWarning",
 ]
 
@@ -51,6 +52,10 @@ class ScenarioError(SpillgaugeError, ValueError):
 
 class ResultsError(SpillgaugeError):
     """A results folder cannot be used (it belongs to another study, or is incomplete)."""
+
+
+class MemoryLimitError(SpillgaugeError):
+    """The run would need more memory than the machine has."""
 
 
 class DegenerateEstimateWarning(RuntimeWarning):

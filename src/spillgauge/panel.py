@@ -6,6 +6,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from spillgauge.schedule import read_only_view
+
 __all__ = ["OutcomePanel"]
 
 
@@ -54,7 +56,7 @@ class OutcomePanel:
                 raise ValueError(f"{name} must have the shape of pool_fulfilled {shape}")
         for name in ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
                      "pool_demanded", "pool_lost", "pool_stock"):
-            getattr(self, name).setflags(write=False)
+            object.__setattr__(self, name, read_only_view(getattr(self, name)))
 
     @property
     def n_users(self) -> int:

@@ -13,9 +13,23 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import sparse
 
-__all__ = ["AssignmentSchedule", "UNIT_KINDS"]
+__all__ = ["AssignmentSchedule", "UNIT_KINDS", "RANDOMIZATIONS", "read_only_view"]
 
 UNIT_KINDS = ("user", "cluster", "pool", "market")
+RANDOMIZATIONS = ("complete", "bernoulli")  # how a design draws its units ("fixed": a truth world)
+
+
+def read_only_view(array: np.ndarray) -> np.ndarray:
+    """Return a read-only view of ``array``; the caller's array stays writable.
+
+    >>> a = np.arange(3)
+    >>> v = read_only_view(a)
+    >>> v.flags.writeable, a.flags.writeable
+    (False, True)
+    """
+    view = np.asarray(array).view()
+    view.setflags(write=False)
+    return view
 
 
 @dataclass(frozen=True, eq=False, slots=True)
@@ -85,14 +99,14 @@ class AssignmentSchedule:
         if unit_of_user.ndim != 1 or (unit_of_user.size and (
                 unit_of_user.min() < 0 or unit_of_user.max() >= is_treated.shape[0])):
             raise ValueError("unit_of_user must be 1-D with values in [0, n_units)")
-        if self.randomization not in ("complete", "bernoulli", "fixed"):
-            raise ValueError("randomization must be 'complete', 'bernoulli' or 'fixed'")
+        if self.randomization not in (*RANDOMIZATIONS, "fixed"):
+            raise ValueError(f"randomization must be one of {(*RANDOMIZATIONS, 'fixed')}; "
+                             f"got {self.randomization!r}")
         if self.unit_kind not in UNIT_KINDS:
             raise ValueError(f"unit_kind must be one of {UNIT_KINDS}; got {self.unit_kind!r}")
         for name, value in (("unit_of_user", unit_of_user), ("is_treated", is_treated),
                             ("period_start_ticks", starts)):
-            value.setflags(write=False)
-            object.__setattr__(self, name, value)
+            object.__setattr__(self, name, read_only_view(value))
 
     @classmethod
     def fixed(cls, *, n_users: int, n_ticks: int, is_treated: bool) -> AssignmentSchedule:

@@ -11,11 +11,8 @@ import time
 
 import pytest
 
-from spillgauge.study.resources import (
-    MemoryLimitError,
-    check_memory,
-    estimate_memory_bytes,
-)
+from spillgauge.errors import MemoryLimitError
+from spillgauge.study.resources import check_memory, estimate_memory_bytes
 from spillgauge.study.run import run_study
 from spillgauge.scenario.reading import parse_scenario
 

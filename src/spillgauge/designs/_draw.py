@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from spillgauge.schedule import RANDOMIZATIONS
 from spillgauge.seeding import check_rng
 
 __all__ = ["draw_treated_units"]
@@ -24,8 +25,8 @@ def draw_treated_units(n_units: int, *, share: float, randomization: str,
     check_rng(rng)
     if randomization == "bernoulli":
         return rng.random(n_units) < share
-    if randomization != "complete":
-        raise ValueError(f"randomization must be 'complete' or 'bernoulli'; got {randomization!r}")
+    if randomization not in RANDOMIZATIONS:
+        raise ValueError(f"randomization must be one of {RANDOMIZATIONS}; got {randomization!r}")
     n_treated = int(round(share * n_units))
     if n_units >= 2:
         n_treated = min(max(n_treated, 1), n_units - 1)

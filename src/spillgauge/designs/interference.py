@@ -135,8 +135,8 @@ class InterferenceTestDesign(DesignKind):
 
         test = interference_test(panel, schedule, confidence=confidence)
         arm = test.cluster_arm  # its estimate of the GTE is the cluster half's
-        return Estimate(arm.point, arm.standard_error, arm.ci_low, arm.ci_high, arm.method,
-                        arm.n_units, diagnostic=InterferenceDiagnostic(
+        return Estimate(arm.point, arm.standard_error, arm.ci_low, arm.ci_high,
+                        self.estimator_name(spec), arm.n_units, diagnostic=InterferenceDiagnostic(
                             user_arm_point=test.user_arm.point,
                             cluster_arm_point=test.cluster_arm.point, delta=test.delta,
                             delta_se=test.delta_se, statistic=test.statistic,

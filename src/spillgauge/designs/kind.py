@@ -21,7 +21,7 @@ from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.keys import DesignKey, check
-from spillgauge.schedule import AssignmentSchedule
+from spillgauge.schedule import RANDOMIZATIONS, AssignmentSchedule
 
 __all__ = ["DesignKind", "MarketView", "CLUSTER_SOURCES", "cluster_source_key",
            "resolution_key", "share_key", "randomization_key", "describe_clusters",
@@ -147,7 +147,7 @@ def share_key(doc: str = "share of units treated") -> DesignKey:
 def randomization_key() -> DesignKey:
     """Return the declaration of ``randomization``: complete or Bernoulli."""
     return DesignKey(name="randomization", type=str, default="complete",
-                     choices=("complete", "bernoulli"),
+                     choices=RANDOMIZATIONS,
                      doc="exactly round(share x units) treated, or each unit independently")
 
 

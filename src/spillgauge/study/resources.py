@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import os
 
-from spillgauge.errors import SpillgaugeError
+from spillgauge.errors import MemoryLimitError
 from spillgauge.scenario import Scenario
 
-__all__ = ["estimate_memory_bytes", "available_memory_bytes", "check_memory", "MemoryLimitError"]
+__all__ = ["estimate_memory_bytes", "available_memory_bytes", "check_memory"]
 
 _BYTES_PER_CANDIDATE = 72       # event arrays of one replication (user, time, tick, pool, ...)
 _BYTES_PER_CANDIDATE_WORLD = 5  # per world: accepted / served flags and a float transient
@@ -15,10 +15,6 @@ _BYTES_PER_USER_DAY_WORLD = 16  # fulfilled and demanded per user and day, and t
 _BYTES_PER_USER = 120           # population, clusters, graph degree
 _BYTES_PER_EDGE = 24            # symmetric CSR adjacency (data + index, both directions)
 _BASE_BYTES = 200 * 2**20       # interpreter, numpy, scipy, networkx, simpy
-
-
-class MemoryLimitError(SpillgaugeError):
-    """The run would need more memory than the machine has."""
 
 
 def _orders_per_week(scenario: Scenario) -> float:
