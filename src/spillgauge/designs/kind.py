@@ -20,10 +20,11 @@ from scipy import sparse
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec, Scenario
+from spillgauge.scenario.config import CLUSTER_SOURCES
 from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import RANDOMIZATIONS, AssignmentSchedule
 
-__all__ = ["DesignKind", "MarketView", "CLUSTER_SOURCES", "cluster_source_key",
+__all__ = ["DesignKind", "MarketView", "cluster_source_key",
            "resolution_key", "share_key", "randomization_key", "describe_clusters",
            "cluster_label", "check_graph_clusters"]
 
@@ -120,7 +121,6 @@ class DesignKind:
 
 
 # Keys and words shared by the kinds that randomize clusters.
-CLUSTER_SOURCES = ("pools", "graph", "pools+graph")
 
 
 def cluster_source_key() -> DesignKey:

@@ -22,11 +22,11 @@ from spillgauge.model.graph import (
 )
 from spillgauge.model.population import Population, build_population, read_csv_columns
 from spillgauge.scenario import Scenario
+from spillgauge.scenario.config import CLUSTER_SOURCES
 from spillgauge.seeding import MARKET, stream
 
 __all__ = ["Market", "build_market", "CLUSTER_SOURCES"]
 
-CLUSTER_SOURCES = ("pools", "graph", "pools+graph")
 _CACHE: OrderedDict = OrderedDict()
 _CACHE_SIZE = 4
 

@@ -23,9 +23,12 @@ __all__ = [
     "Study",
     "DesignSpec",
     "Scenario",
+    "SECTIONS",
+    "CLUSTER_SOURCES",
 ]
 
 _STOCKOUT_RULES = ("lost", "substitute")
+CLUSTER_SOURCES = ("pools", "graph", "pools+graph")  # the clusterings a market offers
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
 
 
@@ -275,3 +278,7 @@ class Scenario:
             if spec.label == label:
                 return spec
         raise ScenarioError("design", "one of " + ", ".join(d.label for d in self.designs), label)
+
+
+SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
+            "effect": Effect, "study": Study}  # the scenario's sections, in file order

@@ -20,16 +20,7 @@ from spillgauge.designs.registry import (
     make_design_spec,
 )
 from spillgauge.errors import ScenarioError
-from spillgauge.scenario.config import (
-    Calendar,
-    DesignSpec,
-    Effect,
-    Graph,
-    Pools,
-    Scenario,
-    Study,
-    Users,
-)
+from spillgauge.scenario.config import SECTIONS, DesignSpec, Scenario
 from spillgauge.scenario.keys import coerce
 
 __all__ = ["load_scenario", "parse_scenario", "validate_scenario", "scenario_to_dict",
@@ -38,8 +29,7 @@ __all__ = ["load_scenario", "parse_scenario", "validate_scenario", "scenario_to_
 # ---------------------------------------------------------------------------
 # Reading TOML tables into the dataclasses
 
-_SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
-             "effect": Effect, "study": Study}
+_SECTIONS = SECTIONS
 _TOP_KEYS = {"name", "description", *_SECTIONS, "design"}
 
 

@@ -3,9 +3,7 @@
 from __future__ import annotations
 
 import json
-import math
 import os
-import tempfile
 from pathlib import Path
 
 from spillgauge.errors import ResultsError

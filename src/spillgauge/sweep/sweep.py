@@ -40,22 +40,14 @@ from spillgauge.statistics.trust import assess_trust
 from spillgauge.files import dumps, write_atomic
 from spillgauge.study.result import StudyResult
 from spillgauge.study.run import run_study
-from spillgauge.scenario import (
-    Calendar,
-    Effect,
-    Graph,
-    Pools,
-    Scenario,
-    Study,
-    Users,
-)
+from spillgauge.scenario import Scenario
+from spillgauge.scenario.config import SECTIONS
 from spillgauge.scenario.reading import scenario_to_dict, validate_scenario
 
 __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys", "run_sweep",
            "write_sweep"]
 
-_SECTIONS = {"calendar": Calendar, "users": Users, "pools": Pools, "graph": Graph,
-             "effect": Effect, "study": Study}
+_SECTIONS = SECTIONS
 _NOT_SWEPT = {"study.reps", "study.seed"}  # arguments of the sweep itself
 # the numeric keys the design kinds declare, by name
 _DESIGN_FIELDS = {key.name: key.type for kind in KINDS.values() for key in kind.keys
