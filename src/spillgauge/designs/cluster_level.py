@@ -77,11 +77,11 @@ class ClusterLevel(DesignKind):
         resolution_key(),
         DesignKey(name="estimator", type=str, default="hajek",
                   choices=("hajek", "horvitz_thompson"),
-                  doc="ratio (Hajek) or unbiased (Horvitz-Thompson) estimator of the cluster "
-                      "means"),
+                  doc="`\"hajek\"` (ratio of cluster totals) or `\"horvitz_thompson\"`"),
         DesignKey(name="exposure", type=str, default="none", choices=("none", "neighbourhood"),
-                  doc="\"neighbourhood\": compare users whose whole graph neighbourhood is in "
-                      "one arm (exposure mapping; Aronow & Samii 2017)"),
+                  doc="`\"neighbourhood\"`: graph cluster randomization's exposure-mapping "
+                      "estimator (users whose closed neighbourhood is wholly treated vs wholly "
+                      "control; Ugander et al. 2013, Aronow & Samii 2017)"),
     )
     shown_keys = ("clusters",)
 

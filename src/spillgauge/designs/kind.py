@@ -126,16 +126,17 @@ class DesignKind:
 def cluster_source_key() -> DesignKey:
     """Return the declaration of ``clusters``: where the clusters come from."""
     return DesignKey(name="clusters", type=str, default="pools", choices=CLUSTER_SOURCES,
-                     doc="stock pools, graph communities (Leiden/Louvain on the social graph), "
-                         "or pools split by communities")
+                     doc="`\"pools\"`, `\"graph\"` (communities of the social graph) or "
+                         "`\"pools+graph\"` (communities kept whole, each joined to the pool most "
+                         "of its members use)")
 
 
 def resolution_key() -> DesignKey:
     """Return the declaration of ``resolution``: the community detection's resolution."""
     return DesignKey(name="resolution", type=float, default=1.0, minimum=0, maximum=100,
                      exclusive_minimum=True,
-                     doc="resolution of graph community detection (larger: more, smaller "
-                         "clusters)")
+                     doc="resolution of the community detection for graph clusters (larger = "
+                         "smaller clusters)")
 
 
 def share_key(doc: str = "share of units treated") -> DesignKey:
@@ -148,7 +149,8 @@ def randomization_key() -> DesignKey:
     """Return the declaration of ``randomization``: complete or Bernoulli."""
     return DesignKey(name="randomization", type=str, default="complete",
                      choices=RANDOMIZATIONS,
-                     doc="exactly round(share x units) treated, or each unit independently")
+                     doc="`\"complete\"` (exactly round(share x units) treated) or "
+                         "`\"bernoulli\"` (each unit on its own draw)")
 
 
 def describe_clusters(source: str, *, plural: bool = False) -> str:

@@ -117,8 +117,8 @@ def key_reference() -> str:
                   + design.summary[1:] + ".", "", "| key | type | default | allowed | meaning |",
                   "|---|---|---|---|---|"]
         for key in design.keys:
-            default = repr(key.default) if isinstance(key.default, str) else \
-                str(key.default).lower() if isinstance(key.default, bool) else f"{key.default:g}"
+            default = f'"{key.default}"' if isinstance(key.default, str) else \
+                str(key.default).lower() if isinstance(key.default, bool) else repr(key.default)
             lines.append(f"| `{key.name}` | {key.type.__name__} | `{default}` | "
                          f"{key.expected()} | {key.doc} |")
         lines.append("")

@@ -67,7 +67,10 @@ class Rollout(DesignKind):
                "first period; one group never switches")
     keys = (
         DesignKey(name="waves", type=int, default=4, minimum=1, maximum=50,
-                  doc="number of switch-on times (needs at least waves + 1 pools)"),
+                  doc="the horizon is split into waves + 1 periods, the first all control; "
+                      "the pools are split at random into waves + 1 groups, group k switching "
+                      "on at period k and staying on, one group never (needs at least "
+                      "waves + 1 pools)"),
     )
     shown_keys = ("waves",)
 

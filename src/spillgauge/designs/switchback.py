@@ -67,10 +67,12 @@ class Switchback(DesignKind):
                   doc="length of a time block in hours (a multiple of calendar.tick_hours, "
                       "at most half the horizon)"),
         DesignKey(name="burn_in_hours", type=int, default=0, minimum=0,
-                  doc="hours after each switch left out of the analysis (less than "
-                      "block_hours)"),
+                  doc="burn-in: the first hours after a switch, where the previous arm's "
+                      "carryover lingers, are estimated only from blocks that did not switch "
+                      "(less than block_hours; see docs/designs.md)"),
         DesignKey(name="per", type=str, default="market", choices=("market", "pool"),
-                  doc="switch the whole market at once, or each pool on its own"),
+                  doc="`\"market\"` switches everyone together; `\"pool\"` switches each pool "
+                      "on its own draw"),
     )
     shown_keys = ("block_hours", "per")
     keeps_switch_profile = True
