@@ -238,7 +238,9 @@ def test_nan_replications_are_dropped_and_counted():
     m = design_metrics(est, se, est - 1, est + 1, np.full(4, 2.0))
     clean = design_metrics(est[[0, 3]], se[[0, 3]], est[[0, 3]] - 1, est[[0, 3]] + 1, [2.0, 2.0])
     assert m.n_reps == 2 and m.n_dropped == 2
-    assert m.to_dict() | {"n_dropped": 0} == pytest.approx(clean.to_dict(), nan_ok=True)
+    assert m.usable_share == 0.5 and m.usable_share_se == pytest.approx(0.25)  # sqrt(.5*.5/4)
+    usable = {"n_dropped": 0, "usable_share": 1.0, "usable_share_se": 0.0}
+    assert m.to_dict() | usable == pytest.approx(clean.to_dict(), nan_ok=True)
 
 
 def test_all_nan_gives_nan_metrics():
@@ -246,7 +248,9 @@ def test_all_nan_gives_nan_metrics():
     m = design_metrics(nan, nan, nan, nan, np.ones(3))
     d = m.to_dict()
     assert d["n_reps"] == 0 and d["n_dropped"] == 3 and d["n_significant"] == 0
-    assert all(math.isnan(v) for k, v in d.items() if not k.startswith("n_"))
+    assert d["usable_share"] == 0.0
+    assert all(math.isnan(v) for k, v in d.items()
+               if not k.startswith(("n_", "usable_share")))
 
 
 def test_zero_mean_gte_leaves_ratio_metrics_undefined():
@@ -275,3 +279,28 @@ def test_design_metrics_refuses_mismatched_shapes():
         design_metrics([1.0, 2.0], [1.0, 1.0], [0.0], [3.0, 3.0], 1.0)
     with pytest.raises(ValueError, match="1-D"):
         design_metrics([[1.0]], [[1.0]], [[0.0]], [[2.0]], 1.0)
+
+
+def test_rounding_in_a_degenerate_world_is_not_a_miss():
+    # Both arms identical (stock binds everywhere): the estimate and its SE are 0 up to
+    # rounding, and an interval [-2e-16, 1e-18] must cover a GTE of exactly 0. Hand-worked.
+    m = design_metrics([1e-17, -3e-17], [1e-17, 1e-17], [-2e-16, -2e-16], [1e-18, -1e-18],
+                       [0.0, 0.0], outcome_scale=7.0)
+    assert m.coverage == 1.0 and m.power == 0.0
+
+
+def test_relative_bias_is_undefined_when_the_gte_is_within_noise_of_zero():
+    # GTE values with mean 0.001 and SD 0.1 over 4 replications: 2 MC SE = 0.1 > 0.001.
+    gte = np.array([0.1, -0.1, 0.1, -0.096])
+    m = design_metrics(gte + 0.05, [0.1] * 4, gte - 0.2, gte + 0.3, gte)
+    assert math.isnan(m.relative_bias) and math.isnan(m.type_s)
+    assert m.bias == pytest.approx(0.05)
+
+
+def test_error_sd_ignores_gte_movement():
+    # Each estimate misses its own replication's GTE by the same amount: the errors have
+    # no spread even though the estimates (and the GTEs) move. Hand-worked.
+    gte = np.array([1.0, 1.5, 0.5, 1.2])
+    m = design_metrics(gte + 0.1, [0.2] * 4, gte - 0.3, gte + 0.5, gte)
+    assert m.error_sd == pytest.approx(0.0, abs=1e-12)
+    assert m.sd == pytest.approx(np.std(gte, ddof=1))

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import re
 
+import numpy as np
 import pytest
 
 from spillgauge.statistics.metrics import DesignMetrics
@@ -190,3 +191,35 @@ def test_recommend_refuses_bad_input():
         recommend([_user(_metrics())], gte=GTE, gte_se=0.01, alpha=0.0)
     with pytest.raises(ValueError, match="n_units"):
         Candidate(label="x", is_user_level=True, unit="user", n_units=-1.0, metrics=_metrics())
+
+
+def test_identical_errors_give_the_same_verdict_with_and_without_gte_movement():
+    # The trust rule judges each estimate against its own replication's GTE, so moving
+    # the GTEs (daily shocks) while keeping every error fixed cannot change the verdict.
+    from spillgauge.statistics.metrics import design_metrics
+    from spillgauge.statistics.trust import assess_trust
+
+    rng = np.random.default_rng(0)
+    # bias 0.08 against an error SD of 0.1 (over half of it), wide intervals keep coverage;
+    # judged against the SD of the estimates, the moving GTEs would hide the bias.
+    error = 0.08 + rng.normal(0, 0.1, 200)
+    still = np.full(200, 1.0)
+    moving = 1.0 + rng.normal(0, 0.5, 200)
+    verdicts = []
+    for gte in (still, moving):
+        est = gte + error
+        m = design_metrics(est, np.full(200, 0.2), est - 0.4, est + 0.4, gte)
+        verdicts.append(assess_trust(m).is_trusted)
+    assert verdicts == [False, False]
+
+
+def test_a_design_that_often_gives_no_estimate_is_not_trusted_and_says_why():
+    from spillgauge.statistics.metrics import design_metrics
+    from spillgauge.statistics.trust import assess_trust
+
+    est = np.array([1.0, np.nan, 1.1, np.nan, 0.9, 1.0, np.nan, 1.05])
+    m = design_metrics(est, np.full(8, 0.1), est - 0.2, est + 0.2, np.ones(8))
+    verdict = assess_trust(m, failure_note="every unit in one arm")
+    assert not verdict.is_trusted and verdict.problem == "unusable"
+    assert "62%" in verdict.reason and "3 of 8" in verdict.reason
+    assert "every unit in one arm" in verdict.reason

@@ -75,6 +75,10 @@ class DesignMetrics:
     type_m_se: float
     mean_se: float
     mean_se_se: float
+    usable_share: float = math.nan
+    usable_share_se: float = math.nan
+    error_sd: float = math.nan
+    error_sd_se: float = math.nan
 
     def to_dict(self) -> dict[str, float | int]:
         """Return the fields as a dict of plain ``int`` (counts) and ``float`` (NaN allowed).
@@ -190,8 +194,11 @@ def minimum_detectable_effect(standard_error: float | np.ndarray, *, alpha: floa
     return float(mde) if mde.ndim == 0 else mde
 
 
+TOLERANCE = 1e-9  # relative to the outcome's scale: differences below it are rounding
+
+
 def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
-                   alpha: float = 0.05) -> DesignMetrics:
+                   alpha: float = 0.05, outcome_scale: float | None = None) -> DesignMetrics:
     """Summarise one design's estimates over replications against the realised GTE.
 
     Parameters
@@ -204,6 +211,12 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     alpha : float, default 0.05
         Level of the test behind ``power`` (kept for the record: significance is
         read from the given CI, which should be a ``1 - alpha`` interval).
+    outcome_scale : float, optional
+        The outcome's typical size (e.g. the control mean, orders per user).
+        Comparisons (coverage, significance, a GTE of zero) allow a tolerance of
+        ``TOLERANCE * outcome_scale``, so floating-point rounding in a degenerate
+        world (both arms identical) is not read as a miss. By default the largest
+        absolute estimate, bound or GTE.
 
     Returns
     -------
@@ -213,21 +226,28 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
 
         - mean_estimate = mean(estimate); SE sd / sqrt(n)
         - bias = mean(d); SE sd(d) / sqrt(n)
-        - relative_bias = bias / g_bar (a fraction; NaN if g_bar = 0); SE by the
-          delta method for a ratio of means,
-          sqrt((var(d) - 2 R cov(d, gte) + R^2 var(gte)) / n) / |g_bar|
+        - relative_bias = bias / g_bar (a fraction); SE by the delta method for a
+          ratio of means, sqrt((var(d) - 2 R cov(d, gte) + R^2 var(gte)) / n) / |g_bar|.
+          Undefined (NaN) when |g_bar| is within 2 Monte Carlo SEs of zero (or
+          within the tolerance), where a ratio to it means nothing.
         - sd = SD of the estimates (ddof=1); SE sd / sqrt(2 (n - 1))
+        - error_sd = SD of the errors d (each estimate against its own
+          replication's GTE, so GTE movement between replications is not counted
+          as the design's noise); SE error_sd / sqrt(2 (n - 1))
         - rmse = sqrt(mean(d^2)); SE sd(d^2) / (2 rmse sqrt(n)) (delta method)
         - coverage = share with ci_low <= gte_r <= ci_high; SE sqrt(p (1 - p) / n)
         - ci_width = mean(ci_high - ci_low); SE sd(width) / sqrt(n)
         - power = share whose CI excludes 0; SE sqrt(p (1 - p) / n)
         - type_s = among the ``n_significant`` replications whose CI excludes 0, the
           share whose estimate's sign differs from the sign of g_bar; SE
-          sqrt(p (1 - p) / n_significant). NaN if none is significant or g_bar = 0.
+          sqrt(p (1 - p) / n_significant). NaN if none is significant or g_bar is
+          zero as for relative_bias.
         - type_m = mean(|estimate| among significant) / |g_bar| (the exaggeration
           ratio); SE sd(|estimate| among significant) / |g_bar| / sqrt(n_significant).
-          NaN if none is significant or g_bar = 0.
+          NaN if none is significant or g_bar is zero as for relative_bias.
         - mean_se = mean(standard error); SE sd(standard error) / sqrt(n)
+        - usable_share = n / (n + n_dropped), the share of replications that gave
+          an estimate and an interval; SE sqrt(p (1 - p) / (n + n_dropped))
 
         Every metric is NaN when no replication is usable.
 
@@ -255,20 +275,29 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     n_dropped = int(est.size - is_used.sum())
     est, se, low, high, g = (a[is_used] for a in (est, se, low, high, g))
     n = est.size
+    usable_share, usable_share_se = _share(is_used) if is_used.size else (math.nan, math.nan)
     if n == 0:
-        return _empty_metrics(n_dropped)
+        return _empty_metrics(n_dropped, usable_share, usable_share_se)
+    if outcome_scale is None:
+        outcome_scale = float(max(np.abs(est).max(), np.abs(g).max(),
+                                  np.abs(low[np.isfinite(low)]).max(initial=0.0),
+                                  np.abs(high[np.isfinite(high)]).max(initial=0.0)))
+    tol = TOLERANCE * max(float(outcome_scale), np.finfo(float).tiny)
 
     error = est - g
     g_bar = float(g.mean())
     bias = float(error.mean())
     sd = _sd(est)
+    error_sd = _sd(error)
+    g_bar_se = _sd(g) / math.sqrt(n) if n > 1 else 0.0
+    is_zero_gte = abs(g_bar) <= max(2 * g_bar_se, tol)
     rmse = math.sqrt(float(np.mean(error**2)))
     if rmse > 0:
         rmse_se = _sd(error**2) / (2 * rmse * math.sqrt(n))
     else:
         rmse_se = 0.0 if n > 1 else math.nan
 
-    if g_bar != 0:
+    if not is_zero_gte:
         ratio = bias / g_bar
         if n > 1:
             cov = np.cov(error, g, ddof=1)
@@ -279,14 +308,14 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     else:
         ratio, relative_bias_se = math.nan, math.nan
 
-    is_covered = (low <= g) & (g <= high)
-    is_significant = (low > 0) | (high < 0)
+    is_covered = (low - tol <= g) & (g <= high + tol)
+    is_significant = (low > tol) | (high < -tol)
     n_significant = int(is_significant.sum())
     coverage, coverage_se = _share(is_covered)
     power, power_se = _share(is_significant)
     width = high - low
 
-    if n_significant > 0 and g_bar != 0:
+    if n_significant > 0 and not is_zero_gte:
         significant = est[is_significant]
         type_s, type_s_se = _share(np.sign(significant) != np.sign(g_bar))
         abs_significant = np.abs(significant)
@@ -307,6 +336,8 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         power=power, power_se=power_se,
         type_s=type_s, type_s_se=type_s_se, type_m=type_m, type_m_se=type_m_se,
         mean_se=float(se.mean()), mean_se_se=_sd(se) / math.sqrt(n),
+        usable_share=usable_share, usable_share_se=usable_share_se,
+        error_sd=error_sd, error_sd_se=error_sd / math.sqrt(2 * (n - 1)) if n > 1 else math.nan,
     )
 
 
@@ -342,7 +373,9 @@ def _share(is_event: np.ndarray) -> tuple[float, float]:
     return p, math.sqrt(p * (1 - p) / is_event.size)
 
 
-def _empty_metrics(n_dropped: int) -> DesignMetrics:
+def _empty_metrics(n_dropped: int, usable_share: float, usable_share_se: float
+                   ) -> DesignMetrics:
     values = {f.name: math.nan for f in dataclasses.fields(DesignMetrics)}
-    values.update(n_reps=0, n_dropped=n_dropped, n_significant=0)
+    values.update(n_reps=0, n_dropped=n_dropped, n_significant=0, usable_share=usable_share,
+                  usable_share_se=usable_share_se)
     return DesignMetrics(**values)

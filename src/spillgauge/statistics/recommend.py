@@ -1,7 +1,7 @@
 """Recommend a randomization unit from the designs' metrics, and say why in numbers.
 
 A design is *trusted* when its confidence interval covers the GTE nearly as often
-as promised and its bias does not dominate its noise (see :func:`is_trusted`).
+as promised and its bias does not dominate its noise (see :func:`~spillgauge.statistics.trust.is_trusted`).
 Among trusted designs the most accurate (lowest RMSE) wins; when several are
 equally accurate within Monte Carlo error, the finer unit (more units per
 replication) is preferred. When no design is trusted, the recommendation says so
@@ -42,6 +42,8 @@ class Candidate:
         The design's metrics over the study's replications.
     params : Mapping, optional
         The design's parameters, for display (e.g. ``{"block_hours": 24}``).
+    failure_note : str, optional
+        Why replications gave no estimate, when some did not.
     """
 
     label: str
@@ -50,6 +52,7 @@ class Candidate:
     n_units: float
     metrics: DesignMetrics
     params: Mapping[str, object] = field(default_factory=dict)
+    failure_note: str = ""
 
     def __post_init__(self) -> None:
         if not self.label:
@@ -110,7 +113,7 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
 
     Notes
     -----
-    Among the designs that pass :func:`is_trusted`, the best is the one of lowest
+    Among the designs that pass :func:`~spillgauge.statistics.trust.is_trusted`, the best is the one of lowest
     RMSE. Every trusted design with ``rmse - best_rmse <= 2 sqrt(rmse_se^2 +
     best_rmse_se^2)`` is as accurate within Monte Carlo error; of these the one with
     the most units per replication is chosen, ties broken by RMSE (preferring the
@@ -130,7 +133,7 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
     """
     ranked = _check_inputs(candidates, gte, gte_se, alpha)
     ranking = tuple(c.label for c in ranked)
-    trusted = [c for c in ranked if assess_trust(c.metrics, alpha=alpha).reason is None]
+    trusted = [c for c in ranked if _why_not(c, alpha) is None]
     if not trusted:
         return Recommendation(label=None, reason=_explain_none(ranked, gte, alpha),
                               is_trustworthy=False, trusted=(), ranking=ranking)
@@ -163,6 +166,12 @@ def _check_inputs(candidates, gte, gte_se, alpha) -> list[Candidate]:
     return [candidates[i] for i in order]
 
 
+def _why_not(candidate: Candidate, alpha: float) -> str | None:
+    """Return why a candidate is not trusted, in words, or None when it is."""
+    return assess_trust(candidate.metrics, alpha=alpha,
+                        failure_note=candidate.failure_note).reason
+
+
 def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
     m = chosen.metrics
     params = ", ".join(f"{k}={v}" for k, v in chosen.params.items())
@@ -190,8 +199,8 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
             f"{best.label} has a slightly lower RMSE ({format_number(best.metrics.rmse)}), but the gap is "
             f"within Monte Carlo error, so the finer unit is preferred: {chosen.n_units:,.0f} "
             f"units per replication against {best.n_units:,.0f}.")
-    untrusted = [f"{c.label} {assess_trust(c.metrics, alpha=alpha).reason}" for c in ranked
-                 if assess_trust(c.metrics, alpha=alpha).reason is not None]
+    untrusted = [f"{c.label} {_why_not(c, alpha)}" for c in ranked
+                 if _why_not(c, alpha) is not None]
     if untrusted:
         sentences.append("Not trusted: " + "; ".join(untrusted) + ".")
     return " ".join(sentences)
@@ -228,7 +237,7 @@ def _versus_user(chosen, user, gte) -> list[str]:
 
 
 def _explain_none(ranked, gte, alpha) -> str:
-    problems = "; ".join(f"{c.label} {assess_trust(c.metrics, alpha=alpha).reason}" for c in ranked)
+    problems = "; ".join(f"{c.label} {_why_not(c, alpha)}" for c in ranked)
     sentences = [f"No design can be trusted at the nominal {1 - alpha:.0%} level: {problems}."]
     least_bad = next((c for c in ranked if math.isfinite(c.metrics.rmse)), None)
     if least_bad is None:

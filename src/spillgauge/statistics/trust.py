@@ -8,9 +8,11 @@ from dataclasses import dataclass
 from spillgauge.formatting import format_number
 from spillgauge.statistics.metrics import DesignMetrics
 
-__all__ = ["TrustVerdict", "assess_trust", "is_trusted", "COVERAGE_ALLOWANCE"]
+__all__ = ["TrustVerdict", "assess_trust", "is_trusted", "COVERAGE_ALLOWANCE",
+           "MIN_USABLE_SHARE"]
 
 COVERAGE_ALLOWANCE = 0.05  # points of coverage below nominal that are tolerated
+MIN_USABLE_SHARE = 0.95  # share of replications that must give an estimate and an interval
 
 
 @dataclass(frozen=True, slots=True)
@@ -20,7 +22,7 @@ class TrustVerdict:
     Parameters
     ----------
     is_trusted : bool
-    problem : {None, "no_estimates", "coverage", "bias"}
+    problem : {None, "no_estimates", "unusable", "coverage", "bias"}
         The first check that failed.
     needed_coverage : float
         The coverage the design needed.
@@ -38,8 +40,12 @@ def _zero_nan(x: float) -> float:
     return 0.0 if math.isnan(x) else x
 
 
-def assess_trust(metrics: DesignMetrics, *, alpha: float = 0.05) -> TrustVerdict:
+def assess_trust(metrics: DesignMetrics, *, alpha: float = 0.05,
+                 failure_note: str = "") -> TrustVerdict:
     """Apply the trust rule (see :func:`is_trusted`) and say which check failed.
+
+    ``failure_note`` says why replications gave no estimate (an estimator's
+    warning), for the reason of an unusable design.
 
     Examples
     --------
@@ -53,15 +59,23 @@ def assess_trust(metrics: DesignMetrics, *, alpha: float = 0.05) -> TrustVerdict
     m = metrics
     needed = (1 - alpha) - max(COVERAGE_ALLOWANCE, 2 * _zero_nan(m.coverage_se))
     if m.n_reps == 0 or not all(map(math.isfinite, (m.coverage, m.bias, m.sd, m.rmse))):
-        return TrustVerdict(False, "no_estimates", needed, "gave no usable estimates")
+        return TrustVerdict(False, "no_estimates", needed, "gave no usable estimates"
+                            + (f" ({failure_note})" if failure_note else ""))
+    if m.usable_share < MIN_USABLE_SHARE:
+        total = m.n_reps + m.n_dropped
+        why = (f"gave an estimate and an interval in only {m.usable_share:.0%} of "
+               f"replications ({m.n_dropped} of {total} had none"
+               + (f": {failure_note}" if failure_note else "") + ")")
+        return TrustVerdict(False, "unusable", needed, why)
     if m.coverage < needed:
         return TrustVerdict(False, "coverage", needed,
                             f"covers the GTE in {m.coverage:.1%} of replications "
                             f"(needs {needed:.1%})")
-    if not (abs(m.bias) <= 2 * m.bias_se or abs(m.bias) <= 0.5 * m.sd):
-        if m.sd > 0:
-            why = f"has bias {format_number(m.bias, sign=True)}, {abs(m.bias) / m.sd:.1f} " \
-                  f"times its SD"
+    noise = m.error_sd if math.isfinite(m.error_sd) else m.sd
+    if not (abs(m.bias) <= 2 * m.bias_se or abs(m.bias) <= 0.5 * noise):
+        if noise > 0:
+            why = f"has bias {format_number(m.bias, sign=True)}, {abs(m.bias) / noise:.1f} " \
+                  f"times the SD of its errors"
         else:
             why = f"has bias {format_number(m.bias, sign=True)} with no spread at all"
         return TrustVerdict(False, "bias", needed, why)
@@ -81,13 +95,17 @@ def is_trusted(metrics: DesignMetrics, *, alpha: float = 0.05) -> bool:
     Returns
     -------
     bool
-        True when both hold:
+        True when all hold:
 
+        - usable_share >= 0.95: nearly every replication gave an estimate and an
+          interval (a design that often gives none cannot be run as planned);
         - coverage >= (1 - alpha) - max(0.05, 2 coverage_se): the CI covers the
           GTE nearly as often as promised (a 5-point allowance, widened when the
           Monte Carlo error is larger);
-        - |bias| <= 2 bias_se or |bias| <= 0.5 sd: the bias is not detectable or is
-          small next to the noise.
+        - |bias| <= 2 bias_se or |bias| <= 0.5 error_sd: the bias is not
+          detectable or is small next to the noise of the errors (each estimate
+          against its own replication's GTE, so movement of the GTE between
+          replications is not counted as the design's noise).
 
         False when coverage, bias, SD or RMSE is not finite.
 
@@ -95,9 +113,9 @@ def is_trusted(metrics: DesignMetrics, *, alpha: float = 0.05) -> bool:
     -----
     The allowances are common practice, not from a published source. A biased
     design can keep its coverage only by having wide intervals; when its bias is
-    at most half its SD that is accepted here, and the recommender then ranks it
-    down by its RMSE. A design whose bias exceeds half its SD is refused even if
-    over-wide intervals keep its coverage.
+    at most half the SD of its errors that is accepted here, and the recommender
+    then ranks it down by its RMSE. A design whose bias exceeds that is refused
+    even if over-wide intervals keep its coverage.
 
     Examples
     --------

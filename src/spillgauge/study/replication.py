@@ -41,15 +41,21 @@ class DesignRun:
         statistics ride on ``estimate.diagnostic``).
     n_randomized : int
         Units x periods the design's schedule randomized.
+    note : str
+        The estimator's warning when the input was degenerate (e.g. every unit in
+        one arm), else empty.
     """
 
     estimate: Estimate
     n_randomized: int
+    note: str = ""
 
     def to_record(self) -> dict:
         """Return the run as saved in ``replications.jsonl`` (NaN kept; the writer nulls it)."""
         record = {saved: getattr(self.estimate, name) for saved, name in _SAVED_FIELDS}
         record["n_randomized"] = self.n_randomized
+        if self.note:
+            record["note"] = self.note
         diagnostic = self.estimate.diagnostic
         if diagnostic is not None:
             record.update({k: float(getattr(diagnostic, k)) for k in _SAVED_DIAGNOSTIC})
@@ -58,7 +64,8 @@ class DesignRun:
     @classmethod
     def from_record(cls, record: dict) -> DesignRun:
         """Rebuild a run saved with :meth:`to_record`."""
-        values = {k: nan_from_null(v) for k, v in record.items()}
+        note = record.get("note", "")
+        values = {k: nan_from_null(v) for k, v in record.items() if k != "note"}
         diagnostic = None
         if "statistic" in values:
             diagnostic = InterferenceDiagnostic(
@@ -69,7 +76,8 @@ class DesignRun:
                 rejects_chebyshev=bool(values["rejects_chebyshev"]))
         estimate = Estimate(**{name: values[saved] for saved, name in _SAVED_FIELDS},
                             method="", diagnostic=diagnostic)
-        return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]))
+        return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]),
+                   note=note)
 
 
 @dataclass(frozen=True, slots=True)
@@ -165,12 +173,15 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
     confidence = 1.0 - scenario.study.alpha
     runs = {}
     for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", DegenerateEstimateWarning)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", DegenerateEstimateWarning)
             estimate = estimate_design(spec, panel, schedule, confidence=confidence,
                                        tick_hours=scenario.calendar.tick_hours)
+        notes = [str(w.message) for w in caught
+                 if issubclass(w.category, DegenerateEstimateWarning)]
         runs[spec.label] = DesignRun(estimate=estimate,
-                                     n_randomized=schedule.n_units * schedule.n_periods)
+                                     n_randomized=schedule.n_units * schedule.n_periods,
+                                     note=notes[0] if notes else "")
     keep = replication == 0 if keep_traces is None else keep_traces
     traces = {}
     if keep:

@@ -8,6 +8,7 @@ and writes ``summary.json``'s content.
 
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -42,6 +43,8 @@ class DesignSummary:
     metrics : DesignMetrics
     interference : InterferenceSummary or None
         For a test of interference.
+    failure_note : str
+        The most common reason replications gave no estimate (empty when none failed).
     """
 
     label: str
@@ -53,6 +56,7 @@ class DesignSummary:
     is_recommendable: bool
     metrics: DesignMetrics
     interference: InterferenceSummary | None = None
+    failure_note: str = ""
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
@@ -146,13 +150,14 @@ def _design_params(spec: DesignSpec) -> dict:
 
 
 def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: np.ndarray,
-                      alpha: float) -> DesignSummary:
+                      alpha: float, outcome_scale: float) -> DesignSummary:
     kind = kind_of(spec)
     estimates = [r.runs[spec.label].estimate for r in results]
     column = {name: np.array([getattr(e, name) for e in estimates], dtype=float)
               for name in ("point", "standard_error", "ci_low", "ci_high")}
     metrics = design_metrics(column["point"], column["standard_error"], column["ci_low"],
-                             column["ci_high"], gte, alpha=alpha)
+                             column["ci_high"], gte, alpha=alpha, outcome_scale=outcome_scale)
+    notes = Counter(r.runs[spec.label].note for r in results if r.runs[spec.label].note)
     interference = None
     diagnostics = [e.diagnostic for e in estimates]
     if diagnostics and all(d is not None for d in diagnostics):
@@ -164,7 +169,8 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          unit=kind.describe_unit(spec), params=_design_params(spec),
                          is_user_level=kind.is_user_level,
                          is_recommendable=kind.is_recommendable, metrics=metrics,
-                         interference=interference)
+                         interference=interference,
+                         failure_note=notes.most_common(1)[0][0] if notes else "")
 
 
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
@@ -174,7 +180,9 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
     truth = summarise_truth([r.truth for r in results])
     gte = np.array([r.truth.gte for r in results])
     alpha = scenario.study.alpha
-    designs = {spec.label: _summarise_design(spec, results, gte, alpha)
+    # the outcome's scale, for tolerances: fulfilled orders per user in the busier world
+    outcome_scale = max(abs(truth.control_mean), abs(truth.treated_mean))
+    designs = {spec.label: _summarise_design(spec, results, gte, alpha, outcome_scale)
                for spec in scenario.designs}
     candidates = []
     for d in designs.values():
@@ -183,7 +191,7 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
         randomized = np.array([r.runs[d.label].n_randomized for r in results], dtype=float)
         candidates.append(Candidate(label=d.label, is_user_level=d.is_user_level, unit=d.unit,
                                     n_units=float(np.nanmean(randomized)), metrics=d.metrics,
-                                    params=d.params))
+                                    params=d.params, failure_note=d.failure_note))
     if candidates:
         advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
     else:
