@@ -99,6 +99,10 @@ CASES = {
     "hajek_exposure": (estimators.hajek_exposure, _exposure_world),
     "switchback_difference": (estimators.switchback_difference, _switchback_world),
     "difference_in_differences": (estimators.difference_in_differences, _rollout_world),
+    "propensity_score_matching": (estimators.propensity_score_matching, _user_world),
+    "inverse_probability_weighting": (estimators.inverse_probability_weighting, _user_world),
+    "augmented_inverse_probability_weighting": (
+        estimators.augmented_inverse_probability_weighting, _user_world),
 }
 
 

@@ -12,6 +12,7 @@ from collections.abc import Mapping
 from spillgauge.designs.cluster_level import ClusterLevel
 from spillgauge.designs.interference import InterferenceTestDesign
 from spillgauge.designs.kind import DesignKind
+from spillgauge.designs.opt_in import OptIn
 from spillgauge.designs.rollout import Rollout
 from spillgauge.designs.switchback import Switchback
 from spillgauge.designs.user_level import UserLevel
@@ -28,6 +29,7 @@ KINDS: Mapping[str, DesignKind] = {kind.name: kind for kind in (
     Switchback(),
     InterferenceTestDesign(),
     Rollout(),
+    OptIn(),
 )}
 
 DESIGN_KINDS = tuple(KINDS)

@@ -17,6 +17,11 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
+from spillgauge.estimators.propensity import (
+    augmented_inverse_probability_weighting,
+    inverse_probability_weighting,
+    propensity_score_matching,
+)
 from spillgauge.estimators.rollout import difference_in_differences
 from spillgauge.estimators.switchback import (
     switchback_difference,
@@ -43,4 +48,7 @@ __all__ = [
     "InterferenceTest",
     "switchback_optimal_points",
     "switchback_exposure_probabilities",
+    "propensity_score_matching",
+    "inverse_probability_weighting",
+    "augmented_inverse_probability_weighting",
 ]

@@ -45,6 +45,15 @@ class DesignSummary:
         For a test of interference.
     failure_note : str
         The most common reason replications gave no estimate (empty when none failed).
+    estimand : str
+        What the design's estimate targets (``"gte"``, ``"att"``, ``"launched_pools"``);
+        its metrics are against this estimand's truth in each replication.
+    truth : float
+        The mean over replications of the estimand's truth.
+    left_out_effect : float
+        For a launch: the mean true effect on the users it left out (NaN otherwise).
+    is_randomized : bool
+        False for a launch (shown apart, never recommended).
     """
 
     label: str
@@ -57,11 +66,18 @@ class DesignSummary:
     metrics: DesignMetrics
     interference: InterferenceSummary | None = None
     failure_note: str = ""
+    estimand: str = "gte"
+    truth: float = float("nan")
+    left_out_effect: float = float("nan")
+    is_randomized: bool = True
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
         entry = {"label": self.label, "kind": self.kind, "estimator": self.estimator,
-                 "unit": self.unit, **json_safe(self.metrics.to_dict())}
+                 "unit": self.unit, "estimand": self.estimand, "truth": json_safe(self.truth),
+                 "is_randomized": self.is_randomized, **json_safe(self.metrics.to_dict())}
+        if not self.is_randomized:
+            entry["left_out_effect"] = json_safe(self.left_out_effect)
         if self.interference is not None:
             entry["interference_test"] = json_safe(self.interference.to_dict())
         return entry
@@ -111,7 +127,7 @@ class StudyResult:
 
         rows = [row for rep in self.replications for row in rep.rows()]
         return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
-                                           "ci_high", "n_units", "gte"])
+                                           "ci_high", "n_units", "gte", "truth"])
 
     def switch_profiles(self) -> dict:
         """Return each switchback's mean effect per user-tick by ticks since a switch."""
@@ -155,6 +171,12 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
     estimates = [r.runs[spec.label].estimate for r in results]
     column = {name: np.array([getattr(e, name) for e in estimates], dtype=float)
               for name in ("point", "standard_error", "ci_low", "ci_high")}
+    runs = [r.runs[spec.label] for r in results]
+    left_out = float("nan")
+    if kind.estimand != "gte":  # a launch is judged against its own estimand's truth
+        gte = np.array([run.truth for run in runs], dtype=float)
+        left_out = float(np.nanmean([run.left_out_effect for run in runs])) \
+            if np.isfinite([run.left_out_effect for run in runs]).any() else float("nan")
     metrics = design_metrics(column["point"], column["standard_error"], column["ci_low"],
                              column["ci_high"], gte, alpha=alpha, outcome_scale=outcome_scale)
     notes = Counter(r.runs[spec.label].note for r in results if r.runs[spec.label].note)
@@ -170,7 +192,9 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          is_user_level=kind.is_user_level,
                          is_recommendable=kind.is_recommendable, metrics=metrics,
                          interference=interference,
-                         failure_note=notes.most_common(1)[0][0] if notes else "")
+                         failure_note=notes.most_common(1)[0][0] if notes else "",
+                         estimand=kind.estimand, truth=float(np.mean(gte)),
+                         left_out_effect=left_out, is_randomized=kind.is_randomized)
 
 
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
@@ -195,8 +219,9 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
     if candidates:
         advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
     else:
-        advice = Recommendation(label=None, reason="The scenario has only tests of "
-                                "interference: add user, cluster or switchback designs to "
+        advice = Recommendation(label=None, reason="The scenario has no randomized design "
+                                "that can be recommended (only tests of interference or "
+                                "launches): add user, cluster or switchback designs to "
                                 "get a recommended randomization unit.",
                                 is_trustworthy=False, trusted=(), ranking=())
     return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
