@@ -35,6 +35,9 @@ VARIANTS = [{"kind": name} for name in KINDS] + [
     {"kind": "opt_in", "estimator": "naive", "selection_on": "rate"},
     {"kind": "opt_in", "estimator": "ipw", "selection": 0.0},
     {"kind": "opt_in", "estimator": "aipw", "take_up": 0.5, "selection": -1.0},
+    {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "did"},
+    {"kind": "regional_launch", "launch_day": 3, "pools": 2, "choose": "random",
+     "estimator": "pre_post"},
 ]
 
 

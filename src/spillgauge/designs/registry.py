@@ -13,6 +13,7 @@ from spillgauge.designs.cluster_level import ClusterLevel
 from spillgauge.designs.interference import InterferenceTestDesign
 from spillgauge.designs.kind import DesignKind
 from spillgauge.designs.opt_in import OptIn
+from spillgauge.designs.regional_launch import RegionalLaunch
 from spillgauge.designs.rollout import Rollout
 from spillgauge.designs.switchback import Switchback
 from spillgauge.designs.user_level import UserLevel
@@ -30,6 +31,7 @@ KINDS: Mapping[str, DesignKind] = {kind.name: kind for kind in (
     InterferenceTestDesign(),
     Rollout(),
     OptIn(),
+    RegionalLaunch(),
 )}
 
 DESIGN_KINDS = tuple(KINDS)

@@ -17,6 +17,11 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
+from spillgauge.estimators.launch import (
+    launch_difference_in_differences,
+    pre_post_difference,
+    synthetic_control,
+)
 from spillgauge.estimators.propensity import (
     augmented_inverse_probability_weighting,
     inverse_probability_weighting,
@@ -51,4 +56,7 @@ __all__ = [
     "propensity_score_matching",
     "inverse_probability_weighting",
     "augmented_inverse_probability_weighting",
+    "pre_post_difference",
+    "launch_difference_in_differences",
+    "synthetic_control",
 ]
