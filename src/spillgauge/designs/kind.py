@@ -73,6 +73,8 @@ class DesignKind:
     estimand : str
         What the design's estimate targets (``"gte"`` for randomized designs); its
         truth in each replication comes from :meth:`truth`.
+    question : str
+        The estimand in words, for the report.
     is_recommendable : bool
         Whether the recommendation may choose it (a diagnostic or a launch may not).
     is_randomized : bool
@@ -90,6 +92,7 @@ class DesignKind:
     keys: ClassVar[tuple[DesignKey, ...]] = ()
     shown_keys: ClassVar[tuple[str, ...]] = ()
     estimand: ClassVar[str] = "gte"
+    question: ClassVar[str] = "the global treatment effect (GTE)"
     is_recommendable: ClassVar[bool] = True
     is_randomized: ClassVar[bool] = True
     is_user_level: ClassVar[bool] = False

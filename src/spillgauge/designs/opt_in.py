@@ -96,6 +96,7 @@ class OptIn(DesignKind):
     )
     shown_keys = ("take_up", "selection", "selection_on", "estimator")
     estimand = "att"
+    question = "the effect on the users who opted in (ATT)"
     is_recommendable = False
     is_randomized = False
 

@@ -78,6 +78,7 @@ class RegionalLaunch(DesignKind):
     )
     shown_keys = ("pools", "choose", "launch_day", "estimator")
     estimand = "launched_pools"
+    question = "the effect on the launched pools after the launch"
     is_recommendable = False
     is_randomized = False
 

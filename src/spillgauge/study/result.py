@@ -17,6 +17,7 @@ from spillgauge.designs.registry import kind_of
 from spillgauge.files import json_safe, nan_from_null
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
+from spillgauge.statistics.launches import LaunchRow, not_randomizing_note
 from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
 from spillgauge.statistics.metrics import DesignMetrics, design_metrics
 from spillgauge.statistics.recommend import Candidate, Recommendation, recommend
@@ -70,11 +71,13 @@ class DesignSummary:
     truth: float = float("nan")
     left_out_effect: float = float("nan")
     is_randomized: bool = True
+    question: str = "the global treatment effect (GTE)"
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
         entry = {"label": self.label, "kind": self.kind, "estimator": self.estimator,
-                 "unit": self.unit, "estimand": self.estimand, "truth": json_safe(self.truth),
+                 "unit": self.unit, "estimand": self.estimand, "question": self.question,
+                 "truth": json_safe(self.truth),
                  "is_randomized": self.is_randomized, **json_safe(self.metrics.to_dict())}
         if not self.is_randomized:
             entry["left_out_effect"] = json_safe(self.left_out_effect)
@@ -99,6 +102,8 @@ class StudyResult:
         Sorted by replication index.
     market_summary : dict
         The market described in plain data (what ``spillgauge check`` prints).
+    not_randomized_note : str
+        What not randomizing costs in this market (empty without launch designs).
     """
 
     scenario: Scenario
@@ -109,6 +114,7 @@ class StudyResult:
     recommendation: Recommendation
     replications: list[ReplicationResult] = field(repr=False)
     market_summary: dict = field(default_factory=dict, repr=False)
+    not_randomized_note: str = ""
 
     @property
     def metrics(self) -> dict[str, DesignMetrics]:
@@ -148,14 +154,17 @@ class StudyResult:
 
     def summary(self) -> dict:
         """Return the content of ``summary.json``."""
-        return {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
-                "truth": json_safe(self.truth.to_dict()),
-                "designs": [d.to_dict() for d in self.designs.values()],
-                "recommendation": {"label": self.recommendation.label,
-                                   "reason": self.recommendation.reason,
-                                   "is_trustworthy": self.recommendation.is_trustworthy},
-                "market": self.market_summary,
-                "scenario_settings": scenario_to_dict(self.scenario)}
+        summary = {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
+                   "truth": json_safe(self.truth.to_dict()),
+                   "designs": [d.to_dict() for d in self.designs.values()],
+                   "recommendation": {"label": self.recommendation.label,
+                                      "reason": self.recommendation.reason,
+                                      "is_trustworthy": self.recommendation.is_trustworthy},
+                   "market": self.market_summary,
+                   "scenario_settings": scenario_to_dict(self.scenario)}
+        if self.not_randomized_note:
+            summary["not_randomized"] = self.not_randomized_note
+        return summary
 
 
 def _design_params(spec: DesignSpec) -> dict:
@@ -194,7 +203,8 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          interference=interference,
                          failure_note=notes.most_common(1)[0][0] if notes else "",
                          estimand=kind.estimand, truth=float(np.mean(gte)),
-                         left_out_effect=left_out, is_randomized=kind.is_randomized)
+                         left_out_effect=left_out, is_randomized=kind.is_randomized,
+                         question=kind.question)
 
 
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
@@ -224,6 +234,13 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                                 "launches): add user, cluster or switchback designs to "
                                 "get a recommended randomization unit.",
                                 is_trustworthy=False, trusted=(), ranking=())
+    launches = [LaunchRow(label=d.label, question=d.question, truth=d.truth,
+                          left_out_effect=d.left_out_effect, metrics=d.metrics)
+                 for d in designs.values() if not d.is_randomized]
+    chosen = advice.label
+    note = not_randomizing_note(launches, randomized_label=chosen,
+                                randomized_metrics=designs[chosen].metrics if chosen else None,
+                                alpha=alpha)
     return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
                        designs=designs, recommendation=advice, replications=results,
-                       market_summary=market_summary or {})
+                       market_summary=market_summary or {}, not_randomized_note=note)
