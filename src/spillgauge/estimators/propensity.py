@@ -64,7 +64,10 @@ def fit_propensity(treated: np.ndarray, covariates: np.ndarray) -> np.ndarray:
     the fit does not converge or separates the arms.
     """
     import statsmodels.api as sm
-    from statsmodels.tools.sm_exceptions import ConvergenceWarning, PerfectSeparationWarning
+    from statsmodels.tools.sm_exceptions import (
+        ConvergenceWarning,
+        PerfectSeparationWarning,
+    )
 
     with warnings.catch_warnings():
         warnings.simplefilter("error", ConvergenceWarning)
@@ -265,6 +268,9 @@ def inverse_probability_weighting(panel: OutcomePanel, schedule: AssignmentSched
 
 def augmented_inverse_probability_weighting(panel: OutcomePanel, schedule: AssignmentSchedule,
                                             *, confidence: float = 0.95) -> Estimate:
-    """Estimate the ATT doubly robustly (odds-weighted regression adjustment); see :func:`aipw_att`."""
+    """Estimate the ATT doubly robustly (odds-weighted regression adjustment).
+
+    See :func:`aipw_att`.
+    """
     return _run("augmented_inverse_probability_weighting", panel, schedule, confidence,
                 aipw_att)

@@ -86,7 +86,7 @@ def design_rows(summary: dict) -> list[list[str]]:
 
 
 def launch_rows(summary: dict) -> list[list[str]]:
-    """Return the table of designs that do not randomize, header first (only the header if none)."""
+    """Return the table of designs that do not randomize, header first (header only if none)."""
     rows = [[header for _, header, _ in _LAUNCH_COLUMNS]]
     for design in summary["designs"]:
         if not design.get("is_randomized", True):

@@ -20,12 +20,14 @@ __all__ = ["LaunchRow", "not_randomizing_note"]
 class LaunchRow:
     """One launch design over a study, as the note needs it.
 
-    ``question`` says what its truth is (e.g. "the effect on the users who opted
+    ``kind`` is the design kind (``"opt_in"``); ``question`` says what its truth
+    is (e.g. "the effect on the users who opted
     in (ATT)"); ``left_out_effect`` is the launch's true effect on the users it
     left out.
     """
 
     label: str
+    kind: str
     question: str
     truth: float
     left_out_effect: float
@@ -46,7 +48,7 @@ def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | N
     >>> from spillgauge.statistics.metrics import design_metrics
     >>> m = design_metrics([1.5, 1.7, 1.6, 1.6], [0.1] * 4, [1.3, 1.5, 1.4, 1.4],
     ...                    [1.7, 1.9, 1.8, 1.8], 1.0)
-    >>> note = not_randomizing_note([LaunchRow("opt-in-naive", "the ATT", 1.0, -0.2, m)],
+    >>> note = not_randomizing_note([LaunchRow("opt-in-naive", "opt_in", "the ATT", 1.0, -0.2, m)],
     ...                             randomized_label=None, randomized_metrics=None, alpha=0.05)
     >>> note.split(":")[0]
     'If you do not randomize'
@@ -65,21 +67,23 @@ def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | N
                      f"{format_number(m.rmse)}, and its {level} interval covers the truth in "
                      f"{format_percent(m.coverage)} of replications")
     sentences = ["If you do not randomize: " + "; ".join(parts) + "."]
-    usable = [r for r in launches if math.isfinite(r.metrics.rmse)]
-    if len(usable) > 1:
-        best = min(usable, key=lambda r: r.metrics.rmse)
-        sentences.append(f"Closest to its truth: {best.label} (RMSE "
-                         f"{format_number(best.metrics.rmse)}).")
-    left_out = [r for r in launches if math.isfinite(r.left_out_effect)]
-    if left_out:
-        by_question: dict[str, float] = {}
-        for r in left_out:
-            by_question.setdefault(r.question, r.left_out_effect)
-        sentences.append("The launch itself moves the users it leaves out by " + "; ".join(
-            f"{format_number(v, sign=True)} orders each (against {q})"
-            for q, v in by_question.items()) + (
-            ", stock they lose to the users who got it" if any(
-                v < 0 for v in by_question.values()) else "") + ".")
+    for kind in dict.fromkeys(r.kind for r in launches):
+        usable = [r for r in launches if r.kind == kind and math.isfinite(r.metrics.rmse)]
+        if len(usable) > 1:
+            best = min(usable, key=lambda r: r.metrics.rmse)
+            sentences.append(f"Closest to {best.question}: {best.label} (RMSE "
+                             f"{format_number(best.metrics.rmse)}).")
+    by_kind: dict[str, float] = {}
+    for r in launches:
+        if math.isfinite(r.left_out_effect):
+            by_kind.setdefault(r.kind, r.left_out_effect)
+    for kind, effect in by_kind.items():
+        if abs(effect) < 5e-4:
+            continue
+        sentences.append(f"The {kind.replace('_', '-')} launch itself moves the users it "
+                         f"leaves out by {format_number(effect, sign=True)} orders each"
+                         + (" (stock they lose to those who got it)" if effect < 0 else "")
+                         + ": a comparison with them counts that too.")
     if randomized_label is not None and randomized_metrics is not None:
         sentences.append(f"The recommended randomized design, {randomized_label}, has RMSE "
                          f"{format_number(randomized_metrics.rmse)} against the GTE with "

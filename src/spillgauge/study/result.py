@@ -234,7 +234,7 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                                 "launches): add user, cluster or switchback designs to "
                                 "get a recommended randomization unit.",
                                 is_trustworthy=False, trusted=(), ranking=())
-    launches = [LaunchRow(label=d.label, question=d.question, truth=d.truth,
+    launches = [LaunchRow(label=d.label, kind=d.kind, question=d.question, truth=d.truth,
                           left_out_effect=d.left_out_effect, metrics=d.metrics)
                  for d in designs.values() if not d.is_randomized]
     chosen = advice.label
