@@ -61,7 +61,7 @@ def _load(path: str):
 
 def _cmd_check(args) -> int:
     from spillgauge.study.market_summary import summarise_market
-    from spillgauge.model.market import build_market
+    from spillgauge.market.build import build_market
     from spillgauge.report.text import market_text
 
     scenario = _load(args.scenario)

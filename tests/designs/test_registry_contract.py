@@ -16,8 +16,8 @@ import pytest
 from spillgauge.designs.registry import KINDS, kind_of, make_design_spec
 from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.estimators.estimate import Estimate
-from spillgauge.model.market import build_market
-from spillgauge.model.world import simulate_worlds
+from spillgauge.market.build import build_market
+from spillgauge.worlds.engine import simulate_worlds
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from tests.conftest import make_scenario

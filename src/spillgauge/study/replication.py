@@ -12,8 +12,8 @@ from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic
 from spillgauge.files import nan_from_null
 from spillgauge.statistics.truth import ReplicationTruth, replication_truth
-from spillgauge.model.market import Market, build_market
-from spillgauge.model.world import simulate_worlds
+from spillgauge.market.build import Market, build_market
+from spillgauge.worlds.engine import simulate_worlds
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import Scenario
 from spillgauge.schedule import AssignmentSchedule

@@ -21,15 +21,15 @@ from dataclasses import dataclass
 import numpy as np
 import simpy
 
-from spillgauge.model.calendar import (
+from spillgauge.market.calendar import (
     day_of_tick,
     diurnal_multiplier,
     draw_daily_shocks,
     segment_bounds,
     start_stock_calendar,
 )
-from spillgauge.model.market import Market
-from spillgauge.model.treatment import (
+from spillgauge.market.build import Market
+from spillgauge.worlds.treatment import (
     own_dose_of_events,
     peer_exposure_of_events,
     unit_dose,

@@ -20,8 +20,8 @@ from spillgauge.designs import (
     draw_switchback_schedule,
     draw_user_schedule,
 )
-from spillgauge.model.market import build_market
-from spillgauge.model.world import draw_candidates, simulate_worlds
+from spillgauge.market.build import build_market
+from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from spillgauge.schedule import AssignmentSchedule
 from tests.conftest import make_scenario
 
