@@ -11,9 +11,9 @@ import numpy as np
 
 from spillgauge.designs import draw_user_schedule
 from spillgauge.market.build import build_market
-from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from spillgauge.scenario.reading import load_scenario
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 
 
 def main() -> None:

@@ -14,9 +14,9 @@ from spillgauge.market.graph import (
     to_networkx,
 )
 from spillgauge.market.population import estimate_rates
-from spillgauge.worlds.treatment import peer_exposure_of_events, unit_dose
-from spillgauge.worlds.engine import _serve_in_order
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import _serve_in_order
+from spillgauge.worlds.treatment import peer_exposure_of_events, unit_dose
 
 
 def _random_schedule(rng, n_units=4, n_ticks=30):

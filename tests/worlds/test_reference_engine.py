@@ -21,8 +21,8 @@ from spillgauge.designs import (
     draw_user_schedule,
 )
 from spillgauge.market.build import build_market
-from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from tests.conftest import make_scenario
 
 FIELDS = ("fulfilled", "demanded", "pool_fulfilled", "pool_demanded", "pool_lost", "pool_stock")
