@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from spillgauge.study.run import run_study
 from tests.conftest import make_scenario
 

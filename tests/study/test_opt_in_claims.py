@@ -15,7 +15,7 @@ import pytest
 from scipy import integrate, special, stats
 
 from spillgauge.designs.opt_in import opt_in_probabilities
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from spillgauge.study.run import run_study
 from tests.conftest import make_scenario
 

@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 
 from spillgauge.errors import ScenarioError
-from spillgauge.model.calendar import draw_pool_shocks, trend_multiplier
-from spillgauge.model.market import build_market
-from spillgauge.model.world import simulate_worlds
+from spillgauge.market.calendar import draw_pool_shocks, trend_multiplier
+from spillgauge.market.build import build_market
+from spillgauge.worlds.engine import simulate_worlds
 from spillgauge.scenario import Pools
 from spillgauge.schedule import AssignmentSchedule
 from tests.conftest import make_scenario
