@@ -128,7 +128,6 @@ def segment_bounds(pools: Pools, calendar: Calendar, *, every_tick: bool) -> np.
     Examples
     --------
     >>> from spillgauge.scenario import Calendar, Pools
-from spillgauge.seeding import check_rng
     >>> segment_bounds(Pools(restock_every_hours=12, lead_time_hours=3),
     ...                Calendar(days=1), every_tick=False).tolist()
     [0, 3, 12, 15, 24]
