@@ -89,9 +89,9 @@ def test_prefixes_agree_with_separate_studies_within_monte_carlo_error(days_shor
     assert short["user"]["bias"] > 10 * short["user"]["bias_se"]
 
 
-def _row(label, days, *, power, trusted, mde=0.1, recommendable=True):
+def _row(label, days, *, power, trusted, mde=0.1, recommendable=True, chosen=False):
     return {"label": label, "kind": "cluster", "days": days, "power": power, "power_se": 0.03,
-            "mde": mde, "mde_relative": mde / 2, "gte": 0.2, "control_mean": 2.0,
+            "mde": mde, "rmse": mde, "chosen": chosen, "mde_relative": mde / 2, "gte": 0.2, "control_mean": 2.0,
             "trusted": trusted, "why_not_trusted": "" if trusted else "has bias +0.1",
             "recommendable": recommendable, "is_user_level": False}
 
@@ -102,6 +102,11 @@ def test_answer_names_the_shortest_trusted_duration_reaching_the_power():
             _row("x", 7, power=1.0, trusted=True, recommendable=False)]
     text = answer_plan(rows, power=0.8, horizon_days=28)
     assert text.startswith("Run it for at least 14 days with b")
+    # the design the recommendation rule chose at that duration is the one named
+    rows.append(_row("c", 14, power=0.9, trusted=True, mde=0.2, chosen=True))
+    assert answer_plan(rows, power=0.8, horizon_days=28).startswith(
+        "Run it for at least 14 days with c")
+    rows.pop()
     text = answer_plan(rows, power=0.9, horizon_days=14)
     assert text.startswith("No trusted design reaches 90% power within 14 days (the whole "
                            "horizon)")

@@ -7,7 +7,7 @@ import math
 from spillgauge.formatting import format_number, format_percent
 from spillgauge.statistics.metrics import retrodesign
 
-__all__ = ["answer_plan", "answer_cuped"]
+__all__ = ["answer_cuped", "answer_plan", "answer_variants"]
 
 
 def _candidates(rows: list[dict]) -> list[dict]:
@@ -20,7 +20,8 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
     Among the designs the recommendation may choose, a duration qualifies when a
     design is trusted there (the study's trust rule, applied to that duration's
     prefix) and its measured power is at least ``power``; at the shortest such
-    duration the design with the smallest minimum detectable effect is named.
+    duration the design the study's recommendation rule chooses among those
+    (``chosen``: lowest RMSE, the finer unit within Monte Carlo error) is named.
     Otherwise the sentence says that none does within the longest duration
     planned, and names the smallest MDE a trusted design reaches.
     """
@@ -33,14 +34,18 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
     for d in sorted({r["days"] for r in rows}):
         passing = [r for r in rows if r["days"] == d and r["trusted"] and r["power"] >= power]
         if passing:
-            best = min(passing, key=lambda r: (r["mde"], r["label"]))
+            chosen = [r for r in passing if r.get("chosen")]
+            best = chosen[0] if chosen else min(passing, key=lambda r: (r["rmse"], r["label"]))
+            first = d == min(r["days"] for r in rows)
+            note = (" This is the shortest duration planned: pass shorter --days to see "
+                    "whether fewer days suffice." if first else "")
             return (f"Run it for at least {d} days with {best['label']}: it is trusted there "
                     f"and detects the scenario's effect ({format_number(best['gte'])} orders "
                     f"per user over {d} days) with power {format_percent(best['power'])} "
                     f"\u00b1 {format_percent(best['power_se'])} against the {power:.0%} "
                     f"target; its minimum detectable effect at {power:.0%} power is "
                     f"{format_number(best['mde'])} orders per user "
-                    f"({format_percent(best['mde_relative'])} of the control mean).")
+                    f"({format_percent(best['mde_relative'])} of the control mean).{note}")
     trusted = [r for r in rows if r["trusted"] and math.isfinite(r["mde"])]
     if not trusted:
         last = sorted((r for r in rows if r["days"] == longest), key=lambda r: r["label"])
@@ -80,10 +85,16 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
     factor = factors[at["days"]]
     if not math.isfinite(factor):
         return ""
+    measured = [r for r in rows if r["kind"] == "user" and r.get("adjusted", False)
+                and r["days"] == at["days"]]
+    seen = ""
+    if measured and at["mean_se"] > 0:
+        seen = (f"; {measured[0]['label']} measures "
+                f"{format_percent((measured[0]['mean_se'] / at['mean_se']) ** 2)}")
     lead = (f"Regression adjustment on the pre-period (CUPED) keeps "
             f"{format_percent(factor)} of the user-level variance at {at['days']} days "
             f"(1 - rho^2, rho = {format_number(math.sqrt(max(1 - factor, 0)))} between "
-            f"pre-period and experiment orders)")
+            f"pre-period and experiment orders{seen})")
     if not at["trusted"]:
         return (f"{lead}, but {label} is not trusted in this scenario ({at['why_not_trusted']}) "
                 f"and adjustment does not remove bias, so it does not shorten the test.")
@@ -96,10 +107,50 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
             adjusted = r["days"]
             break
     mde = at["mde"] * math.sqrt(factor)
-    reach = (f"{label} with it would reach {power:.0%} power at {adjusted} days"
-             if adjusted is not None else f"{label} with it would not reach {power:.0%} power")
-    without = f"{plain} days" if plain is not None else "not within the plan"
-    return (f"{lead}: {reach} (without: {without}), and its minimum detectable effect at "
-            f"{at['days']} days would fall from {format_number(at['mde'])} to "
-            f"{format_number(mde)} orders per user (a projection; add a user design with "
-            f"adjust = true to measure it).")
+    if plain is not None and adjusted == plain == user[0]["days"]:
+        reach = f"{label} reaches {power:.0%} power at the shortest duration planned either way"
+    elif adjusted is not None:
+        without = f"{plain} days" if plain is not None else "not within the plan"
+        reach = f"{label} with it would reach {power:.0%} power at {adjusted} days " \
+                f"(without: {without})"
+    else:
+        reach = f"{label} would not reach {power:.0%} power even with it"
+    return (f"{lead}: {reach}, and its minimum detectable effect at {at['days']} days would "
+            f"fall from {format_number(at['mde'])} to {format_number(mde)} orders per user.")
+
+
+def answer_variants(rows: list[dict]) -> str:
+    """Return, for each design table tuned over listed values, the variant to use and why.
+
+    At the longest duration planned, the trusted variant of lowest RMSE is named
+    with its bias and SD, against the most biased and the noisiest other
+    variants (the trade-off the listed values span).
+    """
+    longest = max((r["days"] for r in rows), default=None)
+    tables: dict[int, list[dict]] = {}
+    for r in rows:
+        if r["days"] == longest and r["recommendable"]:
+            tables.setdefault(r.get("table", -1), []).append(r)
+    sentences = []
+    for variants in tables.values():
+        if len(variants) < 2:
+            continue
+        names = ", ".join(r["label"] for r in variants)
+        trusted = [r for r in variants if r["trusted"]]
+        if not trusted:
+            sentences.append(f"Of the tuned variants ({names}) none is trusted at "
+                             f"{longest} days.")
+            continue
+        best = min(trusted, key=lambda r: (r["rmse"], r["label"]))
+        others = [r for r in variants if r is not best]
+        biased = max(others, key=lambda r: abs(r["bias"]))
+        noisy = max(others, key=lambda r: r["sd"])
+        trade = [f"{biased['label']} has bias {format_number(biased['bias'], sign=True)}"]
+        if noisy is not biased:
+            trade.append(f"{noisy['label']} SD {format_number(noisy['sd'])}")
+        sentences.append(
+            f"Of the tuned variants ({names}), {best['label']} has the lowest RMSE among the "
+            f"trusted ones at {longest} days ({format_number(best['rmse'])}: bias "
+            f"{format_number(best['bias'], sign=True)}, SD {format_number(best['sd'])}); "
+            + ", ".join(trade) + ".")
+    return " ".join(sentences)

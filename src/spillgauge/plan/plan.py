@@ -16,7 +16,7 @@ from pathlib import Path
 from spillgauge.errors import ScenarioError
 from spillgauge.files import dumps, json_safe, write_atomic
 from spillgauge.market.build import build_market
-from spillgauge.plan.answer import answer_cuped, answer_plan
+from spillgauge.plan.answer import answer_cuped, answer_plan, answer_variants
 from spillgauge.plan.replication import run_plan_replications
 from spillgauge.plan.summary import cuped_rows, plan_rows
 from spillgauge.scenario import Scenario
@@ -107,8 +107,9 @@ class PlanResult:
     def answer(self) -> str:
         """Return the plan's answer: the shortest duration, the design, or what is detectable."""
         text = answer_plan(self.rows, power=self.power, horizon_days=self.scenario.calendar.days)
+        variants = answer_variants(self.rows)
         cuped = answer_cuped(self.rows, self.cuped, power=self.power, alpha=self.alpha)
-        return f"{text} {cuped}".strip()
+        return " ".join(part for part in (text, variants, cuped) if part)
 
     def plot_power(self, ax=None):
         """Draw each design's power by duration on ``ax`` (a new figure when omitted)."""
