@@ -144,3 +144,18 @@ def test_cli_plan_writes_its_files_and_json(tmp_path, capsys):
     assert {"coverage", "trusted"} <= set(header)
     assert main(["plan", str(path), "--days", "9", "--out", str(out)]) == 2
     assert "--days must be days in [1, calendar.days=7]; got 9" in capsys.readouterr().err
+
+
+def test_variant_sentence_names_the_rule_choice_and_the_trade_off():
+    from spillgauge.plan.answer import answer_variants
+
+    rows = [dict(_row("sb-6h", 28, power=1.0, trusted=False), table=2, bias=0.5, sd=0.1),
+            dict(_row("sb-24h", 28, power=1.0, trusted=True), table=2, bias=0.01, sd=0.2,
+                 variant_chosen=True),
+            dict(_row("sb-48h", 28, power=1.0, trusted=True), table=2, bias=0.0, sd=0.3),
+            dict(_row("user", 28, power=1.0, trusted=True), table=0, bias=0.0, sd=0.1)]
+    text = answer_variants(rows)
+    assert text.startswith("Of the tuned variants (sb-6h, sb-24h, sb-48h), use sb-24h at 28 "
+                           "days")
+    assert "sb-6h has bias +0.5, sb-48h SD 0.3." in text
+    assert "user" not in text

@@ -122,9 +122,11 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
 def answer_variants(rows: list[dict]) -> str:
     """Return, for each design table tuned over listed values, the variant to use and why.
 
-    At the longest duration planned, the trusted variant of lowest RMSE is named
-    with its bias and SD, against the most biased and the noisiest other
-    variants (the trade-off the listed values span).
+    At the longest duration planned, the variant the study's recommendation rule
+    chooses among the table's variants (``variant_chosen``: lowest RMSE among the
+    trusted ones, the finer unit within Monte Carlo error) is named with its
+    bias and SD, against the most biased and the noisiest other variants (the
+    trade-off the listed values span).
     """
     longest = max((r["days"] for r in rows), default=None)
     tables: dict[int, list[dict]] = {}
@@ -136,21 +138,24 @@ def answer_variants(rows: list[dict]) -> str:
         if len(variants) < 2:
             continue
         names = ", ".join(r["label"] for r in variants)
-        trusted = [r for r in variants if r["trusted"]]
-        if not trusted:
+        chosen = [r for r in variants if r.get("variant_chosen")]
+        if not chosen:
             sentences.append(f"Of the tuned variants ({names}) none is trusted at "
                              f"{longest} days.")
             continue
-        best = min(trusted, key=lambda r: (r["rmse"], r["label"]))
+        best = chosen[0]
+        lowest = min((r for r in variants if r["trusted"]), key=lambda r: r["rmse"])
         others = [r for r in variants if r is not best]
         biased = max(others, key=lambda r: abs(r["bias"]))
         noisy = max(others, key=lambda r: r["sd"])
         trade = [f"{biased['label']} has bias {format_number(biased['bias'], sign=True)}"]
         if noisy is not biased:
             trade.append(f"{noisy['label']} SD {format_number(noisy['sd'])}")
+        near = "" if lowest is best else (
+            f"; {lowest['label']} has a lower RMSE ({format_number(lowest['rmse'])}) within "
+            "Monte Carlo error, and the finer unit is preferred")
         sentences.append(
-            f"Of the tuned variants ({names}), {best['label']} has the lowest RMSE among the "
-            f"trusted ones at {longest} days ({format_number(best['rmse'])}: bias "
-            f"{format_number(best['bias'], sign=True)}, SD {format_number(best['sd'])}); "
-            + ", ".join(trade) + ".")
+            f"Of the tuned variants ({names}), use {best['label']} at {longest} days: RMSE "
+            f"{format_number(best['rmse'])} (bias {format_number(best['bias'], sign=True)}, "
+            f"SD {format_number(best['sd'])}){near}; " + ", ".join(trade) + ".")
     return " ".join(sentences)

@@ -59,7 +59,7 @@ def plan_rows(scenario: Scenario, results: list[PlanReplication], days: tuple[in
         gte = np.array([t.gte for t in truths])
         control_mean = float(np.mean([t.control_mean for t in truths]))
         scale = max(abs(control_mean), abs(float(np.mean([t.treated_mean for t in truths]))))
-        at_d, candidates = [], []
+        at_d, candidates, everyone = [], [], []
         for spec in scenario.designs:
             kind = kind_of(spec)
             runs = [r.runs[spec.label][d] for r in results]
@@ -88,22 +88,33 @@ def plan_rows(scenario: Scenario, results: list[PlanReplication], days: tuple[in
                 "trusted": verdict.is_trusted, "why_not_trusted": verdict.reason or "",
                 "recommendable": kind.is_recommendable, "is_user_level": kind.is_user_level,
                 "adjusted": bool(spec.params.get("adjust", False)), "table": spec.index,
-                "chosen": False,
+                "chosen": False, "variant_chosen": False,
             })
-            if kind.is_recommendable and verdict.is_trusted and metrics.power >= power:
-                candidates.append(Candidate(
-                    label=spec.label, is_user_level=kind.is_user_level,
-                    unit=kind.describe_unit(spec), n_units=float(np.mean(col["n_units"])),
-                    metrics=metrics))
+            candidate = Candidate(label=spec.label, is_user_level=kind.is_user_level,
+                                  unit=kind.describe_unit(spec),
+                                  n_units=float(np.mean(col["n_units"])), metrics=metrics)
+            if kind.is_recommendable:
+                everyone.append((spec.index, candidate))
+                if verdict.is_trusted and metrics.power >= power:
+                    candidates.append(candidate)
+        gte_se = float(gte.std(ddof=1) / math.sqrt(gte.size)) if gte.size > 1 else math.nan
         if candidates:
             # Among the designs trusted at this duration that reach the target power, the
             # study's recommendation rule chooses (lowest RMSE; the finer unit within
             # Monte Carlo error).
-            gte_se = float(gte.std(ddof=1) / math.sqrt(gte.size)) if gte.size > 1 else math.nan
             chosen = recommend(candidates, gte=float(gte.mean()), gte_se=gte_se,
                                alpha=alpha).label
             for row in at_d:
                 row["chosen"] = row["label"] == chosen
+        # Among the variants of one tuned [[design]] table, the same rule chooses.
+        tables = {index for index, _ in everyone}
+        for index in tables:
+            variants = [c for i, c in everyone if i == index]
+            pick = recommend(variants, gte=float(gte.mean()), gte_se=gte_se,
+                             alpha=alpha).label if len(variants) > 1 else None
+            for row in at_d:
+                if row["table"] == index:
+                    row["variant_chosen"] = row["label"] == pick
         if n_users is None:
             n_users = _n_users(results)
         user = [row for row in at_d if row["is_user_level"] and row["kind"] == "user"]
