@@ -159,3 +159,19 @@ def test_variant_sentence_names_the_rule_choice_and_the_trade_off():
                            "days")
     assert "sb-6h has bias +0.5, sb-48h SD 0.3." in text
     assert "user" not in text
+
+
+def test_power_by_units_draws_tuned_tables_whose_unit_counts_differ():
+    from spillgauge.plan.figures import plot_power_by_units, tuned_unit_tables
+
+    rows = [dict(_row(f"cluster-graph-r{r}", 14, power=p, trusted=True), table=1, n_units=n,
+                 effective_n=n * 10.0, is_user_level=False)
+            for r, n, p in ((0.5, 20, 0.6), (1, 40, 0.7), (2, 80, 0.9))]
+    rows.append(dict(_row("user", 14, power=1.0, trusted=False), table=0, n_units=1000,
+                      effective_n=1000.0, is_user_level=True))
+    tables = tuned_unit_tables(rows)
+    assert list(tables) == [1] and [r["n_units"] for r in tables[1]] == [20, 40, 80]
+    ax = plot_power_by_units(rows, power=0.8)
+    assert [t.get_text() for t in ax.get_legend().get_texts()][:1] == [
+        "cluster-graph-r0.5: 20 units, 200 effective users"]
+    assert tuned_unit_tables(rows[:1] + rows[3:]) == {}

@@ -12,7 +12,8 @@ from pathlib import Path
 
 from spillgauge.files import write_atomic_with
 
-__all__ = ["plot_power_by_days", "plot_mde_by_days", "save_plan_figures"]
+__all__ = ["plot_mde_by_days", "plot_power_by_days", "plot_power_by_units", "save_plan_figures",
+           "tuned_unit_tables"]
 
 _SIZE_PX, _DPI = (1000, 600), 100  # the study report's figure size and resolution
 # Okabe & Ito (2008), as in the study report: blue, vermillion, bluish green, reddish
@@ -105,12 +106,76 @@ def plot_mde_by_days(rows: list[dict], *, power: float, ax=None):
     return ax
 
 
+def tuned_unit_tables(rows: list[dict]) -> dict[int, list[dict]]:
+    """Return the tuned design tables whose variants randomize different numbers of units.
+
+    Keyed by table index; each holds its variants' rows at the longest duration,
+    sorted by units (e.g. graph clusters at several resolutions).
+    """
+    longest = max((r["days"] for r in rows), default=None)
+    tables: dict[int, list[dict]] = {}
+    for r in rows:
+        if r["days"] == longest and not r["is_user_level"]:
+            tables.setdefault(r.get("table", -1), []).append(r)
+    return {k: sorted(v, key=lambda r: r["n_units"]) for k, v in tables.items()
+            if len({r["n_units"] for r in v}) > 1}
+
+
+def plot_power_by_units(rows: list[dict], *, power: float, ax=None):
+    """Draw power against the number of randomized units for tuned cluster-type designs.
+
+    One line per tuned ``[[design]]`` table whose variants randomize different
+    numbers of units, at the longest duration planned; each point is labelled
+    with its variant and its effective sample size. Returns the axes.
+    """
+    ax = _axes(ax)
+    tables = tuned_unit_tables(rows)
+    markers = "osD^vP*X"
+    for i, variants in enumerate(tables.values()):
+        colour = _PALETTE[i % len(_PALETTE)]
+        x = [r["n_units"] for r in variants]
+        y = [r["power"] for r in variants]
+        ax.errorbar(x, y, yerr=[r["power_se"] for r in variants], fmt="-", color=colour,
+                    capsize=3, linewidth=1.2)
+        for k, (xi, yi, row) in enumerate(zip(x, y, variants)):
+            effective = row["effective_n"]
+            name = f"{row['label']}: {xi:,.0f} units" + (
+                f", {effective:,.0f} effective users" if effective == effective else "")
+            ax.plot([xi], [yi], linestyle="none", marker=markers[k % len(markers)],
+                    markersize=7.5, color=colour,
+                    markerfacecolor=colour if row["trusted"] else "white", markeredgewidth=1.5,
+                    label=name)
+    ax.axhline(power, color="0.3", linestyle="--", linewidth=1.1, label=f"target {power:.0%}")
+    from matplotlib.ticker import PercentFormatter
+
+    from matplotlib.ticker import ScalarFormatter
+
+    ax.set_xscale("log")
+    ax.xaxis.set_major_formatter(ScalarFormatter())
+    ax.xaxis.set_minor_formatter(ScalarFormatter())
+    ax.set_ylim(-0.03, 1.05)
+    ax.yaxis.set_major_formatter(PercentFormatter(1.0))
+    days = max((r["days"] for r in rows), default=0)
+    ax.set_xlabel("units randomized per replication (log scale)")
+    ax.set_ylabel("power at the scenario's effect")
+    ax.set_title(f"Power by number of clusters at {days} days\nbars: \u00b11 Monte Carlo SE; "
+                 "hollow marker: variant not trusted", fontsize=10)
+    ax.grid(True, color="0.9", linewidth=0.8)
+    ax.legend(fontsize=8, frameon=False, loc="best")
+    return ax
+
+
 def save_plan_figures(plan, out: str | Path) -> list[Path]:
-    """Write ``power_by_days.png`` and ``mde_by_days.png`` into ``out``; return their paths."""
+    """Write ``power_by_days.png``, ``mde_by_days.png`` (and ``power_by_units.png`` when
+    tuned variants randomize different numbers of units) into ``out``; return their paths."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     paths = []
-    for name, draw in (("power_by_days", plan.plot_power), ("mde_by_days", plan.plot_mde)):
+    drawings = [("power_by_days", plan.plot_power), ("mde_by_days", plan.plot_mde)]
+    if tuned_unit_tables(plan.rows):
+        drawings.append(("power_by_units", lambda: plot_power_by_units(plan.rows,
+                                                                       power=plan.power)))
+    for name, draw in drawings:
         fig = draw().figure
         path = out / f"{name}.png"
         write_atomic_with(path, lambda stream, fig=fig: fig.savefig(stream, format="png",

@@ -30,8 +30,16 @@ PLAN_CAPTIONS = {
         "line is the true effect over those days on the same scale; below it, the design "
         "detects the scenario's effect. "
         "Hollow points: the design is not trusted at that duration."),
+    "power_by_units": (
+        "Power against the number of units randomized, for design tables tuned over values "
+        "that change it (graph clusters at several resolutions, shares, block lengths), at "
+        "the longest duration planned. Fewer, larger clusters keep more spillover inside a "
+        "cluster but leave fewer independent units: each point names its variant and its "
+        "effective sample size (the users a user-level design would need for the same "
+        "variance). Hollow points: the variant is not trusted."),
 }
-_TITLES = {"power_by_days": "Power by duration", "mde_by_days": "Minimum detectable effect"}
+_TITLES = {"power_by_days": "Power by duration", "mde_by_days": "Minimum detectable effect",
+           "power_by_units": "Power by number of clusters"}
 _COLUMNS = (("days", "days", "{}"), ("power", "power", "{:.0%}"),
             ("power_se", "\u00b1 SE", "{:.1%}"), ("mde", "MDE", "{:.3g}"),
             ("mde_relative", "MDE / control", "{:.1%}"), ("bias", "bias", "{:+.3g}"),
@@ -53,7 +61,7 @@ def _table(plan) -> str:
                    f'<span class="untrusted">no</span> <span class="se">'
                    f'{_e(row["why_not_trusted"])}</span>')
         rows.append([_e(row["label"]), *(_cell(t, row[k]) for k, _, t in _COLUMNS), trusted])
-        classes.append("")
+        classes.append("chosen" if row.get("chosen") else "")
     return _grid(header, rows, classes, text_columns=1)
 
 
@@ -91,7 +99,9 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
         _section("designs", "Every design at every duration",
                  "<p>Power is measured at the scenario's effect; the MDE is at "
                  f"{plan.power:.0%} power and level {plan.alpha:g}; trust is the study's rule "
-                 "applied to each duration.</p>" + _table(plan)),
+                 "applied to each duration. Shaded: the design the recommendation rule picks "
+                 "among those trusted and at the target power at that duration.</p>"
+                 + _table(plan)),
         _section("cuped", "Regression adjustment on the pre-period (CUPED)",
                  "<p>CUPED keeps 1 \u2212 \u03c1\u00b2 of a user-level estimate's variance "
                  "(Deng, Xu, Kohavi &amp; Walker 2013).</p>" + _cuped(plan)),
