@@ -15,6 +15,7 @@ from spillgauge.designs.interference import InterferenceTestDesign
 from spillgauge.designs.kind import DesignKind
 from spillgauge.designs.rollout import Rollout
 from spillgauge.designs.switchback import Switchback
+from spillgauge.designs.switchback_minimax import SwitchbackMinimax
 from spillgauge.designs.user_level import UserLevel
 from spillgauge.errors import ScenarioError
 from spillgauge.formatting import format_value
@@ -33,6 +34,7 @@ KINDS: Mapping[str, DesignKind] = {kind.name: kind for kind in (
     Switchback(),
     InterferenceTestDesign(),
     Rollout(),
+    SwitchbackMinimax(),
 )}
 
 DESIGN_KINDS = tuple(KINDS)
