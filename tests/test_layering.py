@@ -26,6 +26,9 @@ ALLOWED = {
     "study": BASE | {"model", "designs", "estimators", "reading", "statistics", "study"},
     "sweep": BASE | {"model", "designs", "estimators", "reading", "statistics", "study", "sweep"},
     "report": BASE | {"statistics", "study", "sweep", "report"},
+    # the real experiment: a design's draw and analysis, a study's world and metrics
+    "experiment": BASE | {"model", "designs", "estimators", "reading", "statistics", "study",
+                          "experiment"},
 }
 
 

@@ -1,0 +1,237 @@
+"""The assignment folder: ``assignment.json``, ``assignment.csv``, ``calendar.csv`` (and ``exposure.csv``).
+
+The files hold the schedule in the terms of the team's market (user and pool
+ids, dates), and read back into the very :class:`AssignmentSchedule` that was
+drawn, so the analysis runs the design's estimator on the same schedule.
+
+- ``assignment.csv``: one row per user: ``user_id, pool_id, pre_period_orders, unit``,
+  the user's ``arm`` when it keeps one arm over the horizon, and ``cluster`` and
+  ``half`` for a test of interference.
+- ``calendar.csv``: one row per unit and period: ``unit, start, end, arm, burn_in_end``
+  (for a switchback, the blocks; for a rollout, each pool's first treated period is its
+  switch-on time).
+- ``exposure.csv``: for exposure-mapping designs, ``user_id, unit`` for every unit
+  touching the user's closed graph neighbourhood.
+"""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy import sparse
+
+from spillgauge.designs.registry import make_design_spec
+from spillgauge.errors import ScenarioError
+from spillgauge.experiment.assignment import Assignment
+from spillgauge.files import dumps, write_atomic
+from spillgauge.scenario.reading import design_to_dict
+from spillgauge.schedule import AssignmentSchedule
+
+__all__ = ["write_assignment", "read_assignment", "assignment_record", "ARMS", "FORMAT"]
+
+FORMAT = 1
+ARMS = ("control", "treatment")
+_JSON, _USERS, _CALENDAR, _EXPOSURE = ("assignment.json", "assignment.csv", "calendar.csv",
+                                       "exposure.csv")
+
+
+def _unit_labels(assignment: Assignment) -> np.ndarray:
+    """Return the name of each unit: a user or pool id, ``market``, or a cluster number."""
+    schedule = assignment.schedule
+    kind = schedule.unit_kind
+    if kind == "user":
+        return assignment.user_ids
+    if kind == "pool":
+        return assignment.pool_ids[: schedule.n_units]
+    if kind == "market":
+        return np.array(["market"], dtype=object)
+    return np.array([str(u) for u in range(schedule.n_units)], dtype=object)
+
+
+def _burn_in_ticks(assignment: Assignment) -> int:
+    hours = dict(assignment.spec.values).get("burn_in_hours", 0)
+    return int(hours) // assignment.tick_hours
+
+
+def _times(assignment: Assignment, ticks: np.ndarray) -> list[str]:
+    return [str(t).replace(" ", "T") for t in assignment.tick_time(ticks).astype(str)]
+
+
+def assignment_record(assignment: Assignment) -> dict:
+    """Return the content of ``assignment.json``."""
+    from spillgauge import __version__
+
+    schedule = assignment.schedule
+    return {"format": FORMAT, "tool": f"spillgauge {__version__}",
+            "scenario": assignment.scenario_name, "scenario_fingerprint": assignment.fingerprint,
+            "design": design_to_dict(assignment.spec), "estimator": assignment.estimator_name(),
+            "seed": assignment.seed, "start": assignment.start.isoformat(),
+            "tick_hours": assignment.tick_hours, "days": assignment.days,
+            "confidence": assignment.confidence,
+            "schedule": {"unit_kind": schedule.unit_kind,
+                         "randomization": schedule.randomization,
+                         "treated_probability": schedule.treated_probability,
+                         "n_units": schedule.n_units,
+                         "period_start_ticks": schedule.period_start_ticks.tolist()},
+            "pool_ids": assignment.pool_ids.tolist()}
+
+
+def write_assignment(assignment: Assignment, out: str | Path) -> list[Path]:
+    """Write the assignment folder; return the files written (each written atomically)."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    schedule = assignment.schedule
+    labels = _unit_labels(assignment)
+    users = pd.DataFrame({"user_id": assignment.user_ids,
+                          "pool_id": assignment.pool_ids[assignment.pool_of_user],
+                          "pre_period_orders": assignment.history,
+                          "unit": labels[schedule.unit_of_user]})
+    if np.all(assignment.history == np.round(assignment.history)):
+        users["pre_period_orders"] = assignment.history.astype(np.int64)
+    if schedule.is_static:
+        users["arm"] = np.array(ARMS, dtype=object)[schedule.user_is_treated().astype(int)]
+    if schedule.cluster_of_user is not None:
+        users["cluster"] = schedule.cluster_of_user
+        users["half"] = np.where(schedule.is_cluster_arm[schedule.cluster_of_user],
+                                 "cluster", "user")
+    starts = schedule.period_start_ticks
+    ends = np.append(starts[1:], schedule.n_ticks)
+    switched = schedule.is_treated != np.concatenate(
+        (np.zeros((schedule.n_units, 1), bool), schedule.is_treated[:, :-1]), axis=1)
+    burn = np.where(switched, np.minimum(starts[None, :] + _burn_in_ticks(assignment),
+                                         ends[None, :]), starts[None, :])
+    unit, period = np.divmod(np.arange(schedule.n_units * schedule.n_periods), schedule.n_periods)
+    calendar = pd.DataFrame({"unit": labels[unit], "start": np.array(_times(assignment, starts))[
+        period], "end": np.array(_times(assignment, ends))[period],
+        "arm": np.array(ARMS, dtype=object)[schedule.is_treated[unit, period].astype(int)],
+        "burn_in_end": _times(assignment, burn[unit, period])})
+    written = [out / _USERS, out / _CALENDAR]
+    write_atomic(out / _USERS, users.to_csv(index=False))
+    write_atomic(out / _CALENDAR, calendar.to_csv(index=False))
+    if schedule.exposure_units is not None:
+        touching = sparse.coo_array(schedule.exposure_units)
+        frame = pd.DataFrame({"user_id": assignment.user_ids[touching.row],
+                              "unit": labels[touching.col]})
+        write_atomic(out / _EXPOSURE, frame.to_csv(index=False))
+        written.append(out / _EXPOSURE)
+    write_atomic(out / _JSON, dumps(assignment_record(assignment)))
+    return [out / _JSON, *written]
+
+
+def _refuse(path: Path, line: int, column: str, expected: str, value: object) -> ScenarioError:
+    return ScenarioError(f"{path} line {line} column {column}", expected, value)
+
+
+def _read_csv(path: Path, columns: tuple[str, ...]) -> pd.DataFrame:
+    if not path.is_file():
+        raise ScenarioError(str(path), "an existing file of the assignment folder", str(path))
+    frame = pd.read_csv(path, dtype=str, keep_default_na=False)
+    for column in columns:
+        if column not in frame.columns:
+            raise _refuse(path, 1, column, "a column of the header (found: "
+                          + ", ".join(frame.columns) + ")", ",".join(frame.columns))
+    return frame
+
+
+def _lookup(path: Path, frame: pd.DataFrame, column: str, names: list[str], what: str
+            ) -> np.ndarray:
+    index = {name: i for i, name in enumerate(names)}
+    codes = frame[column].map(index)
+    bad = codes.isna().to_numpy()
+    if bad.any():
+        row = int(np.argmax(bad))
+        raise _refuse(path, row + 2, column, what, frame[column].iat[row])
+    return codes.to_numpy(dtype=np.int64)
+
+
+def read_assignment(folder: str | Path) -> Assignment:
+    """Read an assignment folder back into the :class:`Assignment` that was written.
+
+    Raises
+    ------
+    ScenarioError
+        Naming the file, line, column and value of anything that does not fit.
+    """
+    folder = Path(folder)
+    record_path = folder / _JSON
+    try:
+        record = json.loads(record_path.read_text(encoding="utf-8"))
+        design = dict(record["design"])
+        spec = make_design_spec(design.pop("kind"), {k: v for k, v in design.items()
+                                                     if k != "label"}, label=design["label"])
+        info = record["schedule"]
+        pool_ids = np.array([str(p) for p in record["pool_ids"]], dtype=object)
+        start = datetime.fromisoformat(record["start"])
+        tick_hours, days = int(record["tick_hours"]), int(record["days"])
+    except (OSError, json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
+        raise ScenarioError(str(record_path), "an assignment.json written by `spillgauge "
+                            "assign`", f"{type(exc).__name__}: {exc}") from None
+    n_ticks = days * 24 // tick_hours
+    users_path = folder / _USERS
+    users = _read_csv(users_path, ("user_id", "pool_id", "pre_period_orders", "unit"))
+    user_ids = users["user_id"].to_numpy(dtype=object)
+    pool_of_user = _lookup(users_path, users, "pool_id", pool_ids.tolist(),
+                           "a pool of assignment.json")
+    history = pd.to_numeric(users["pre_period_orders"], errors="coerce").to_numpy(float)
+    if not np.isfinite(history).all():
+        row = int(np.argmax(~np.isfinite(history)))
+        raise _refuse(users_path, row + 2, "pre_period_orders", "a number",
+                      users["pre_period_orders"].iat[row])
+    partial = Assignment(spec=spec, schedule=None, seed=int(record["seed"]), start=start,
+                         tick_hours=tick_hours, days=days,
+                         confidence=float(record["confidence"]), user_ids=user_ids,
+                         pool_ids=pool_ids, pool_of_user=pool_of_user, history=history,
+                         scenario_name=str(record["scenario"]),
+                         fingerprint=str(record["scenario_fingerprint"]))
+    kind = info["unit_kind"]
+    n_units = int(info["n_units"])
+    labels = (user_ids if kind == "user" else pool_ids[:n_units] if kind == "pool"
+              else np.array(["market"] if kind == "market" else
+                            [str(u) for u in range(n_units)], dtype=object))
+    unit_of_user = _lookup(users_path, users, "unit", labels.tolist(), f"a {kind} of the design")
+    starts = np.asarray(info["period_start_ticks"], dtype=np.int64)
+    calendar_path = folder / _CALENDAR
+    calendar = _read_csv(calendar_path, ("unit", "start", "arm"))
+    unit = _lookup(calendar_path, calendar, "unit", labels.tolist(), f"a {kind} of the design")
+    period = _lookup(calendar_path, calendar, "start", _times(partial, starts),
+                     "the start of a period of assignment.json")
+    arm = _lookup(calendar_path, calendar, "arm", list(ARMS), "'control' or 'treatment'")
+    is_treated = np.zeros((n_units, starts.size), dtype=bool)
+    seen = np.zeros_like(is_treated)
+    is_treated[unit, period] = arm == 1
+    seen[unit, period] = True
+    if not seen.all() or len(calendar) != seen.size:
+        raise ScenarioError(str(calendar_path), f"one row per unit and period ({seen.size})",
+                            len(calendar))
+    cluster_of_user = is_cluster_arm = exposure = None
+    if "cluster" in users.columns:
+        cluster_of_user = pd.to_numeric(users["cluster"]).to_numpy(np.int64)
+        half = users["half"].to_numpy() == "cluster"
+        is_cluster_arm = np.zeros(int(cluster_of_user.max()) + 1, dtype=bool)
+        is_cluster_arm[cluster_of_user[half]] = True
+    if (folder / _EXPOSURE).is_file():
+        pairs = _read_csv(folder / _EXPOSURE, ("user_id", "unit"))
+        rows = _lookup(folder / _EXPOSURE, pairs, "user_id", user_ids.tolist(), "a user")
+        cols = _lookup(folder / _EXPOSURE, pairs, "unit", labels.tolist(), "a unit")
+        exposure = sparse.csr_array((np.ones(rows.size), (rows, cols)),
+                                    shape=(user_ids.size, n_units))
+    schedule = AssignmentSchedule(unit_of_user=unit_of_user, is_treated=is_treated,
+                                  period_start_ticks=starts, n_ticks=n_ticks,
+                                  treated_probability=float(info["treated_probability"]),
+                                  unit_kind=kind, randomization=info["randomization"],
+                                  exposure_units=exposure, cluster_of_user=cluster_of_user,
+                                  is_cluster_arm=is_cluster_arm)
+    if "arm" in users.columns:
+        given = _lookup(users_path, users, "arm", list(ARMS), "'control' or 'treatment'")
+        differs = given != schedule.user_is_treated().astype(int)
+        if differs.any():
+            row = int(np.argmax(differs))
+            raise _refuse(users_path, row + 2, "arm", "the arm of the user's unit in "
+                          "calendar.csv", users["arm"].iat[row])
+    import dataclasses
+
+    return dataclasses.replace(partial, schedule=schedule)
