@@ -166,7 +166,14 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
     from spillgauge.model.market import build_market
     from spillgauge.study.store import scenario_fingerprint
 
-    spec = scenario.design(design) if isinstance(design, str) else design
+    if isinstance(design, str):
+        labels = [d.label for d in scenario.designs]
+        if design not in labels:
+            raise ScenarioError("--design", "a design label of the scenario (one of "
+                                + ", ".join(labels) + ")", design)
+        spec = scenario.design(design)
+    else:
+        spec = design
     seed = scenario.study.seed if seed is None else seed
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or \
             not 0 <= int(seed) < 2**63:

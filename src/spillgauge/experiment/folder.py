@@ -25,7 +25,7 @@ import pandas as pd
 from scipy import sparse
 
 from spillgauge.designs.registry import make_design_spec
-from spillgauge.errors import ScenarioError
+from spillgauge.errors import ResultsError, ScenarioError
 from spillgauge.experiment.assignment import Assignment
 from spillgauge.files import dumps, write_atomic
 from spillgauge.scenario.reading import design_to_dict
@@ -83,6 +83,8 @@ def assignment_record(assignment: Assignment) -> dict:
 def write_assignment(assignment: Assignment, out: str | Path) -> list[Path]:
     """Write the assignment folder; return the files written (each written atomically)."""
     out = Path(out)
+    record = assignment_record(assignment)
+    _check_not_another(out, record)
     out.mkdir(parents=True, exist_ok=True)
     schedule = assignment.schedule
     labels = _unit_labels(assignment)
@@ -118,8 +120,24 @@ def write_assignment(assignment: Assignment, out: str | Path) -> list[Path]:
                               "unit": labels[touching.col]})
         write_atomic(out / _EXPOSURE, frame.to_csv(index=False))
         written.append(out / _EXPOSURE)
-    write_atomic(out / _JSON, dumps(assignment_record(assignment)))
+    write_atomic(out / _JSON, dumps(record))
     return [out / _JSON, *written]
+
+
+def _check_not_another(out: Path, record: dict) -> None:
+    """Refuse a folder that holds another assignment: a team may already be running it."""
+    path = out / _JSON
+    if not path.is_file():
+        return
+    try:
+        saved = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError):
+        saved = {}
+    same = ("scenario_fingerprint", "design", "seed", "start")
+    if {k: saved.get(k) for k in same} != json.loads(dumps({k: record[k] for k in same})):
+        raise ResultsError(f"{out} holds another assignment ({saved.get('design', {}).get('label')}"
+                           f", seed {saved.get('seed')}, start {saved.get('start')}); choose "
+                           "another --out folder or delete it")
 
 
 def _refuse(path: Path, line: int, column: str, expected: str, value: object) -> ScenarioError:
@@ -158,6 +176,9 @@ def read_assignment(folder: str | Path) -> Assignment:
     """
     folder = Path(folder)
     record_path = folder / _JSON
+    if not record_path.is_file():
+        raise ScenarioError("DIR", "an assignment folder written by `spillgauge assign` or "
+                            "`spillgauge simulate` (it has no assignment.json)", str(folder))
     try:
         record = json.loads(record_path.read_text(encoding="utf-8"))
         design = dict(record["design"])

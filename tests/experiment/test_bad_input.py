@@ -1,0 +1,160 @@
+"""Bad files and options: one line naming the file, line, column and value; exit 2; nothing half written."""
+
+from __future__ import annotations
+
+import csv
+import re
+from pathlib import Path
+
+import pytest
+
+from spillgauge.cli import main
+from spillgauge.experiment.simulate import simulate_experiment, write_experiment
+from spillgauge.study.run import run_study
+from tests.experiment.conftest import small_market
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory, scenario):
+    out = tmp_path_factory.mktemp("experiment")
+    write_experiment(simulate_experiment(scenario, "user", seed=3, start="2027-03-01"), out)
+    return out
+
+
+def _rows(folder: Path) -> list[list[str]]:
+    with open(folder / "orders.csv", newline="") as handle:
+        return list(csv.reader(handle))
+
+
+def _write(path: Path, rows: list[list[str]]) -> Path:
+    with open(path, "w", newline="") as handle:
+        csv.writer(handle).writerows(rows)
+    return path
+
+
+def _refused(capsys, argv: list[str]) -> str:
+    assert main(argv) == 2
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("spillgauge: error: "), captured.err
+    assert "Traceback" not in captured.err
+    return lines[0]
+
+
+def _edit(row: int, column: int, value: str):
+    def change(rows):
+        rows[row][column] = value
+        return rows
+    return change
+
+
+def _duplicate(rows):
+    rows[6] = list(rows[5])
+    return rows
+
+
+def _drop_orders(rows):
+    return [r[:3] for r in rows]
+
+
+# (what, edit of the rows (row 0 is the header = line 1), line, column, value named)
+CASES = [
+    ("unknown user", _edit(4, 0, "ghost-7"), 5, "user_id", "ghost-7"),
+    ("date after the window", _edit(5, 2, "2027-03-07"), 6, "date", "2027-03-07"),
+    ("date before the window", _edit(2, 2, "2027-02-28"), 3, "date", "2027-02-28"),
+    ("not a date", _edit(3, 2, "03/01/2027"), 4, "date", "03/01/2027"),
+    ("duplicate row", _duplicate, 7, "date", None),
+    ("negative orders", _edit(7, 3, "-1"), 8, "orders", "-1"),
+    ("non-integer orders", _edit(8, 3, "1.5"), 9, "orders", "1.5"),
+    ("not a number", _edit(9, 3, "many"), 10, "orders", "many"),
+    ("another home pool", _edit(10, 1, "no-such-pool"), 11, "pool_id", "no-such-pool"),
+    ("missing column", _drop_orders, 1, "orders", None),
+]
+
+
+@pytest.mark.parametrize("what, edit, line, column, value", CASES, ids=[c[0] for c in CASES])
+def test_bad_orders_are_refused_by_file_line_column_and_value(capsys, folder, tmp_path, what,
+                                                             edit, line, column, value):
+    bad = _write(tmp_path / "orders.csv", edit(_rows(folder)))
+    message = _refused(capsys, ["analyze", str(folder), "--orders", str(bad)])
+    assert f"{bad} line {line} column {column} " in message
+    if value is not None:
+        assert f"got '{value}'" in message
+
+
+def test_the_good_file_is_read(capsys, folder, tmp_path):
+    good = _write(tmp_path / "orders.csv", _rows(folder))
+    assert main(["analyze", str(folder), "--orders", str(good)]) == 0
+    assert "difference_in_means" in capsys.readouterr().out
+
+
+def test_an_edited_assignment_is_refused(capsys, folder, tmp_path):
+    import shutil
+
+    copy = tmp_path / "copy"
+    shutil.copytree(folder, copy)
+    with open(copy / "assignment.csv", newline="") as handle:
+        rows = list(csv.reader(handle))
+    column = rows[0].index("arm")
+    rows[3][column] = "control" if rows[3][column] == "treatment" else "treatment"
+    _write(copy / "assignment.csv", rows)
+    message = _refused(capsys, ["analyze", str(copy)])
+    assert "assignment.csv line 4 column arm must be the arm of the user's unit" in message
+
+
+@pytest.fixture(scope="module")
+def studies(tmp_path_factory, scenario):
+    root = tmp_path_factory.mktemp("studies")
+    run_study(scenario, reps=2, seed=3, workers=1, out=root / "same")
+    other = small_market(effect={"lift": 0.5})
+    run_study(other, reps=2, seed=3, workers=1, out=root / "other")
+    return root
+
+
+def test_a_study_of_another_scenario_is_refused(capsys, folder, studies):
+    message = _refused(capsys, ["analyze", str(folder), "--study", str(studies / "other")])
+    assert "--study must be a study of the assignment's scenario 'small_market'" in message
+
+
+def test_a_study_of_the_same_scenario_gives_context(capsys, folder, studies):
+    assert main(["analyze", str(folder), "--study", str(studies / "same")]) == 0
+    out = capsys.readouterr().out
+    assert re.search(r"in 2 simulations of this market this design's interval covered", out)
+
+
+def test_not_an_assignment_folder(capsys, tmp_path):
+    message = _refused(capsys, ["analyze", str(tmp_path)])
+    assert "DIR must be an assignment folder" in message
+
+
+@pytest.mark.parametrize("option, value, named", [
+    ("--start", "2027-03-01T06:00", "--start must be a midnight"),
+    ("--start", "soon", "--start must be an ISO date"),
+    ("--design", "nope", "--design must be a design label of the scenario"),
+])
+def test_bad_options_write_nothing(capsys, tmp_path, option, value, named):
+    toml = tmp_path / "tiny.toml"
+    toml.write_text('name = "tiny"\n[users]\ncount = 50\n[pools]\ncount = 4\n')
+    options = {"--design": "user", "--out": str(tmp_path / "out"), option: value}
+    argv = ["assign", str(toml), *[part for pair in options.items() for part in pair]]
+    message = _refused(capsys, argv)
+    assert named in message
+    assert not (tmp_path / "out").exists()
+
+
+def test_another_assignment_is_never_overwritten(capsys, tmp_path):
+    toml = tmp_path / "tiny.toml"
+    toml.write_text('name = "tiny"\n[users]\ncount = 50\n[pools]\ncount = 4\n')
+    out = str(tmp_path / "out")
+    assert main(["assign", str(toml), "--design", "user", "--seed", "1", "--start",
+                 "2027-03-01", "--out", out]) == 0
+    before = (tmp_path / "out" / "assignment.csv").read_bytes()
+    # the same assignment again is fine; another seed is refused and leaves the files alone
+    assert main(["assign", str(toml), "--design", "user", "--seed", "1", "--start",
+                 "2027-03-01", "--out", out]) == 0
+    capsys.readouterr()
+    message = _refused(capsys, ["assign", str(toml), "--design", "user", "--seed", "2",
+                                "--start", "2027-03-01", "--out", out])
+    assert "holds another assignment" in message
+    assert (tmp_path / "out" / "assignment.csv").read_bytes() == before
