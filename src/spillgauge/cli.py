@@ -221,11 +221,10 @@ def _cmd_assign(args) -> int:
     assignment = assign_design(scenario, args.design, seed=args.seed, start=args.start)
     written = write_assignment(assignment, args.out)
     schedule = assignment.schedule
-    print(f"{assignment.spec.label}: {schedule.n_units} {schedule.unit_kind} units, "
-          f"{schedule.n_periods} period(s) from {assignment.start.isoformat()} over "
-          f"{assignment.days} days; seed {assignment.seed}")
+    print(f"{assignment.spec.label}: {assignment.describe()}; seed {assignment.seed}")
     print(balance_text(assignment_balance(schedule, assignment.history), schedule.unit_kind))
     print(f"\nwrote {args.out}/ ({', '.join(p.name for p in written)})")
+    print(f"after the experiment: spillgauge analyze {args.out} --orders ORDERS.csv")
     return 0
 
 

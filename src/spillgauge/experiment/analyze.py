@@ -20,7 +20,7 @@ from spillgauge.estimators.estimate import Estimate
 from spillgauge.experiment.assignment import Assignment, market_fingerprint
 from spillgauge.experiment.folder import read_assignment
 from spillgauge.experiment.orders import read_orders
-from spillgauge.experiment.simulate import ORDERS, POOL_ORDERS
+from spillgauge.experiment.simulate import ORDERS, POOL_ORDERS, TRUTH
 from spillgauge.files import json_safe
 from spillgauge.formatting import format_number, format_percent
 from spillgauge.panel import OutcomePanel
@@ -44,6 +44,9 @@ class ExperimentAnalysis:
         The orders file read.
     context : dict
         The study's measured metrics for this design (empty without ``--study``).
+    truth : dict
+        A simulated experiment's ``truth.json`` when the orders are the folder's own
+        (empty otherwise).
     """
 
     assignment: Assignment
@@ -51,6 +54,7 @@ class ExperimentAnalysis:
     note: str = ""
     orders: Path | None = None
     context: dict = field(default_factory=dict)
+    truth: dict = field(default_factory=dict)
 
 
 def analyse_panel(assignment: Assignment, panel: OutcomePanel) -> tuple[Estimate, str]:
@@ -136,8 +140,14 @@ def analyze_experiment(folder: str | Path, *, orders: str | Path | None = None,
     context = study_context(study, assignment) if study is not None else {}
     panel = read_orders(orders, assignment)
     estimate, note = analyse_panel(assignment, panel)
+    truth = {}
+    if orders.parent.resolve() == folder.resolve() and (folder / TRUTH).is_file():
+        try:
+            truth = json.loads((folder / TRUTH).read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError):
+            truth = {}
     return ExperimentAnalysis(assignment=assignment, estimate=estimate, note=note,
-                              orders=orders, context=context)
+                              orders=orders, context=context, truth=truth)
 
 
 def analysis_record(analysis: ExperimentAnalysis) -> dict:
@@ -154,6 +164,8 @@ def analysis_record(analysis: ExperimentAnalysis) -> dict:
                                        estimate.diagnostic.__slots__}
     if analysis.context:
         record["study"] = analysis.context
+    if analysis.truth.get("gte") is not None:
+        record["true_effect"] = analysis.truth["gte"]
     return json_safe(record)
 
 
@@ -167,7 +179,7 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
              f"{format_number(estimate.point, sign=True)}",
              f"  standard error {format_number(estimate.standard_error)}, {level} interval "
              f"[{format_number(estimate.ci_low)}, {format_number(estimate.ci_high)}], "
-             f"{estimate.n_units} units",
+             f"{estimate.n_units} units used by the estimator",
              "  p-value " + (format_number(estimate.p_value) if math.isfinite(estimate.p_value)
                              else "n/a (the estimator gives none)")]
     if estimate.diagnostic is not None:
@@ -177,6 +189,12 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
                      f"{format_number(d.p_value)}")
     if analysis.note:
         lines.append(f"  note: {analysis.note}")
+    gte = analysis.truth.get("gte")
+    if gte is not None:
+        covers = estimate.ci_low <= gte <= estimate.ci_high
+        lines.append(f"  truth.json: the true effect of this synthetic experiment is "
+                     f"{format_number(gte, sign=True)}; the interval "
+                     + ("covers it" if covers else "misses it"))
     context = analysis.context
     if context:
         bias = context.get("relative_bias")

@@ -129,6 +129,16 @@ class Assignment:
         return origin + np.asarray(tick, dtype=np.int64) * np.timedelta64(self.tick_hours * 60,
                                                                              "m")
 
+    def describe(self) -> str:
+        """Return the assignment in words: unit, treated units and periods, dates."""
+        schedule = self.schedule
+        treated, cells = int(schedule.is_treated.sum()), schedule.is_treated.size
+        what = (f"{treated} of {schedule.n_units} units treated" if schedule.is_static else
+                f"{treated} of {cells} unit-periods treated ({schedule.n_units} unit(s) x "
+                f"{schedule.n_periods} periods)")
+        return (f"randomized by {kind_of(self.spec).describe_unit(self.spec)}, {what}, "
+                f"{self.days} days from {self.start.date()}")
+
     def estimator_name(self) -> str:
         """Return the full name of the estimator the design's kind analyses it with."""
         return kind_of(self.spec).estimator_name(self.spec)

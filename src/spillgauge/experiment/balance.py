@@ -87,12 +87,14 @@ def balance_text(balance: Balance | None, unit_kind: str) -> str:
     if balance is None:
         return ("balance: arms change over time (blocks), so there is no per-user table; "
                 "see calendar.csv")
+    units = unit_kind != "user"
     lines = ["pre-period orders per user, by arm:",
-             f"  {'arm':<10} {'users':>8} {unit_kind + 's':>10} {'mean':>8} {'sd':>8}"]
+             f"  {'arm':<10} {'users':>8}" + (f" {unit_kind + 's':>10}" if units else "")
+             + f" {'mean':>8} {'sd':>8}"]
     for i, arm in enumerate(("control", "treatment")):
-        lines.append(f"  {arm:<10} {format_quantity(balance.n_users[i]):>8} "
-                     f"{format_quantity(balance.n_units[i]):>10} "
-                     f"{format_number(balance.mean[i]):>8} {format_number(balance.sd[i]):>8}")
+        lines.append(f"  {arm:<10} {format_quantity(balance.n_users[i]):>8}"
+                     + (f" {format_quantity(balance.n_units[i]):>10}" if units else "")
+                     + f" {format_number(balance.mean[i]):>8} {format_number(balance.sd[i]):>8}")
     flag = "" if not math.isfinite(balance.smd) or abs(balance.smd) < 0.1 else \
         "  (above 0.1: a common rule of thumb for imbalance)"
     lines.append(f"  standardized mean difference: {format_number(balance.smd, sign=True)}{flag}")

@@ -63,10 +63,14 @@ def _times(assignment: Assignment, ticks: np.ndarray) -> list[str]:
 
 def assignment_record(assignment: Assignment) -> dict:
     """Return the content of ``assignment.json``."""
-    from spillgauge import __version__
+    from importlib.metadata import PackageNotFoundError, version
 
+    try:
+        tool = f"spillgauge {version('spillgauge')}"
+    except PackageNotFoundError:  # run from a source tree without installing
+        tool = "spillgauge (not installed)"
     schedule = assignment.schedule
-    return {"format": FORMAT, "tool": f"spillgauge {__version__}",
+    return {"format": FORMAT, "tool": tool,
             "scenario": assignment.scenario_name, "scenario_fingerprint": assignment.fingerprint,
             "design": design_to_dict(assignment.spec), "estimator": assignment.estimator_name(),
             "seed": assignment.seed, "start": assignment.start.isoformat(),

@@ -24,7 +24,7 @@ from spillgauge.seeding import DEMAND, stream
 from spillgauge.statistics.truth import ReplicationTruth, replication_truth
 
 __all__ = ["SimulatedExperiment", "simulate_experiment", "write_experiment", "ORDERS",
-           "POOL_ORDERS"]
+           "POOL_ORDERS", "TRUTH"]
 
 ORDERS, POOL_ORDERS, STOCK, TRUTH = "orders.csv", "pool_orders.csv", "stock.csv", "truth.json"
 
