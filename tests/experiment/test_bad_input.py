@@ -1,4 +1,4 @@
-"""Bad files and options: one line naming the file, line, column and value; exit 2; nothing half written."""
+"""Bad files and options: one line naming file, line, column and value; exit 2; nothing written."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""End to end under the null: files written by simulate, read by analyze, cover a zero effect at 95%."""
+"""End to end under the null: simulate's files, read by analyze, cover a zero effect at 95%."""
 
 from __future__ import annotations
 

@@ -202,11 +202,10 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
                      if bias is not None and math.isfinite(bias) else
                      f"its bias was {format_number(context.get('bias') or math.nan, sign=True)} "
                      "orders per user")
-        covered = context.get("coverage")
-        power = context.get("power")
+        covered, power = (math.nan if context.get(k) is None else context[k]
+                          for k in ("coverage", "power"))
         lines.append(f"in {context.get('n_reps')} simulations of this market this design's "
-                     f"interval covered {format_percent(covered if covered is not None else math.nan)}"
-                     f" of the true effects, {bias_text}, and its power was "
-                     f"{format_percent(power if power is not None else math.nan)}"
+                     f"interval covered {format_percent(covered)} of the true effects, "
+                     f"{bias_text}, and its power was {format_percent(power)}"
                      + (" (the study's recommendation)" if context.get("recommended") else ""))
     return "\n".join(lines)

@@ -18,7 +18,8 @@ def standardized_mean_difference(treated: np.ndarray, control: np.ndarray) -> fl
     Sample variances use ``ddof=1``; NaN when an arm has fewer than two values or
     both variances are zero. Austin (2009), "Balance diagnostics for comparing
     the distribution of baseline covariates between treatment groups in
-    propensity-score matched samples", Statistics in Medicine 28(25), the formula for a continuous covariate.
+    propensity-score matched samples", Statistics in Medicine 28(25), the formula for a
+    continuous covariate.
 
     >>> standardized_mean_difference(np.array([2.0, 4.0]), np.array([1.0, 3.0]))
     0.7071067811865475

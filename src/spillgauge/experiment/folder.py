@@ -1,4 +1,4 @@
-"""The assignment folder: ``assignment.json``, ``assignment.csv``, ``calendar.csv`` (and ``exposure.csv``).
+"""The assignment folder: ``assignment.json``, ``assignment.csv``, ``calendar.csv`` and more.
 
 The files hold the schedule in the terms of the team's market (user and pool
 ids, dates), and read back into the very :class:`AssignmentSchedule` that was
@@ -27,6 +27,7 @@ from scipy import sparse
 from spillgauge.designs.registry import make_design_spec
 from spillgauge.errors import ResultsError, ScenarioError
 from spillgauge.experiment.assignment import Assignment
+from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
 from spillgauge.files import dumps, write_atomic
 from spillgauge.scenario.reading import design_to_dict
 from spillgauge.schedule import AssignmentSchedule
@@ -144,30 +145,15 @@ def _check_not_another(out: Path, record: dict) -> None:
                            "another --out folder or delete it")
 
 
-def _refuse(path: Path, line: int, column: str, expected: str, value: object) -> ScenarioError:
-    return ScenarioError(f"{path} line {line} column {column}", expected, value)
-
-
 def _read_csv(path: Path, columns: tuple[str, ...]) -> pd.DataFrame:
     if not path.is_file():
         raise ScenarioError(str(path), "an existing file of the assignment folder", str(path))
-    frame = pd.read_csv(path, dtype=str, keep_default_na=False)
+    frame = pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8-sig")
     for column in columns:
         if column not in frame.columns:
-            raise _refuse(path, 1, column, "a column of the header (found: "
+            raise file_error(path, 1, column, "a column of the header (found: "
                           + ", ".join(frame.columns) + ")", ",".join(frame.columns))
     return frame
-
-
-def _lookup(path: Path, frame: pd.DataFrame, column: str, names: list[str], what: str
-            ) -> np.ndarray:
-    index = {name: i for i, name in enumerate(names)}
-    codes = frame[column].map(index)
-    bad = codes.isna().to_numpy()
-    if bad.any():
-        row = int(np.argmax(bad))
-        raise _refuse(path, row + 2, column, what, frame[column].iat[row])
-    return codes.to_numpy(dtype=np.int64)
 
 
 def read_assignment(folder: str | Path) -> Assignment:
@@ -199,13 +185,10 @@ def read_assignment(folder: str | Path) -> Assignment:
     users_path = folder / _USERS
     users = _read_csv(users_path, ("user_id", "pool_id", "pre_period_orders", "unit"))
     user_ids = users["user_id"].to_numpy(dtype=object)
-    pool_of_user = _lookup(users_path, users, "pool_id", pool_ids.tolist(),
+    pool_of_user = column_codes(users_path, users, "pool_id", pool_ids.tolist(),
                            "a pool of assignment.json")
     history = pd.to_numeric(users["pre_period_orders"], errors="coerce").to_numpy(float)
-    if not np.isfinite(history).all():
-        row = int(np.argmax(~np.isfinite(history)))
-        raise _refuse(users_path, row + 2, "pre_period_orders", "a number",
-                      users["pre_period_orders"].iat[row])
+    refuse_first(users_path, users, ~np.isfinite(history), "pre_period_orders", "a number")
     partial = Assignment(spec=spec, schedule=None, seed=int(record["seed"]), start=start,
                          tick_hours=tick_hours, days=days,
                          confidence=float(record["confidence"]), user_ids=user_ids,
@@ -217,14 +200,14 @@ def read_assignment(folder: str | Path) -> Assignment:
     labels = (user_ids if kind == "user" else pool_ids[:n_units] if kind == "pool"
               else np.array(["market"] if kind == "market" else
                             [str(u) for u in range(n_units)], dtype=object))
-    unit_of_user = _lookup(users_path, users, "unit", labels.tolist(), f"a {kind} of the design")
+    unit_of_user = column_codes(users_path, users, "unit", labels, f"a {kind} of the design")
     starts = np.asarray(info["period_start_ticks"], dtype=np.int64)
     calendar_path = folder / _CALENDAR
     calendar = _read_csv(calendar_path, ("unit", "start", "arm"))
-    unit = _lookup(calendar_path, calendar, "unit", labels.tolist(), f"a {kind} of the design")
-    period = _lookup(calendar_path, calendar, "start", _times(partial, starts),
+    unit = column_codes(calendar_path, calendar, "unit", labels, f"a {kind} of the design")
+    period = column_codes(calendar_path, calendar, "start", _times(partial, starts),
                      "the start of a period of assignment.json")
-    arm = _lookup(calendar_path, calendar, "arm", list(ARMS), "'control' or 'treatment'")
+    arm = column_codes(calendar_path, calendar, "arm", list(ARMS), "'control' or 'treatment'")
     is_treated = np.zeros((n_units, starts.size), dtype=bool)
     seen = np.zeros_like(is_treated)
     is_treated[unit, period] = arm == 1
@@ -240,8 +223,8 @@ def read_assignment(folder: str | Path) -> Assignment:
         is_cluster_arm[cluster_of_user[half]] = True
     if (folder / _EXPOSURE).is_file():
         pairs = _read_csv(folder / _EXPOSURE, ("user_id", "unit"))
-        rows = _lookup(folder / _EXPOSURE, pairs, "user_id", user_ids.tolist(), "a user")
-        cols = _lookup(folder / _EXPOSURE, pairs, "unit", labels.tolist(), "a unit")
+        rows = column_codes(folder / _EXPOSURE, pairs, "user_id", user_ids.tolist(), "a user")
+        cols = column_codes(folder / _EXPOSURE, pairs, "unit", labels.tolist(), "a unit")
         exposure = sparse.csr_array((np.ones(rows.size), (rows, cols)),
                                     shape=(user_ids.size, n_units))
     schedule = AssignmentSchedule(unit_of_user=unit_of_user, is_treated=is_treated,
@@ -251,12 +234,9 @@ def read_assignment(folder: str | Path) -> Assignment:
                                   exposure_units=exposure, cluster_of_user=cluster_of_user,
                                   is_cluster_arm=is_cluster_arm)
     if "arm" in users.columns:
-        given = _lookup(users_path, users, "arm", list(ARMS), "'control' or 'treatment'")
-        differs = given != schedule.user_is_treated().astype(int)
-        if differs.any():
-            row = int(np.argmax(differs))
-            raise _refuse(users_path, row + 2, "arm", "the arm of the user's unit in "
-                          "calendar.csv", users["arm"].iat[row])
+        given = column_codes(users_path, users, "arm", list(ARMS), "'control' or 'treatment'")
+        refuse_first(users_path, users, given != schedule.user_is_treated().astype(int), "arm",
+                     "the arm of the user's unit in calendar.csv")
     import dataclasses
 
     return dataclasses.replace(partial, schedule=schedule)

@@ -23,29 +23,12 @@ import pandas as pd
 
 from spillgauge.errors import ScenarioError
 from spillgauge.experiment.assignment import Assignment
+from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
 from spillgauge.panel import OutcomePanel
 
 __all__ = ["read_orders", "panel_from_counts"]
 
 _COLUMNS = ("user_id", "pool_id", "date", "hour", "orders")
-
-
-def _refuse(path: Path, line: int, column: str, expected: str, value: object) -> ScenarioError:
-    return ScenarioError(f"{path} line {line} column {column}", expected, value)
-
-
-def _first_bad(path: Path, frame: pd.DataFrame, bad: np.ndarray, column: str, expected: str):
-    if bad.any():
-        row = int(np.argmax(bad))
-        raise _refuse(path, row + 2, column, expected, frame[column].iat[row])
-
-
-def _codes(path: Path, frame: pd.DataFrame, column: str, names: np.ndarray, expected: str
-           ) -> np.ndarray:
-    index = pd.Index(names)
-    codes = index.get_indexer(frame[column])
-    _first_bad(path, frame, codes < 0, column, expected)
-    return codes.astype(np.int64)
 
 
 def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick: np.ndarray
@@ -87,7 +70,8 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
     """
     path = Path(path)
     try:
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skip_blank_lines=False)
+        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skip_blank_lines=False,
+                            encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError, pd.errors.ParserError,
             pd.errors.EmptyDataError) as exc:
         raise ScenarioError(str(path), "a readable CSV file of orders",
@@ -95,7 +79,7 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
     frame.columns = [c.strip() for c in frame.columns]
     for column in frame.columns:
         if column not in _COLUMNS:
-            raise _refuse(path, 1, column, "a known column (one of " + ", ".join(_COLUMNS) + ")",
+            raise file_error(path, 1, column, "a known column (one of " + ", ".join(_COLUMNS) + ")",
                           column)
     by_user = "user_id" in frame.columns
     needs_ticks = not assignment.schedule.is_static
@@ -106,41 +90,42 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
         required.insert(0, "user_id")  # a design with one arm per user needs user rows
     for column in required:
         if column not in frame.columns:
-            raise _refuse(path, 1, column, "a column of the header (found: "
+            raise file_error(path, 1, column, "a column of the header (found: "
                           + ", ".join(frame.columns) + ")", ",".join(frame.columns))
     frame = frame.apply(lambda column: column.str.strip())
     n_users, n_pools = assignment.user_ids.size, assignment.pool_ids.size
     if by_user:
-        user = _codes(path, frame, "user_id", assignment.user_ids,
+        user = column_codes(path, frame, "user_id", assignment.user_ids,
                       "a user_id of the assignment")
         pool = assignment.pool_of_user[user]
         if "pool_id" in frame.columns:
-            given = _codes(path, frame, "pool_id", assignment.pool_ids,
+            given = column_codes(path, frame, "pool_id", assignment.pool_ids,
                            "a pool_id of the assignment")
-            _first_bad(path, frame, given != pool, "pool_id",
+            refuse_first(path, frame, given != pool, "pool_id",
                        "the user's home pool in assignment.csv")
     else:
-        pool = _codes(path, frame, "pool_id", assignment.pool_ids, "a pool_id of the assignment")
+        pool = column_codes(path, frame, "pool_id", assignment.pool_ids,
+                            "a pool_id of the assignment")
     dates = pd.to_datetime(frame["date"], format="%Y-%m-%d", errors="coerce")
-    _first_bad(path, frame, dates.isna().to_numpy(), "date", "a date YYYY-MM-DD")
+    refuse_first(path, frame, dates.isna().to_numpy(), "date", "a date YYYY-MM-DD")
     day = ((dates - pd.Timestamp(assignment.start)).dt.days).to_numpy(np.int64)
     last = (pd.Timestamp(assignment.start) + pd.Timedelta(days=assignment.days - 1)).date()
-    _first_bad(path, frame, (day < 0) | (day >= assignment.days), "date",
+    refuse_first(path, frame, (day < 0) | (day >= assignment.days), "date",
                f"a date from {assignment.start.date()} to {last} (the assignment's window)")
     hour = np.zeros(len(frame), dtype=np.int64)
     if "hour" in frame.columns:
         number = pd.to_numeric(frame["hour"], errors="coerce").to_numpy(float)
-        _first_bad(path, frame, ~np.isin(number, np.arange(24)), "hour",
+        refuse_first(path, frame, ~np.isin(number, np.arange(24)), "hour",
                    "an hour of the day, 0 to 23")
         hour = number.astype(np.int64)
     count = pd.to_numeric(frame["orders"], errors="coerce").to_numpy(float)
     bad = ~np.isfinite(count) | (count < 0) | (count != np.round(count))
-    _first_bad(path, frame, bad, "orders", "a whole number of orders >= 0")
+    refuse_first(path, frame, bad, "orders", "a whole number of orders >= 0")
     count = count.astype(np.int64)
     key = (user if by_user else pool) * (assignment.days * 24) + day * 24 + hour
     repeated = pd.Series(key).duplicated().to_numpy()
     column = "hour" if "hour" in frame.columns else "date"
-    _first_bad(path, frame, repeated, column, "a single row per "
+    refuse_first(path, frame, repeated, column, "a single row per "
                + ("user" if by_user else "pool") + (", date and hour" if column == "hour"
                                                      else " and date"))
     tick = (day * 24 + hour) // assignment.tick_hours

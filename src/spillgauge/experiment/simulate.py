@@ -14,7 +14,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from spillgauge.experiment.assignment import ASSIGNMENT_REPLICATION, Assignment, assign_design
+from spillgauge.experiment.assignment import (
+    ASSIGNMENT_REPLICATION,
+    Assignment,
+    assign_design,
+)
 from spillgauge.experiment.folder import write_assignment
 from spillgauge.files import dumps, write_atomic
 from spillgauge.panel import OutcomePanel
@@ -114,7 +118,8 @@ def write_experiment(experiment: SimulatedExperiment, out: str | Path) -> list[P
 
     stock = pd.DataFrame({
         "pool_id": np.repeat(assignment.pool_ids, n_days), "date": np.tile(dates, n_pools),
-        "orders_placed": daily(panel.pool_demanded), "orders_fulfilled": daily(panel.pool_fulfilled),
+        "orders_placed": daily(panel.pool_demanded),
+        "orders_fulfilled": daily(panel.pool_fulfilled),
         "orders_lost": daily(panel.pool_lost),
         "stock_end_of_day": panel.pool_stock[:, ticks_per_day - 1::ticks_per_day].ravel()})
     write_atomic(out / STOCK, stock.to_csv(index=False))
