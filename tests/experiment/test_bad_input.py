@@ -89,6 +89,18 @@ def test_the_good_file_is_read(capsys, folder, tmp_path):
     assert "difference_in_means" in capsys.readouterr().out
 
 
+def test_a_header_with_a_byte_order_mark_and_spaces_is_read(capsys, folder, tmp_path):
+    # Spreadsheet exports often start with a UTF-8 byte-order mark and put a space after commas.
+    text = (folder / "orders.csv").read_text().replace(",", ", ")
+    (tmp_path / "orders.csv").write_text("\ufeff" + text, encoding="utf-8")
+    assert main(["analyze", str(folder), "--orders", str(tmp_path / "orders.csv"), "--json"]) == 0
+    again = capsys.readouterr().out
+    assert main(["analyze", str(folder), "--json"]) == 0
+    first = capsys.readouterr().out
+    assert again.split('"orders"')[0] == first.split('"orders"')[0]
+    assert again.split('"estimate"')[1] == first.split('"estimate"')[1]
+
+
 def test_an_edited_assignment_is_refused(capsys, folder, tmp_path):
     import shutil
 

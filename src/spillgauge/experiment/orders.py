@@ -31,6 +31,14 @@ __all__ = ["read_orders", "panel_from_counts"]
 _COLUMNS = ("user_id", "pool_id", "date", "hour", "orders")
 
 
+def _numbers(column: pd.Series) -> np.ndarray:
+    """Return a column as floats (NaN where it is not a number); integers take the fast path."""
+    try:
+        return column.astype(np.int64).to_numpy(dtype=float)
+    except (ValueError, TypeError, OverflowError):
+        return pd.to_numeric(column, errors="coerce").to_numpy(float)
+
+
 def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick: np.ndarray
                       ) -> OutcomePanel:
     """Return the outcome panel of orders counted per user-day and per pool-tick.
@@ -71,7 +79,7 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
     path = Path(path)
     try:
         frame = pd.read_csv(path, dtype=str, keep_default_na=False, skip_blank_lines=False,
-                            encoding="utf-8-sig")
+                            encoding="utf-8-sig", skipinitialspace=True)
     except (OSError, UnicodeDecodeError, pd.errors.ParserError,
             pd.errors.EmptyDataError) as exc:
         raise ScenarioError(str(path), "a readable CSV file of orders",
@@ -92,7 +100,6 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
         if column not in frame.columns:
             raise file_error(path, 1, column, "a column of the header (found: "
                           + ", ".join(frame.columns) + ")", ",".join(frame.columns))
-    frame = frame.apply(lambda column: column.str.strip())
     n_users, n_pools = assignment.user_ids.size, assignment.pool_ids.size
     if by_user:
         user = column_codes(path, frame, "user_id", assignment.user_ids,
@@ -114,11 +121,11 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
                f"a date from {assignment.start.date()} to {last} (the assignment's window)")
     hour = np.zeros(len(frame), dtype=np.int64)
     if "hour" in frame.columns:
-        number = pd.to_numeric(frame["hour"], errors="coerce").to_numpy(float)
+        number = _numbers(frame["hour"])
         refuse_first(path, frame, ~np.isin(number, np.arange(24)), "hour",
                    "an hour of the day, 0 to 23")
         hour = number.astype(np.int64)
-    count = pd.to_numeric(frame["orders"], errors="coerce").to_numpy(float)
+    count = _numbers(frame["orders"])
     bad = ~np.isfinite(count) | (count < 0) | (count != np.round(count))
     refuse_first(path, frame, bad, "orders", "a whole number of orders >= 0")
     count = count.astype(np.int64)
