@@ -14,7 +14,7 @@ from spillgauge.experiment.balance import (
     balance_text,
     standardized_mean_difference,
 )
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from tests.conftest import make_scenario
 
 

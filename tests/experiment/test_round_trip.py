@@ -9,7 +9,7 @@ from spillgauge import analyze_experiment, assign_design, simulate_experiment
 from spillgauge.designs.registry import KINDS, kind_of
 from spillgauge.experiment.folder import read_assignment, write_assignment
 from spillgauge.experiment.simulate import write_experiment
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from spillgauge.seeding import ASSIGNMENT, design_key, stream
 from spillgauge.study.replication import run_replication
 from tests.experiment.conftest import same_estimate

@@ -173,7 +173,7 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
     ScenarioError
         For an unknown label, a seed out of range or a start that is not a midnight.
     """
-    from spillgauge.model.market import build_market
+    from spillgauge.market.build import build_market
     from spillgauge.study.store import scenario_fingerprint
 
     if isinstance(design, str):

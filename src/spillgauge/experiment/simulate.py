@@ -59,8 +59,8 @@ def simulate_experiment(scenario: Scenario, design: str | DesignSpec, *,
     Parameters are those of :func:`~spillgauge.experiment.assignment.assign_design`;
     the world is replication 0 of ``spillgauge run --seed seed``, bit for bit.
     """
-    from spillgauge.model.market import build_market
-    from spillgauge.model.world import simulate_worlds
+    from spillgauge.market.build import build_market
+    from spillgauge.worlds.engine import simulate_worlds
 
     seed = scenario.study.seed if seed is None else seed
     assignment = assign_design(scenario, design, seed=seed, start=start)
