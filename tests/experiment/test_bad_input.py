@@ -102,6 +102,17 @@ def test_a_header_with_a_byte_order_mark_and_spaces_is_read(capsys, folder, tmp_
         assert again[key] == first[key]
 
 
+def test_days_without_any_order_are_named(capsys, folder, tmp_path):
+    # An export that stops early reads as zero orders on the last days: analyze says so.
+    rows = [r for r in _rows(folder) if r[2] not in ("2027-03-05", "2027-03-06")]
+    short = _write(tmp_path / "orders.csv", rows)
+    assert main(["analyze", str(folder), "--orders", str(short)]) == 0
+    out = capsys.readouterr().out
+    assert "no orders at all on 2027-03-05, 2027-03-06" in out
+    assert main(["analyze", str(folder)]) == 0
+    assert "no orders at all" not in capsys.readouterr().out
+
+
 def test_an_edited_assignment_is_refused(capsys, folder, tmp_path):
     import shutil
 

@@ -14,6 +14,8 @@ import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import pandas as pd
+
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning, ResultsError, ScenarioError
 from spillgauge.estimators.estimate import Estimate
@@ -47,6 +49,9 @@ class ExperimentAnalysis:
     truth : dict
         A simulated experiment's ``truth.json`` when the orders are the folder's own
         (empty otherwise).
+    empty_days : list of str
+        Dates of the window without a single order in the file (a missing row counts
+        as zero orders, so an export that stops early would bias the estimate).
     """
 
     assignment: Assignment
@@ -55,6 +60,7 @@ class ExperimentAnalysis:
     orders: Path | None = None
     context: dict = field(default_factory=dict)
     truth: dict = field(default_factory=dict)
+    empty_days: list = field(default_factory=list)
 
 
 def analyse_panel(assignment: Assignment, panel: OutcomePanel) -> tuple[Estimate, str]:
@@ -146,8 +152,11 @@ def analyze_experiment(folder: str | Path, *, orders: str | Path | None = None,
             truth = json.loads((folder / TRUTH).read_text(encoding="utf-8"))
         except (OSError, json.JSONDecodeError):
             truth = {}
+    per_day = panel.pool_fulfilled.sum(axis=0).reshape(assignment.days, -1).sum(axis=1)
+    empty = [str(day.date()) for day, n in zip(
+        pd.date_range(assignment.start, periods=assignment.days, freq="D"), per_day) if n == 0]
     return ExperimentAnalysis(assignment=assignment, estimate=estimate, note=note,
-                              orders=orders, context=context, truth=truth)
+                              orders=orders, context=context, truth=truth, empty_days=empty)
 
 
 def analysis_record(analysis: ExperimentAnalysis) -> dict:
@@ -158,7 +167,8 @@ def analysis_record(analysis: ExperimentAnalysis) -> dict:
               "estimate": estimate.point, "standard_error": estimate.standard_error,
               "ci_low": estimate.ci_low, "ci_high": estimate.ci_high,
               "confidence": assignment.confidence, "p_value": estimate.p_value,
-              "n_units": estimate.n_units, "note": analysis.note}
+              "n_units": estimate.n_units, "note": analysis.note,
+              "days_without_orders": analysis.empty_days}
     if estimate.diagnostic is not None:
         record["interference_test"] = {k: getattr(estimate.diagnostic, k) for k in
                                        estimate.diagnostic.__slots__}
@@ -189,6 +199,11 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
                      f"{format_number(d.p_value)}")
     if analysis.note:
         lines.append(f"  note: {analysis.note}")
+    if analysis.empty_days:
+        days = analysis.empty_days
+        shown = ", ".join(days[:3]) + (f" and {len(days) - 3} more" if len(days) > 3 else "")
+        lines.append(f"  note: no orders at all on {shown}; a missing row counts as zero "
+                     "orders, so check that the file covers every day of the experiment")
     gte = analysis.truth.get("gte")
     if gte is not None:
         covers = estimate.ci_low <= gte <= estimate.ci_high

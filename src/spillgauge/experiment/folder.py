@@ -27,6 +27,7 @@ from scipy import sparse
 from spillgauge.designs.registry import make_design_spec
 from spillgauge.errors import ResultsError, ScenarioError
 from spillgauge.experiment.assignment import Assignment
+from spillgauge.experiment.balance import assignment_balance
 from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
 from spillgauge.files import dumps, write_atomic
 from spillgauge.scenario.reading import design_to_dict
@@ -71,6 +72,7 @@ def assignment_record(assignment: Assignment) -> dict:
     except PackageNotFoundError:  # run from a source tree without installing
         tool = "spillgauge (not installed)"
     schedule = assignment.schedule
+    balance = assignment_balance(schedule, assignment.history)
     return {"format": FORMAT, "tool": tool,
             "scenario": assignment.scenario_name, "scenario_fingerprint": assignment.fingerprint,
             "design": design_to_dict(assignment.spec), "estimator": assignment.estimator_name(),
@@ -82,6 +84,7 @@ def assignment_record(assignment: Assignment) -> dict:
                          "treated_probability": schedule.treated_probability,
                          "n_units": schedule.n_units,
                          "period_start_ticks": schedule.period_start_ticks.tolist()},
+            "balance": (None if balance is None else balance.to_dict()),
             "pool_ids": assignment.pool_ids.tolist()}
 
 
