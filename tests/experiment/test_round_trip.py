@@ -119,3 +119,17 @@ def test_ids_come_from_the_users_file(tmp_path):
     # a pool's users share one arm (the unit is the pool, named by its id)
     assert (written["unit"] == written["pool_id"]).all()
     assert written.groupby("pool_id")["arm"].nunique().max() == 1
+
+
+def test_a_rollout_names_each_users_switch_on_time(scenario, tmp_path):
+    import pandas as pd
+
+    assignment = assign_design(scenario, "rollout-2-waves", seed=SEED, start="2027-03-01")
+    write_assignment(assignment, tmp_path)
+    users = pd.read_csv(tmp_path / "assignment.csv", dtype=str)
+    calendar = pd.read_csv(tmp_path / "calendar.csv", dtype=str)
+    first = calendar[calendar["arm"] == "treatment"].groupby("unit")["start"].min()
+    expected = users["unit"].map(first).fillna("never")
+    assert (users["switch_on"] == expected).all()
+    # 2 waves on 6 days of 2-hour ticks: periods start at ticks 0, 24 and 48 (days 0, 2, 4)
+    assert set(users["switch_on"]) == {"2027-03-03T00:00", "2027-03-05T00:00", "never"}

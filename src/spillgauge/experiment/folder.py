@@ -4,9 +4,10 @@ The files hold the schedule in the terms of the team's market (user and pool
 ids, dates), and read back into the very :class:`AssignmentSchedule` that was
 drawn, so the analysis runs the design's estimator on the same schedule.
 
-- ``assignment.csv``: one row per user: ``user_id, pool_id, pre_period_orders, unit``,
-  the user's ``arm`` when it keeps one arm over the horizon, and ``cluster`` and
-  ``half`` for a test of interference.
+- ``assignment.csv``: one row per user: ``user_id, pool_id, pre_period_orders, unit``;
+  the user's ``arm`` when it keeps one arm over the horizon; ``switch_on`` (the start
+  of the unit's first treated period, or ``never``) when every unit, once treated,
+  stays treated (a rollout); ``cluster`` and ``half`` for a test of interference.
 - ``calendar.csv``: one row per unit and period: ``unit, start, end, arm, burn_in_end``
   (for a switchback, the blocks; for a rollout, each pool's first treated period is its
   switch-on time).
@@ -104,6 +105,14 @@ def write_assignment(assignment: Assignment, out: str | Path) -> list[Path]:
         users["pre_period_orders"] = assignment.history.astype(np.int64)
     if schedule.is_static:
         users["arm"] = np.array(ARMS, dtype=object)[schedule.user_is_treated().astype(int)]
+    treated = schedule.is_treated
+    if not schedule.is_static and np.all(treated[:, 1:] >= treated[:, :-1]):
+        # units switch on once and stay on (a rollout): each user's switch-on time
+        first = np.where(treated.any(axis=1), treated.argmax(axis=1), -1)
+        switch_on = np.array(_times(assignment, schedule.period_start_ticks[np.maximum(first, 0)]),
+                             dtype=object)
+        switch_on[first < 0] = "never"
+        users["switch_on"] = switch_on[schedule.unit_of_user]
     if schedule.cluster_of_user is not None:
         users["cluster"] = schedule.cluster_of_user
         users["half"] = np.where(schedule.is_cluster_arm[schedule.cluster_of_user],
