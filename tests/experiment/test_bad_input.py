@@ -182,3 +182,13 @@ def test_another_assignment_is_never_overwritten(capsys, tmp_path):
                                 "--start", "2027-03-01", "--out", out])
     assert "holds another assignment" in message
     assert (tmp_path / "out" / "assignment.csv").read_bytes() == before
+
+
+def test_a_switchback_needs_the_hour(capsys, scenario, tmp_path):
+    # 2-hour ticks: daily user rows cannot say which block an order fell in.
+    write_experiment(simulate_experiment(scenario, "switchback-12h", seed=3,
+                                         start="2027-03-01"), tmp_path)
+    message = _refused(capsys, ["analyze", str(tmp_path), "--orders",
+                                str(tmp_path / "orders.csv")])
+    assert "orders.csv line 1 column hour must be a column of the header: this design's " \
+        "arms change within a day" in message

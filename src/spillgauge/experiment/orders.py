@@ -96,18 +96,22 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
         required.append("hour")
     if not by_user and not needs_ticks:
         required.insert(0, "user_id")  # a design with one arm per user needs user rows
+    why = {"hour": ": this design's arms change within a day, so its estimator needs the "
+                   "hour of each order", "user_id": ": this design keeps each user in one "
+                   "arm, so its estimator needs each user's orders"}
     for column in required:
         if column not in frame.columns:
-            raise file_error(path, 1, column, "a column of the header (found: "
-                          + ", ".join(frame.columns) + ")", ",".join(frame.columns))
+            raise file_error(path, 1, column, "a column of the header" + why.get(column, "")
+                             + " (found: " + ", ".join(frame.columns) + ")",
+                             ",".join(frame.columns))
     n_users, n_pools = assignment.user_ids.size, assignment.pool_ids.size
     if by_user:
         user = column_codes(path, frame, "user_id", assignment.user_ids,
-                      "a user_id of the assignment")
+                            "a user_id of the assignment")
         pool = assignment.pool_of_user[user]
         if "pool_id" in frame.columns:
             given = column_codes(path, frame, "pool_id", assignment.pool_ids,
-                           "a pool_id of the assignment")
+                                 "a pool_id of the assignment")
             refuse_first(path, frame, given != pool, "pool_id",
                        "the user's home pool in assignment.csv")
     else:
