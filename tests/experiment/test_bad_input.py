@@ -133,12 +133,20 @@ def studies(tmp_path_factory, scenario):
     run_study(scenario, reps=2, seed=3, workers=1, out=root / "same")
     other = small_market(effect={"lift": 0.5})
     run_study(other, reps=2, seed=3, workers=1, out=root / "other")
+    # same market, but its design labelled "user" treats 30% of users
+    changed = small_market(design=[{"kind": "user", "share": 0.3, "label": "user"}])
+    run_study(changed, reps=2, seed=3, workers=1, out=root / "changed")
     return root
 
 
 def test_a_study_of_another_scenario_is_refused(capsys, folder, studies):
     message = _refused(capsys, ["analyze", str(folder), "--study", str(studies / "other")])
     assert "--study must be a study of the assignment's scenario 'small_market'" in message
+
+
+def test_a_study_whose_design_has_other_keys_is_refused(capsys, folder, studies):
+    message = _refused(capsys, ["analyze", str(folder), "--study", str(studies / "changed")])
+    assert "--study must be a study holding the design 'user' with the same keys" in message
 
 
 def test_a_study_of_the_same_scenario_gives_context(capsys, folder, studies):
