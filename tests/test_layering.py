@@ -29,6 +29,9 @@ ALLOWED = {
     "sweep": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study", "sweep"},
     "plan": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study", "plan"},
     "report": BASE | {"statistics", "study", "sweep", "plan", "report"},
+    # the real experiment: a design's draw and analysis, a study's world and metrics
+    "experiment": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics",
+                          "study", "experiment"},
 }
 
 
