@@ -91,7 +91,8 @@ def test_prefixes_agree_with_separate_studies_within_monte_carlo_error(days_shor
 
 def _row(label, days, *, power, trusted, mde=0.1, recommendable=True, chosen=False):
     return {"label": label, "kind": "cluster", "days": days, "power": power, "power_se": 0.03,
-            "mde": mde, "rmse": mde, "chosen": chosen, "mde_relative": mde / 2, "gte": 0.2, "control_mean": 2.0,
+            "mde": mde, "rmse": mde, "chosen": chosen, "mde_relative": mde / 2, "gte": 0.2,
+            "control_mean": 2.0,
             "trusted": trusted, "why_not_trusted": "" if trusted else "has bias +0.1",
             "recommendable": recommendable, "is_user_level": False}
 

@@ -146,9 +146,7 @@ def plot_power_by_units(rows: list[dict], *, power: float, ax=None):
                     markerfacecolor=colour if row["trusted"] else "white", markeredgewidth=1.5,
                     label=name)
     ax.axhline(power, color="0.3", linestyle="--", linewidth=1.1, label=f"target {power:.0%}")
-    from matplotlib.ticker import PercentFormatter
-
-    from matplotlib.ticker import ScalarFormatter
+    from matplotlib.ticker import PercentFormatter, ScalarFormatter
 
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(ScalarFormatter())
