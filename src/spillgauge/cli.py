@@ -207,6 +207,9 @@ def _cmd_plan(args) -> int:
     from spillgauge.plan.figures import save_plan_figures
     from spillgauge.report.plan_page import render_plan_html
 
+    if args.scheduler:
+        raise ScenarioError("--scheduler", "left out: plan runs on local processes (--workers)",
+                            args.scheduler)
     scenario = _load(args.scenario)
     out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-plan"
     bar = _ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json)

@@ -145,6 +145,8 @@ def test_cli_plan_writes_its_files_and_json(tmp_path, capsys):
     assert {"coverage", "trusted"} <= set(header)
     assert main(["plan", str(path), "--days", "9", "--out", str(out)]) == 2
     assert "--days must be days in [1, calendar.days=7]; got 9" in capsys.readouterr().err
+    assert main(["plan", str(path), "--scheduler", "tcp://x:1", "--out", str(out)]) == 2
+    assert "--scheduler must be left out" in capsys.readouterr().err
 
 
 def test_variant_sentence_names_the_rule_choice_and_the_trade_off():
