@@ -121,7 +121,7 @@ def to_networkx(adjacency: sparse.csr_array):
     return graph
 
 
-LEIDEN_ITERATIONS = 2
+LEIDEN_ITERATIONS = 4
 """Leiden iterations per community detection (see ``docs/performance.md`` for the evidence)."""
 
 
