@@ -69,7 +69,7 @@ def _child(method: str, users: int) -> None:
     import igraph
     import numpy as np
 
-    from spillgauge.model.graph import detect_communities, pool_block_adjacency, to_networkx
+    from spillgauge.market.graph import detect_communities, pool_block_adjacency, to_networkx
 
     rng = np.random.default_rng(1)
     pools = rng.integers(0, max(users // USERS_PER_POOL, 1), size=users)
@@ -86,7 +86,7 @@ def _child(method: str, users: int) -> None:
             labels[list(members)] = label
     wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
     upper = adjacency.nnz // 2
-    from spillgauge.model.graph import to_igraph
+    from spillgauge.market.graph import to_igraph
 
     graph = to_igraph(adjacency)
     modularity = graph.modularity(labels.tolist())

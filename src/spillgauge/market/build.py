@@ -14,7 +14,7 @@ import numpy as np
 from scipy import sparse
 
 from spillgauge.errors import ScenarioError
-from spillgauge.model.graph import (
+from spillgauge.market.graph import (
     adjacency_from_edges,
     closed_neighbourhood_units,
     community_algorithm,
@@ -22,7 +22,7 @@ from spillgauge.model.graph import (
     pool_block_adjacency,
     small_world_adjacency,
 )
-from spillgauge.model.population import Population, build_population, read_csv_columns
+from spillgauge.market.population import Population, build_population, read_csv_columns
 from spillgauge.scenario import Scenario
 from spillgauge.scenario.config import CLUSTER_SOURCES
 from spillgauge.seeding import MARKET, stream
@@ -173,7 +173,7 @@ def _cached_communities(adjacency: sparse.csr_array, *, resolution: float, seed:
     """Leiden communities, kept on disk keyed by the graph, resolution, seed and method.
 
     The random numbers come from the study seed's market stream. The key holds
-    :func:`~spillgauge.model.graph.community_algorithm` (method, iterations,
+    :func:`~spillgauge.market.graph.community_algorithm` (method, iterations,
     igraph version), so communities found another way (an older cache made by
     Louvain, another igraph) are never reused. The file also records its key and
     a digest of its labels; an entry that cannot be read, does not match its key

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import sparse
 
-from spillgauge.model.graph import (
+from spillgauge.market.graph import (
     adjacency_from_edges,
     detect_communities,
     pool_block_adjacency,
