@@ -28,6 +28,9 @@ ALLOWED = {
     "study": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study"},
     "sweep": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study", "sweep"},
     "report": BASE | {"statistics", "study", "sweep", "report"},
+    # the real experiment: a design's draw and analysis, a study's world and metrics
+    "experiment": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics",
+                          "study", "experiment"},
 }
 
 

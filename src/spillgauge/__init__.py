@@ -34,6 +34,12 @@ _EXPORTS = {
     "parse_vary": "spillgauge.sweep.sweep",
     "SweepResult": "spillgauge.sweep.sweep",
     "simulate_worlds": "spillgauge.worlds.engine",
+    "assign_design": "spillgauge.experiment.assignment",
+    "simulate_experiment": "spillgauge.experiment.simulate",
+    "analyze_experiment": "spillgauge.experiment.analyze",
+    "Assignment": "spillgauge.experiment.assignment",
+    "SimulatedExperiment": "spillgauge.experiment.simulate",
+    "ExperimentAnalysis": "spillgauge.experiment.analyze",
 }
 
 __all__ = ["__version__", *sorted(_EXPORTS)]
