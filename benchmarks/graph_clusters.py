@@ -137,14 +137,15 @@ def main() -> None:
                                               str(users)]))
         for method in methods:
             r = rows[method]
-            print(f"{users:>9} {method:<8} {_median(r, 'wall_s'):>8.2f} {_median(r, 'cpu_s'):>8.2f} "
+            wall, cpu = _median(r, "wall_s"), _median(r, "cpu_s")
+            print(f"{users:>9} {method:<8} {wall:>8.2f} {cpu:>8.2f} "
                   f"{_median(r, 'maxrss_mib'):>9.0f} {_median(r, 'communities'):>11.0f} "
                   f"{_median(r, 'modularity'):>10.4f} {_median(r, 'ari'):>6.3f}", flush=True)
         if "louvain" in rows:
+            louvain, leiden = rows["louvain"], rows["leiden"]
             print(f"{'':>9} ratio louvain / leiden, wall: "
-                  f"{_median(rows['louvain'], 'wall_s') / _median(rows['leiden'], 'wall_s'):.1f}; "
-                  f"cpu: {_median(rows['louvain'], 'cpu_s') / _median(rows['leiden'], 'cpu_s'):.1f}",
-                  flush=True)
+                  f"{_median(louvain, 'wall_s') / _median(leiden, 'wall_s'):.1f}; "
+                  f"cpu: {_median(louvain, 'cpu_s') / _median(leiden, 'cpu_s'):.1f}", flush=True)
         if users >= 1_000_000:
             print(f"{'':>9} target: graph clusters of {users:,} users under 60 s: "
                   f"{_median(rows['leiden'], 'wall_s'):.1f} s wall", flush=True)

@@ -135,10 +135,10 @@ def test_labels_are_deterministic_canonical_and_ignore_global_random_state():
     graph = nx.planted_partition_graph(8, 40, 0.25, 0.02, seed=10)
     adjacency = _adjacency_of(graph)
     random.seed(1)
-    np.random.seed(1)  # global state that must not matter
+    np.random.seed(1)  # noqa: NPY002 (global state that must not matter)
     first = detect_communities(adjacency, rng=np.random.default_rng(11))
     random.seed(2)
-    np.random.seed(2)
+    np.random.seed(2)  # noqa: NPY002
     again = detect_communities(adjacency, rng=np.random.default_rng(11))
     np.testing.assert_array_equal(first, again)
     # Numbered 0..k-1 by each community's smallest user.
