@@ -49,7 +49,7 @@ def new_scenario_text(name: str) -> str:
     ScenarioError
         When the name has characters other than letters, digits, '-', '_' and '.'.
     """
-    if not name or not all(c.isalnum() or c in "-_." for c in name):
-        raise ScenarioError("name", "letters, digits, '-', '_' or '.'", name)
+    if not name.strip(".") or not all(c.isalnum() or c in "-_." for c in name):
+        raise ScenarioError("name", "letters, digits, '-', '_' or '.', not only dots", name)
     template = (scenarios_dir() / "_template.toml.txt").read_text(encoding="utf-8")
     return template.replace("{name}", name)

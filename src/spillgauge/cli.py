@@ -3,15 +3,34 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
 
-from spillgauge.errors import ResultsError, ScenarioError, SpillgaugeError
+from spillgauge.errors import ScenarioError, SpillgaugeError
 
 __all__ = ["main", "build_parser"]
 
 _TICK = 0.2  # seconds between progress-bar redraws
+_SEED_LIMIT = 2**63  # study.seed's range, [0, 2**63)
+
+
+def _whole_number(minimum: int, maximum: int | None = None, what: str = ""):
+    """Return an argparse type: a whole number in [minimum, maximum], refused by name."""
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be a whole number; got {text[:40]!r}") \
+                from None
+        if value < minimum or (maximum is not None and value > maximum):
+            allowed = what or (f">= {minimum}" if maximum is None else
+                               f"in [{minimum}, {maximum}]")
+            raise argparse.ArgumentTypeError(f"must be {allowed}; got {value}")
+        return value
+    parse.__name__ = "int"
+    return parse
 
 
 class _Parser(argparse.ArgumentParser):
@@ -61,10 +80,12 @@ def _load(path: str):
 
 def _cmd_check(args) -> int:
     from spillgauge.study.market_summary import summarise_market
+    from spillgauge.study.resources import check_memory
     from spillgauge.model.market import build_market
     from spillgauge.report.text import market_text
 
     scenario = _load(args.scenario)
+    check_memory(scenario, market_only=True)
     market = build_market(scenario, args.seed)
     print(market_text(scenario, summarise_market(market)))
     return 0
@@ -100,27 +121,30 @@ def _cmd_run(args) -> int:
         study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                           scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
     except KeyboardInterrupt:
-        sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
-                         "run the same command with --resume to continue\n")
-        return 130
+        return _interrupted(out)
     written = write_report(study, out)
     print(study_text(study))
     print(f"\nresults: {out}/ ({', '.join(written)})")
     return 0
 
 
+_REPS = _whole_number(1, 1_000_000, "a whole number in [1, 1000000]")
+_SEED = _whole_number(0, _SEED_LIMIT - 1, "a whole number in [0, 2**63)")
+_WORKERS = _whole_number(1, 1024, "a whole number of processes in [1, 1024]")
+
+
 def _add_common(p: argparse.ArgumentParser, *, reps: bool = True) -> None:
     p.add_argument("scenario", help="a scenario TOML file, or the name of a bundled scenario "
                    "(see `spillgauge list`)")
     if reps:
-        p.add_argument("--reps", type=int, metavar="N",
+        p.add_argument("--reps", type=_REPS, metavar="N",
                        help="replications (default: the scenario's study.reps)")
-    p.add_argument("--seed", type=int, metavar="S",
+    p.add_argument("--seed", type=_SEED, metavar="S",
                    help="study seed (default: the scenario's study.seed)")
 
 
 def _add_compute(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--workers", type=int, metavar="N", default=None,
+    p.add_argument("--workers", type=_WORKERS, metavar="N", default=None,
                    help="local processes for the replications (default: every core)")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run replications on this Dask scheduler, e.g. tcp://10.0.0.5:8786 "
@@ -154,10 +178,18 @@ def _cmd_new(args) -> int:
 
     name = Path(args.name).stem
     path = Path(args.name if args.name.endswith(".toml") else f"{args.name}.toml")
+    text = new_scenario_text(name)
+    if not path.parent.is_dir():
+        raise ScenarioError("NAME", f"a file in an existing folder (no folder {str(path.parent)!r})",
+                            args.name)
     if path.exists() and not args.force:
-        raise ScenarioError("new", "a file that does not exist yet (use --force to overwrite)",
+        raise ScenarioError("NAME", "a file that does not exist yet (use --force to overwrite)",
                             str(path))
-    path.write_text(new_scenario_text(name), encoding="utf-8")
+    try:
+        path.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise ScenarioError("NAME", f"a file that can be written ({exc.strerror})",
+                            str(path)) from None
     print(f"wrote {path}: edit it, then `spillgauge check {path}` and `spillgauge run {path}`")
     return 0
 
@@ -180,9 +212,7 @@ def _cmd_sweep(args) -> int:
                           workers=args.workers, scheduler=args.scheduler, out=out,
                           resume=args.resume, progress=bar)
     except KeyboardInterrupt:
-        sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
-                         "run the same command with --resume to continue\n")
-        return 130
+        return _interrupted(out)
     written = [p.name for p in write_sweep(sweep, out)]
     figures = save_sweep_figures(sweep, out)
     write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
@@ -268,8 +298,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="run the default scenario end to end",
                        description="Run the bundled default scenario (tight_pantry) and write "
                        "its results and report to results/tight_pantry.")
-    p.add_argument("--reps", type=int, metavar="N", help="replications (default 200)")
-    p.add_argument("--seed", type=int, metavar="S", help="study seed")
+    p.add_argument("--reps", type=_REPS, metavar="N", help="replications (default 200)")
+    p.add_argument("--seed", type=_SEED, metavar="S", help="study seed")
     p.add_argument("--out", metavar="DIR", help="results folder")
     _add_compute(p)
     p.set_defaults(func=_cmd_demo)
@@ -287,19 +317,49 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the ``spillgauge`` command; return its exit code."""
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    """Run the ``spillgauge`` command; return its exit code.
+
+    Every failure is one line on stderr: a bad input exits 2, an interrupt 130
+    (finished replications stay saved), anything unexpected 1 with the error's
+    type (``SPILLGAUGE_DEBUG=1`` shows the traceback).
+    """
     try:
-        code = args.func(args)
-    except ScenarioError as exc:
-        sys.stderr.write(f"spillgauge: error: {exc}\n")
-        return 2
-    except (ResultsError, SpillgaugeError) as exc:
-        sys.stderr.write(f"spillgauge: error: {exc}\n")
-        return 2
+        args = build_parser().parse_args(argv)
+        return args.func(args)
+    except SpillgaugeError as exc:
+        return _fail(str(exc), 2)
+    except KeyboardInterrupt:
+        return _interrupted(None)
     except BrokenPipeError:
         return 0
+    except MemoryError:
+        return _fail("out of memory; use fewer --workers, fewer users or a shorter horizon", 2)
+    except OSError as exc:
+        where = f": {exc.filename}" if exc.filename else ""
+        return _fail(f"{exc.strerror or exc.__class__.__name__}{where}", 2)
+    except Exception as exc:  # noqa: BLE001 - a user sees one line, never a traceback
+        if os.environ.get("SPILLGAUGE_DEBUG"):
+            raise
+        return _fail(f"internal error ({exc.__class__.__name__}: {str(exc)[:200]}); please "
+                     "report it, with the command (SPILLGAUGE_DEBUG=1 shows the traceback)", 1)
+
+
+def _interrupted(out: Path | None) -> int:
+    """Report Ctrl-C in one line (after a progress bar, on its own line); return 130."""
+    saved = (f"; finished replications are saved in {out}/: run the same command with "
+             "--resume to continue") if out is not None and out.is_dir() else ""
+    try:
+        sys.stderr.write(("\n" if sys.stderr.isatty() else "") + f"spillgauge: interrupted{saved}\n")
+    except (OSError, ValueError):
+        pass
+    return 130
+
+
+def _fail(message: str, code: int) -> int:
+    try:
+        sys.stderr.write(f"spillgauge: error: {message}\n")
+    except (OSError, ValueError):
+        pass
     return code
 
 

@@ -177,7 +177,7 @@ class Study:
     alpha: float = 0.05
 
     def __post_init__(self) -> None:
-        _check(self.reps >= 1, "study.reps", "an int >= 1", self.reps)
+        _check(1 <= self.reps <= 1_000_000, "study.reps", "an int in [1, 1000000]", self.reps)
         _check(0 <= self.seed < 2**63, "study.seed", "an int in [0, 2**63)", self.seed)
         _check(0 < self.alpha < 1, "study.alpha", "in (0, 1)", self.alpha)
 
@@ -244,8 +244,9 @@ class Scenario:
     def __post_init__(self) -> None:
         _check(isinstance(self.name, str) and self.name.strip() != "", "name",
                "a non-empty string", self.name)
-        _check(all(c.isalnum() or c in "-_." for c in self.name), "name",
-               "letters, digits, '-', '_' or '.' (it names the results folder)", self.name)
+        _check(all(c.isalnum() or c in "-_." for c in self.name) and self.name.strip(".") != "",
+               "name", "letters, digits, '-', '_' or '.', not only dots (it names the results "
+               "folder)", self.name)
         tick = self.calendar.tick_hours
         for key, hours in (("pools.restock_every_hours", self.pools.restock_every_hours),
                            ("pools.lead_time_hours", self.pools.lead_time_hours)):
