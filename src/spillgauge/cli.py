@@ -115,7 +115,7 @@ def _cmd_run(args) -> int:
     from spillgauge.report.text import study_text
 
     scenario = _load(args.scenario)
-    out = Path(args.out) if args.out else Path("results") / scenario.name
+    out = _out_folder(args.out, Path("results") / scenario.name)
     bar = _ProgressBar(scenario.name, enabled=not args.quiet)
     try:
         study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
@@ -131,6 +131,22 @@ def _cmd_run(args) -> int:
 _REPS = _whole_number(1, 1_000_000, "a whole number in [1, 1000000]")
 _SEED = _whole_number(0, _SEED_LIMIT - 1, "a whole number in [0, 2**63)")
 _WORKERS = _whole_number(1, 1024, "a whole number of processes in [1, 1024]")
+
+
+def _out_folder(given: str | None, default: Path) -> Path:
+    """Return the results folder, refusing by name one that cannot be a writable folder."""
+    out = Path(given) if given else default
+    option = "--out" if given else "the results folder"
+    if out.exists() and not out.is_dir():
+        raise ScenarioError(option, "a folder (this is a file)", str(out))
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ScenarioError(option, f"a folder that can be created ({exc.strerror})",
+                            str(out)) from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise ScenarioError(option, "a folder you can write to", str(out))
+    return out
 
 
 def _add_common(p: argparse.ArgumentParser, *, reps: bool = True) -> None:
@@ -205,7 +221,7 @@ def _cmd_sweep(args) -> int:
         raise ScenarioError("--vary", "given once (curves) or twice (a grid)", len(axes))
     if len({a.key for a in axes}) != len(axes):
         raise ScenarioError("--vary", "two different keys", " and ".join(a.key for a in axes))
-    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-sweep"
+    out = _out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
     bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet)
     try:
         sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,

@@ -8,7 +8,6 @@ reads them from TOML.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 from spillgauge.errors import ScenarioError
@@ -45,7 +44,7 @@ class Calendar:
     daily_shock_autocorrelation: float = 0.5
 
     def __post_init__(self) -> None:
-        _check(self.days >= 1, "calendar.days", "an int >= 1", self.days)
+        _check(1 <= self.days <= 36_500, "calendar.days", "an int in [1, 36500]", self.days)
         _check(self.tick_hours >= 1 and 24 % self.tick_hours == 0, "calendar.tick_hours",
                "an int >= 1 that divides 24 (1, 2, 3, 4, 6, 8, 12 or 24)", self.tick_hours)
         _check(0.0 <= self.diurnal_amplitude < 1.0, "calendar.diurnal_amplitude",
@@ -78,12 +77,13 @@ class Users:
     file: str | None = None
 
     def __post_init__(self) -> None:
-        _check(self.count >= 1, "users.count", "an int >= 1", self.count)
-        _check(self.orders_per_week > 0 and math.isfinite(self.orders_per_week),
-               "users.orders_per_week", "a finite number > 0", self.orders_per_week)
-        _check(self.rate_shape > 0 and math.isfinite(self.rate_shape), "users.rate_shape",
-               "a finite number > 0", self.rate_shape)
-        _check(self.history_days >= 0, "users.history_days", "an int >= 0", self.history_days)
+        _check(1 <= self.count <= 10**10, "users.count", "an int in [1, 1e10]", self.count)
+        _check(0 < self.orders_per_week <= 10_000, "users.orders_per_week", "in (0, 10000]",
+               self.orders_per_week)
+        _check(0.001 <= self.rate_shape <= 1e6, "users.rate_shape", "in [0.001, 1e6]",
+               self.rate_shape)
+        _check(0 <= self.history_days <= 36_500, "users.history_days", "an int in [0, 36500]",
+               self.history_days)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -101,12 +101,12 @@ class Pools:
 
     def __post_init__(self) -> None:
         _check(self.count >= 1, "pools.count", "an int >= 1", self.count)
-        _check(self.restock_every_hours >= 1, "pools.restock_every_hours", "an int >= 1",
-               self.restock_every_hours)
+        _check(1 <= self.restock_every_hours <= 876_000, "pools.restock_every_hours",
+               "an int in [1, 876000]", self.restock_every_hours)
         _check(0 <= self.lead_time_hours < self.restock_every_hours, "pools.lead_time_hours",
                f"in [0, restock_every_hours={self.restock_every_hours})", self.lead_time_hours)
-        _check(self.stock_cover > 0 and math.isfinite(self.stock_cover), "pools.stock_cover",
-               "a finite number > 0", self.stock_cover)
+        _check(0 < self.stock_cover <= 1000, "pools.stock_cover", "in (0, 1000]",
+               self.stock_cover)
         _check(0 <= self.demand_spread <= 3, "pools.demand_spread", "in [0, 3]",
                self.demand_spread)
         _check(self.on_stockout in _STOCKOUT_RULES, "pools.on_stockout",
