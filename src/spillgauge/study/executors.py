@@ -77,8 +77,9 @@ def run_replications(scenario: Scenario, seed: int, todo: list[int], *, workers:
     pool.shutdown()
 
 
-def _connect(address: str, timeout_s: float = _CONNECT_TIMEOUT_S):
+def _connect(address: str):
     """Return a Dask client connected to ``address``, or a ScenarioError naming it."""
+    timeout_s = _CONNECT_TIMEOUT_S
     try:
         from dask.distributed import Client
     except ImportError:
@@ -95,9 +96,9 @@ def _connect(address: str, timeout_s: float = _CONNECT_TIMEOUT_S):
 
 def _run_on_dask(address: str, scenario: Scenario, seed: int, todo: list[int],
                  finished: Callable[[ReplicationResult], None], designs: tuple | None) -> None:
-    from dask.distributed import as_completed as dask_completed
-
     with _connect(address) as client:
+        from dask.distributed import as_completed as dask_completed
+
         futures = [client.submit(_run_task, scenario, seed, r, designs, pure=False) for r in todo]
         for future in dask_completed(futures):
             finished(future.result())
