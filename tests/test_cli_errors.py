@@ -162,3 +162,27 @@ def test_ctrl_c_is_one_line_and_keeps_finished_replications(tmp_path, workers):
     assert "--resume" in err
     saved = [json.loads(line) for line in (out / "replications.jsonl").read_text().splitlines()]
     assert len(saved) >= 1
+
+
+@pytest.mark.parametrize("line", ['[1, 2]', '{"a": 1}', '"x"', '{"replication": -1}', 'null',
+                                  '{"replication": 0, "truth": {}, "estimates": {"other": {}}}'])
+def test_tampered_log_is_refused_by_line(tiny, tmp_path, capsys, line):
+    out = tmp_path / "out"
+    assert _main(["run", tiny, "--reps", "2", "--workers", "1", "--out", out], capsys)[0] == 0
+    with open(out / "replications.jsonl", "a") as log:
+        log.write(line + "\n")
+    for args in (["report", out], ["run", tiny, "--reps", "3", "--workers", "1", "--out", out,
+                                   "--resume"]):
+        code, err = _main(args, capsys)
+        assert code == 2 and "replications.jsonl line 3 is not a replication record" in err
+
+
+@pytest.mark.parametrize("text", ["[1]", '{"settings": 3, "seed": 1}', "{}", "\u00ff garbage"])
+def test_tampered_study_file_is_refused(tiny, tmp_path, capsys, text):
+    out = tmp_path / "out"
+    assert _main(["run", tiny, "--reps", "1", "--workers", "1", "--out", out], capsys)[0] == 0
+    (out / "study.json").write_text(text)
+    for args in (["report", out], ["run", tiny, "--reps", "2", "--workers", "1", "--out", out,
+                                   "--resume"]):
+        code, err = _main(args, capsys)
+        assert code == 2 and "study" in err and len(err.splitlines()) == 1

@@ -33,9 +33,9 @@ def find_scenario(name_or_path: str | Path) -> Path:
     path = Path(name_or_path)
     if path.is_file():
         return path
-    bundled = scenarios_dir() / f"{path.name}.toml"
-    if path.suffix == "" and bundled.is_file():
-        return bundled
+    bundled = scenarios_dir() / f"{path.stem}.toml"
+    if path.suffix in ("", ".toml") and path.parent == Path(".") and bundled.is_file():
+        return bundled  # a bundled name, with or without .toml
     names = ", ".join(p.stem for p in bundled_scenarios())
     raise ScenarioError("scenario", f"an existing file or a bundled scenario ({names})",
                         str(name_or_path))

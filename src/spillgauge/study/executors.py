@@ -89,7 +89,7 @@ def _connect(address: str):
         return Client(address, timeout=timeout_s)
     except (OSError, ValueError, TypeError) as exc:  # refused, timed out, or not an address
         reason = (f"could not connect within {timeout_s:g} s" if isinstance(exc, OSError) else
-                  "not an address")
+                  f"not an address: {str(exc)[:80]}")
         raise ScenarioError("--scheduler", f"the address of a running Dask scheduler, e.g. "
                             f"tcp://127.0.0.1:8786 ({reason})", address) from None
 

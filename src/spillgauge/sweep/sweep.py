@@ -48,6 +48,7 @@ __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys",
            "write_sweep"]
 
 _SECTIONS = SECTIONS
+_MAX_POINTS = 100  # values along one key: more is a typo, not a study
 _NOT_SWEPT = {"study.reps", "study.seed"}  # arguments of the sweep itself
 # the numeric keys the design kinds declare, by name
 _DESIGN_FIELDS = {key.name: key.type for kind in KINDS.values() for key in kind.keys
@@ -153,11 +154,13 @@ def parse_vary(text: str) -> SweepAxis:
             raise ScenarioError("--vary", _SYNTAX, text)
         start, stop = _number(parts[0], text), _number(parts[1], text)
         count = _number(parts[2], text)
-        if count != int(count) or count < 1:
-            raise ScenarioError("--vary", _SYNTAX + " with N an int >= 1", text)
+        if count != int(count) or not 1 <= count <= _MAX_POINTS:
+            raise ScenarioError("--vary", _SYNTAX + f" with N an int in [1, {_MAX_POINTS}]", text)
         raw = [start] if count == 1 else np.linspace(start, stop, int(count)).tolist()
     else:
         raw = [_number(part, text) for part in spec.split(",")]
+        if len(raw) > _MAX_POINTS:
+            raise ScenarioError("--vary", f"at most {_MAX_POINTS} values", text)
     if kind is int:
         values = tuple(int(math.floor(v + 0.5)) for v in raw)
     else:
