@@ -181,11 +181,13 @@ def plot_bias_sd(study, ax=None):
     -------
     matplotlib.axes.Axes
         One labelled point per design with bars of +-2 Monte Carlo SE; filled when
-        the design is trusted, hollow when not, ringed when recommended.
+        the design is trusted, hollow when not, ringed when recommended; a test of
+        interference (a diagnostic) is a grey diamond.
     """
     ax = _axes(ax)
     labels = _labels(study)
     trusted = set(study.recommendation.trusted)
+    diagnostics = {label for label, d in study.designs.items() if not d.is_recommendable}
     points = []
     for i, label in enumerate(labels):
         m = study.metrics[label]
@@ -211,8 +213,12 @@ def plot_bias_sd(study, ax=None):
         yerr = 2 * m.sd_se if math.isfinite(m.sd_se) else None
         ax.errorbar(m.bias, m.sd, xerr=xerr, yerr=yerr, color=colour, lw=1, capsize=3,
                     zorder=3)
-        ax.scatter([m.bias], [m.sd], s=80, zorder=4, linewidths=2, edgecolors=colour,
-                   color=colour if label in trusted else "white")
+        if label in diagnostics:  # a test of interference: neither trusted nor not
+            ax.scatter([m.bias], [m.sd], s=80, zorder=4, marker="D", linewidths=2,
+                       edgecolors=colour, color="#dddddd")
+        else:
+            ax.scatter([m.bias], [m.sd], s=80, zorder=4, linewidths=2, edgecolors=colour,
+                       color=colour if label in trusted else "white")
         if label == study.recommendation.label:
             ax.scatter([m.bias], [m.sd], s=320, zorder=2, facecolors="none",
                        edgecolors=_TRUTH, linewidths=1.5)
@@ -224,12 +230,15 @@ def plot_bias_sd(study, ax=None):
     ax.scatter([], [], s=60, color="#777777", label="trusted")
     ax.scatter([], [], s=60, color="white", edgecolors="#777777", linewidths=2,
                label="not trusted")
+    if any(label in diagnostics for _, label, _ in points):
+        ax.scatter([], [], s=60, marker="D", color="#dddddd", edgecolors="#777777",
+                   linewidths=2, label="diagnostic")
     ax.scatter([], [], s=200, facecolors="none", edgecolors=_TRUTH, label="recommended")
     ax.set_xlabel(f"bias: mean of estimate - GTE ({_UNITS})")
     ax.set_ylabel("SD of the estimates (same units)")
     ax.set_title("Bias against noise: the nearer the origin, the more accurate "
                  "(bars: +-2 Monte Carlo SE)", fontsize=11)
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=5, fontsize=9,
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=6, fontsize=9,
               frameon=False)
     _place_labels(ax, [((m.bias, m.sd), label, _colour(i), label == study.recommendation.label)
                        for i, label, m in points])

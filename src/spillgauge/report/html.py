@@ -13,11 +13,12 @@ import html
 from pathlib import Path
 
 from spillgauge.formatting import format_quantity
+from spillgauge.scenario.config import settings_in_use
 
 __all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "render_html"]
 
-SECTION_IDS = ("scenario", "market", "truth", "designs", "recommendation", "figures",
-               "caution")
+SECTION_IDS = ("recommendation", "designs", "truth", "figures", "market", "scenario",
+               "caution")  # in page order: the answer first, the settings last
 CAUTION = ("Results follow from the model's assumptions; a simulated recommendation is an "
            "input to, not a substitute for, the team's own review of an experiment that "
            "touches real users.")
@@ -35,7 +36,8 @@ CAPTIONS = {
         "join points of equal \u221a(bias\u00b2 + SD\u00b2): the inner the arc, the more "
         "accurate the design. The table's RMSE is measured against each replication's own "
         "GTE, so it can sit below the arc when the estimates move with the GTE. Filled "
-        "points are trusted, hollow ones are not; the ring marks the recommendation."),
+        "points are trusted, hollow ones are not; the ring marks the recommendation. A grey "
+        "diamond is a test of interference: a diagnostic, never a unit to choose."),
     "stock": (
         "Stock and lost orders in the busiest sample pools of one replication, in the world "
         "where no one is treated, the world where everyone is, and one design's world. "
@@ -80,8 +82,13 @@ th{background:#f2f2f2}td.text,th.text{text-align:left}tbody tr:nth-child(even){b
 .trusted,.untrusted{font-weight:600;white-space:nowrap}.trusted{color:#005a8c}
 .untrusted{color:#b34700}
 tr.chosen td{background:#e6f1f8}.settings{display:flex;flex-wrap:wrap;gap:0 1.6rem}
-.verdict{font-size:1.15rem;font-weight:600}.box{border-left:4px solid #0072B2;
-background:#f4f8fb;padding:.6rem 1rem}.box.warn{border-color:#D55E00;background:#fcf3ee}
+.verdict{font-size:1.15rem;font-weight:600;margin:.2rem 0 .5rem}.box{border-left:6px solid #0072B2;
+background:#f4f8fb;padding:.6rem 1rem;border-radius:0 4px 4px 0}
+.box.ok{border-color:#009E73;background:#eef8f4}
+.box.warn{border:2px solid #D55E00;border-left-width:6px;background:#fdf0e8}
+.box.warn .verdict{color:#8f3300}.icon{font-size:1.3em;margin-right:.3rem}
+.diagnostic{color:#555;font-style:italic;white-space:nowrap}
+.lead{font-size:1.02rem}
 figure{margin:1.2rem 0 2rem}figure img{max-width:100%;height:auto;border:1px solid #e2e2e2}
 figcaption{color:#333;font-size:.92rem;margin-top:.4rem}
 #caution p{font-style:italic;background:#f7f7f7;padding:.6rem 1rem;border-radius:4px}
@@ -133,18 +140,19 @@ def _scenario(study, summary: dict) -> str:
     if study.scenario.description:
         parts.append(f"<p>{_e(' '.join(study.scenario.description.split()))}</p>")
     designs = settings.pop("design", [])
-    tables = [f"<div><h3>{_e(name)}</h3>{_pairs(list(table.items()))}</div>"
-              for name, table in settings.items() if isinstance(table, dict)]
+    tables = [f"<div><h3>{_e(name)}</h3>{_pairs(list(settings_in_use(name, table).items()))}"
+              "</div>" for name, table in settings.items() if isinstance(table, dict)]
     others = [(k, v) for k, v in settings.items()
               if not isinstance(v, dict) and k not in ("name", "description")]
     if others:
         tables.append(f"<div><h3>other</h3>{_pairs(others)}</div>")
     parts.append(f'<div class="settings">{"".join(tables)}</div>')
     if designs:
-        keys = list(dict.fromkeys(k for d in designs for k in d))
+        keys = list(dict.fromkeys(k for d in designs for k in d
+                                  if any(e.get(k) not in (None, "") for e in designs)))
         parts.append("<h3>designs</h3>" + _grid(
             keys, [[_e(_plain(d.get(k, ""))) for k in keys] for d in designs], text_columns=2))
-    return _section("scenario", "Scenario", "".join(parts))
+    return _section("scenario", "Scenario settings", "".join(parts))
 
 
 def _market(summary: dict) -> str:
@@ -189,8 +197,13 @@ def _designs(study, summary: dict) -> str:
     header = ["design (estimator)", "unit", *(c[1] for c in _COLUMNS), "trusted"]
     rows, classes = [], []
     for d in summary["designs"]:
-        mark = ('<span class="trusted">\u2713 trusted</span>' if d["label"] in trusted else
-                '<span class="untrusted">\u2717 not trusted</span>')
+        design = study.designs.get(d["label"])
+        if design is not None and not design.is_recommendable:
+            mark = '<span class="diagnostic">diagnostic</span>'  # a test, never a unit to choose
+        elif d["label"] in trusted:
+            mark = '<span class="trusted">\u2713 trusted</span>'
+        else:
+            mark = '<span class="untrusted">\u2717 not trusted</span>'
         label = (_e(d["label"]) + (" <strong>(recommended)</strong>" if d["label"] == chosen
                                    else "") + f'<br><span class="se">{_e(d["estimator"])}</span>')
         rows.append([label, _e(d["unit"]),
@@ -203,23 +216,37 @@ def _designs(study, summary: dict) -> str:
             "confidence interval covers the GTE nearly as often as promised and its bias is "
             "small against its noise. "
             "Type S is the share of significant estimates with the wrong sign, Type M their "
-            "mean exaggeration of the effect.</p>")
+            "mean exaggeration of the effect. A test of interference is a diagnostic: it "
+            "says whether units interfere, and is never a unit to randomize by.</p>")
     return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
 
 
 def _recommendation(study, summary: dict) -> str:
+    """The answer, first on the page: the verdict, its reason, the truth it was judged on."""
     rec = summary["recommendation"]
     if rec["label"] is None:
-        verdict = "No design can be trusted in this market."
-        box = "box warn"
+        verdict, is_warning = "No design can be trusted in this market.", True
     else:
         verdict = f"Recommended design: {rec['label']}."
-        box = "box" if rec["is_trustworthy"] else "box warn"
-    content = (f'<div class="{box}"><p class="verdict">{_e(verdict)}</p>'
-               f"<p>{_e(rec['reason'])}</p></div>")
+        is_warning = not rec["is_trustworthy"]
+    if is_warning:
+        opening = ('<div class="box warn" role="alert"><p class="verdict">'
+                   '<span class="icon" aria-hidden="true">\u26a0</span>Warning: ')
+    else:
+        opening = '<div class="box ok"><p class="verdict">'
+    t = summary["truth"]
+    se = t.get("gte_se")
+    gte = (f"True GTE {_e(format_quantity(t.get('gte')))} fulfilled orders per user over the "
+           "horizon" + (f" (Monte Carlo SE {_e(format_quantity(se))})" if se is not None else "")
+           + f", over {summary['reps']:,} replications.")
+    content = (f"{opening}{_e(verdict)}</p><p class=\"lead\">{_e(rec['reason'])}</p>"
+               f"<p>{gte}</p></div>")
     from spillgauge.report.text import interference_lines
 
-    content += "".join(f"<p>{_e(line.strip())}</p>" for line in interference_lines(study))
+    lines = [line.strip() for line in interference_lines(study)]
+    if lines:
+        content += ("<h3>Diagnostic: test of interference</h3>"
+                    + "".join(f"<p>{_e(line)}</p>" for line in lines))
     return _section("recommendation", "Recommendation", content)
 
 
@@ -235,15 +262,6 @@ def _figures(figures: dict) -> str:
     if not parts:
         parts.append("<p>No figures were drawn for this study.</p>")
     return _section("figures", "Figures", "".join(parts))
-
-
-def _glance(summary: dict) -> str:
-    rec = summary["recommendation"]
-    verdict = (f"Recommended: {rec['label']}" if rec["label"] is not None
-               else "No design can be trusted")
-    return (f'<p class="box">{_e(verdict)}; true GTE '
-            f"{_e(format_quantity(summary['truth'].get('gte')))} fulfilled orders per user. "
-            '<a href="#recommendation">Why</a></p>')
 
 
 def render_html(study, figures: dict) -> str:
@@ -276,13 +294,16 @@ def render_html(study, figures: dict) -> str:
     summary = study.summary()
     title = f"{summary['scenario']}: which randomization unit?"
     nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS)
-    body = "".join([_scenario(study, summary), _market(summary), _truth(summary),
-                    _designs(study, summary), _recommendation(study, summary), _figures(figures),
-                    _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
+    parts = {"recommendation": _recommendation(study, summary),
+             "designs": _designs(study, summary), "truth": _truth(summary),
+             "figures": _figures(figures), "market": _market(summary),
+             "scenario": _scenario(study, summary),
+             "caution": _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")}
+    body = "".join(parts[name] for name in SECTION_IDS)
     return ("<!DOCTYPE html>\n"
             '<html lang="en"><head><meta charset="utf-8">'
             '<meta name="viewport" content="width=device-width, initial-scale=1">'
             f"<title>{_e(title)}</title><style>{_STYLE}</style></head><body>"
             f"<header><h1>{_e(title)}</h1><p class=\"meta\">spillgauge study report: "
             f"{summary['reps']:,} replications, seed {_e(summary['seed'])}</p>"
-            f"{_glance(summary)}<nav>{nav}</nav></header><main>{body}</main></body></html>\n")
+            f"<nav>{nav}</nav></header><main>{body}</main></body></html>\n")

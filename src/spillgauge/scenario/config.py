@@ -14,6 +14,8 @@ from spillgauge.errors import ScenarioError
 from spillgauge.scenario.keys import check as _check
 
 __all__ = [
+    "GRAPH_MODEL_KEYS",
+    "settings_in_use",
     "Calendar",
     "Users",
     "Pools",
@@ -29,6 +31,25 @@ __all__ = [
 _STOCKOUT_RULES = ("lost", "substitute")
 CLUSTER_SOURCES = ("pools", "graph", "pools+graph")  # the clusterings a market offers
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
+# The [graph] keys each model reads (besides `model`); the others are ignored.
+GRAPH_MODEL_KEYS = {"none": (), "small_world": ("mean_degree", "rewire_share"),
+                    "pool_blocks": ("mean_degree", "within_pool_share"),
+                    "communities": ("mean_degree", "community_count", "within_community_share"),
+                    "edge_list": ("file",)}
+
+
+def settings_in_use(section: str, table: dict) -> dict:
+    """Return a section's settings without the keys its other choices make irrelevant.
+
+    >>> settings_in_use("graph", {"model": "none", "mean_degree": 10})
+    {'model': 'none'}
+    """
+    if section == "graph" and table.get("model") in GRAPH_MODEL_KEYS:
+        used = ("model", *GRAPH_MODEL_KEYS[table["model"]])
+        return {k: v for k, v in table.items() if k in used}
+    if section == "pools" and table.get("on_stockout") == "lost":
+        return {k: v for k, v in table.items() if k != "substitute_share"}
+    return {k: v for k, v in table.items() if v is not None}
 
 
 
