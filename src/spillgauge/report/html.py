@@ -15,7 +15,7 @@ from pathlib import Path
 from spillgauge.formatting import format_quantity
 from spillgauge.scenario.config import settings_in_use
 
-__all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "render_html"]
+__all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "STYLE", "render_html"]
 
 SECTION_IDS = ("recommendation", "designs", "truth", "figures", "market", "scenario",
                "caution")  # in page order: the answer first, the settings last
@@ -93,6 +93,9 @@ figure{margin:1.2rem 0 2rem}figure img{max-width:100%;height:auto;border:1px sol
 figcaption{color:#333;font-size:.92rem;margin-top:.4rem}
 #caution p{font-style:italic;background:#f7f7f7;padding:.6rem 1rem;border-radius:4px}
 """
+
+
+STYLE = _STYLE  # shared with the sweep's page
 
 
 def _e(value: object) -> str:

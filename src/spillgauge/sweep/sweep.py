@@ -306,9 +306,11 @@ class SweepResult:
         Columns: ``point``, the swept keys, ``label``, ``kind``, ``estimator``,
         ``unit``, every :class:`~spillgauge.statistics.metrics.DesignMetrics` field
         (``bias``, ``bias_se``, ``rmse``, ``coverage``, ...), ``gte``, ``gte_se``,
-        ``alpha``, ``recommended`` and ``trusted`` (from
+        ``alpha``, ``recommended``, ``is_diagnostic`` (a test of interference: never
+        trusted, never recommended) and ``trusted`` (from
         :func:`~spillgauge.statistics.trust.assess_trust`), and ``distrust``: which check
-        failed (``"no_estimates"``, ``"coverage"``, ``"bias"``; empty when trusted).
+        failed (``"no_estimates"``, ``"coverage"``, ``"bias"``; ``"diagnostic"`` for a
+        test of interference; empty when trusted).
         """
         import pandas as pd
 
@@ -318,12 +320,15 @@ class SweepResult:
             for spec in study.scenario.designs:
                 m = study.metrics[spec.label]
                 verdict = assess_trust(m, alpha=alpha)
+                is_diagnostic = not KINDS[spec.kind].is_recommendable  # judged, never trusted
                 rows.append({"point": index, **point, "label": spec.label, "kind": spec.kind,
                              "estimator": estimator_name(spec), "unit": describe_unit(spec),
                              **m.to_dict(), "gte": study.truth.gte, "gte_se": study.truth.gte_se,
                              "alpha": alpha,
                              "recommended": study.recommendation.label == spec.label,
-                             "trusted": verdict.is_trusted, "distrust": verdict.problem or ""})
+                             "is_diagnostic": is_diagnostic,
+                             "trusted": verdict.is_trusted and not is_diagnostic,
+                             "distrust": "diagnostic" if is_diagnostic else verdict.problem or ""})
         return pd.DataFrame(rows)
 
     def answer(self) -> str:
