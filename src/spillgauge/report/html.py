@@ -39,21 +39,24 @@ CAPTIONS = {
         "points are trusted, hollow ones are not; the ring marks the recommendation. A grey "
         "diamond is a test of interference: a diagnostic, never a unit to choose."),
     "stock": (
-        "Stock and lost orders in the busiest sample pools of one replication, in the world "
-        "where no one is treated, the world where everyone is, and one design's world. "
-        "Top: stock at the end of each tick over the first days; each jump is a restock, "
-        "each stretch at zero a stock-out. Bottom: lost orders so far over the horizon. "
-        "Where the design's world loses more orders than the all-control world, its "
-        "control users buy from shelves that treated users emptied (stock-out spillover), "
-        "which inflates a comparison of treated and control users."),
+        "Stock and lost orders in three worlds of one replication: the world where no one "
+        "is treated (grey), the world where everyone is (orange) and one design's world "
+        "(dashed blue). Left: the stock of one sample pool hour by hour over the first days; "
+        "each jump is a restock, each stretch at zero a stock-out. Right: lost orders so far "
+        "over the horizon, summed over the sample pools. Where the design's world loses more "
+        "orders than the all-control world, its control users buy from shelves that treated "
+        "users emptied (stock-out spillover), which inflates a comparison of treated and "
+        "control users."),
     "switchback": (
-        "The effect by hours since a switch, for each switchback design: treated minus "
-        "control fulfilled orders per user and tick, over blocks whose arm changed, "
-        "averaged over blocks and replications. Blocks start at the same clock hours, so "
-        "the daily demand rhythm shapes every line. On top of it, a slow rise in the first "
-        "hours is carryover from the previous arm (what a burn-in, the dotted line, leaves "
-        "out), and a fall late in the block is the treated units' stock running out first. "
-        "The dashed line is the GTE spread evenly over the horizon's ticks."),
+        "How long after a switch the effect settles, to choose a burn-in. Each line is one "
+        "switchback design: treated minus control fulfilled orders per 1,000 users per hour, "
+        "by hours since a switch (the start of a block whose arm changed), averaged over blocks and "
+        "replications; the band is \u00b12 Monte Carlo SE. The dashed line is the GTE's "
+        "level (the true effect spread evenly over the horizon). Blocks start at the same "
+        "clock hours, so the daily demand rhythm shapes every line. When the scenario has "
+        "carryover, the grey span marks the hours until it fades to 10%: a burn-in (dotted "
+        "line) that reaches past it drops the hours the previous arm still blurs; a fall late "
+        "in a block is the treated units' stock running out first."),
 }
 _TITLES = {"estimates": "Drift: estimates against the true effect",
            "bias_sd": "Bias against SD", "stock": "Stock and lost orders in three worlds",
