@@ -186,3 +186,14 @@ def test_tampered_study_file_is_refused(tiny, tmp_path, capsys, text):
                                    "--resume"]):
         code, err = _main(args, capsys)
         assert code == 2 and "study" in err and len(err.splitlines()) == 1
+
+
+def test_progress_is_forced_when_not_a_terminal(tiny, tmp_path):
+    # stderr is a pipe here: no bar unless --progress asks for it.
+    plain = subprocess.run([sys.executable, "-m", "spillgauge", "truth", str(tiny), "--reps", "3",
+                            "--workers", "1"], capture_output=True, text=True, cwd=tmp_path)
+    forced = subprocess.run([sys.executable, "-m", "spillgauge", "truth", str(tiny), "--reps",
+                             "3", "--workers", "1", "--progress"], capture_output=True, text=True,
+                            cwd=tmp_path)
+    assert plain.returncode == forced.returncode == 0
+    assert plain.stderr == "" and "3/3" in forced.stderr

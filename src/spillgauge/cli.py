@@ -41,34 +41,29 @@ class _Parser(argparse.ArgumentParser):
 
 
 class _ProgressBar:
-    """Replications done and time left, on stderr, only when it is a terminal."""
+    """Replications done and time left (tqdm) on stderr: on a terminal, or when forced."""
 
-    def __init__(self, label: str, *, enabled: bool) -> None:
+    def __init__(self, label: str, *, enabled: bool, forced: bool = False) -> None:
         self.label = label
-        self.enabled = enabled and sys.stderr.isatty()
-        self.start = time.monotonic()
-        self.first_done: int | None = None
-        self.last_draw = 0.0
+        self.enabled = forced or (enabled and sys.stderr.isatty())
+        self.bar = None
 
     def __call__(self, done: int, total: int) -> None:
         if not self.enabled:
             return
-        now = time.monotonic()
-        if self.first_done is None:
-            self.first_done, self.start = done, now
-        if done < total and now - self.last_draw < _TICK:
-            return
-        self.last_draw = now
-        width = 28
-        filled = int(width * done / max(total, 1))
-        run = done - self.first_done
-        left = (now - self.start) / run * (total - done) if run > 0 else float("nan")
-        eta = f"{left:5.0f} s left" if left == left else "  estimating"
-        sys.stderr.write(f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] "
-                         f"{done}/{total} replications, {eta}")
+        if self.bar is None:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, initial=done, desc=self.label, unit="rep",
+                            file=sys.stderr, mininterval=_TICK, dynamic_ncols=True)
+        self.bar.update(done - self.bar.n)
         if done >= total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
+            self.close()
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
 
 
 def _load(path: str):
@@ -96,7 +91,8 @@ def _cmd_truth(args) -> int:
     from spillgauge.report.text import truth_text
 
     scenario = _load(args.scenario)
-    bar = _ProgressBar("truth", enabled=not args.quiet and not args.json)
+    bar = _ProgressBar("truth", enabled=not args.quiet and not args.json,
+                       forced=args.progress)
     truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                       scheduler=args.scheduler, progress=bar)
     seed = scenario.study.seed if args.seed is None else args.seed
@@ -116,11 +112,12 @@ def _cmd_run(args) -> int:
 
     scenario = _load(args.scenario)
     out = _out_folder(args.out, Path("results") / scenario.name)
-    bar = _ProgressBar(scenario.name, enabled=not args.quiet)
+    bar = _ProgressBar(scenario.name, enabled=not args.quiet, forced=args.progress)
     try:
         study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                           scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
     except KeyboardInterrupt:
+        bar.close()
         return _interrupted(out)
     written = write_report(study, out)
     print(study_text(study))
@@ -165,7 +162,10 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run replications on this Dask scheduler, e.g. tcp://10.0.0.5:8786 "
                    "(needs the 'dask' extra)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    shown = p.add_mutually_exclusive_group()
+    shown.add_argument("--quiet", action="store_true", help="no progress bar")
+    shown.add_argument("--progress", action="store_true",
+                       help="show the progress bar even when stderr is not a terminal")
 
 
 def _cmd_report(args) -> int:
@@ -222,12 +222,14 @@ def _cmd_sweep(args) -> int:
     if len({a.key for a in axes}) != len(axes):
         raise ScenarioError("--vary", "two different keys", " and ".join(a.key for a in axes))
     out = _out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
-    bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet)
+    bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet,
+                       forced=args.progress)
     try:
         sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
                           workers=args.workers, scheduler=args.scheduler, out=out,
                           resume=args.resume, progress=bar)
     except KeyboardInterrupt:
+        bar.close()
         return _interrupted(out)
     written = [p.name for p in write_sweep(sweep, out)]
     figures = save_sweep_figures(sweep, out)

@@ -205,3 +205,14 @@ def test_report_of_a_loaded_study_matches_the_run(report_dir, page):
     rendered = render_html(loaded, {})
     assert _parse(rendered).text("designs") == _parse(page).text("designs")
     assert _parse(rendered).text("recommendation") == _parse(page).text("recommendation")
+
+
+def test_summary_markdown_ends_its_table_with_a_blank_line(report_dir):
+    # GitHub Flavored Markdown spec, "Tables (extension)": a table is broken at the first
+    # empty line; a non-blank line right after the rows would be read as another row.
+    out, _ = report_dir
+    lines = (out / "summary.md").read_text().splitlines()
+    rows = [i for i, line in enumerate(lines) if line.startswith("|")]
+    assert rows == list(range(rows[0], rows[-1] + 1))  # one block of rows
+    assert lines[rows[-1] + 1] == ""
+    assert lines[rows[0] - 1] == ""

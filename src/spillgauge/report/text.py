@@ -133,7 +133,8 @@ def study_markdown(study) -> str:
              f"**{truth['gte']:.4f}** fulfilled orders per user over the horizon.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
-    lines += [line.strip() for line in interference_lines(study)]
+    for line in interference_lines(study):  # a paragraph each, after a blank line ending the table
+        lines += ["", "Diagnostic, " + line.strip()]
     rec = summary["recommendation"]
     lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
               + rec["reason"], "",
