@@ -207,3 +207,10 @@ def test_importing_the_report_does_not_import_matplotlib():
 
 def test_module_exports_exist():
     assert all(hasattr(figures, name) for name in figures.__all__)
+
+
+def test_plot_stock_draws_on_given_axes(study):
+    fig = Figure()
+    pair = fig.subplots(1, 2)
+    assert plot_stock(study, ax=pair) is fig
+    assert all(len(ax.lines) == 3 for ax in pair)

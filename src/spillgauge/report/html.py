@@ -14,6 +14,7 @@ from pathlib import Path
 
 from spillgauge.formatting import format_quantity
 from spillgauge.scenario.config import settings_in_use
+from spillgauge.statistics.trust import few_replications_note
 
 __all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "STYLE", "render_html"]
 
@@ -247,6 +248,10 @@ def _recommendation(study, summary: dict) -> str:
            + f", over {summary['reps']:,} replications.")
     content = (f"{opening}{_e(verdict)}</p><p class=\"lead\">{_e(rec['reason'])}</p>"
                f"<p>{gte}</p></div>")
+    note = few_replications_note(summary["reps"], study.scenario.study.alpha)
+    if note:
+        content += f'<p class="box warn">{_e(note)}</p>'
+
     from spillgauge.report.text import interference_lines
 
     lines = [line.strip() for line in interference_lines(study)]

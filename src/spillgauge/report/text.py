@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from spillgauge.statistics.trust import few_replications_note
 from spillgauge.formatting import format_cell
 
 __all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows",
@@ -102,6 +103,9 @@ def study_text(study) -> str:
     rec = summary["recommendation"]
     lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
               rec["reason"]]
+    note = few_replications_note(summary["reps"], study.scenario.study.alpha)
+    if note:
+        lines += ["", "note: " + note]
     return "\n".join(lines)
 
 
@@ -138,6 +142,8 @@ def study_markdown(study) -> str:
     rec = summary["recommendation"]
     lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
               + rec["reason"], "",
+              *([f"_{note}_", ""] if (note := few_replications_note(
+                  summary["reps"], study.scenario.study.alpha)) else []),
               "_Results follow from the model's assumptions; a simulated recommendation is an "
               "input to, not a substitute for, the team's own review of an experiment that "
               "touches real users._"]

@@ -36,7 +36,7 @@ from spillgauge.sweep.answers import (
 )
 from spillgauge.study.compose import describe_unit, estimator_name
 from spillgauge.designs.registry import KINDS, make_design_spec
-from spillgauge.statistics.trust import assess_trust
+from spillgauge.statistics.trust import assess_trust, few_replications_note
 from spillgauge.files import dumps, write_atomic
 from spillgauge.study.result import StudyResult
 from spillgauge.study.run import run_study
@@ -341,8 +341,11 @@ class SweepResult:
         """
         rows = self.frame().to_dict("records")
         if len(self.axes) == 1:
-            return answer_one_axis(rows, self.axes[0].key)
-        return answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
+            text = answer_one_axis(rows, self.axes[0].key)
+        else:
+            text = answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
+        note = few_replications_note(self.reps, self.scenario.study.alpha)
+        return text + (f" {note}" if note else "")
 
 
 def _grid(scenario: Scenario, axes: list[SweepAxis]) -> tuple[list[dict], list[Scenario]]:
