@@ -73,10 +73,10 @@ def _load(path: str):
 
 
 def _cmd_check(args) -> int:
-    from spillgauge.study.market_summary import summarise_market
+    from spillgauge.market.build import build_market
     from spillgauge.study.resources import check_memory
-    from spillgauge.model.market import build_market
     from spillgauge.report.text import market_text
+    from spillgauge.study.market_summary import summarise_market
 
     scenario = _load(args.scenario)
     check_memory(scenario, market_only=True)
@@ -86,8 +86,8 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_truth(args) -> int:
-    from spillgauge.study.run import run_truth
     from spillgauge.report.text import truth_text
+    from spillgauge.study.run import run_truth
 
     scenario = _load(args.scenario)
     bar = _ProgressBar("truth", enabled=not args.quiet and not args.json,
@@ -105,9 +105,9 @@ def _cmd_truth(args) -> int:
 
 
 def _cmd_run(args) -> int:
-    from spillgauge.study.run import run_study
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
+    from spillgauge.study.run import run_study
 
     scenario = _load(args.scenario)
     out = _out_folder(args.out, Path("results") / scenario.name)
@@ -167,10 +167,19 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
                        help="show the progress bar even when stderr is not a terminal")
 
 
+def _add_experiment(p: argparse.ArgumentParser) -> None:
+    _add_common(p, reps=False)
+    p.add_argument("--design", required=True, metavar="LABEL",
+                   help="a design label of the scenario (as `spillgauge run` prints it)")
+    p.add_argument("--start", metavar="DATE", help="the midnight the experiment starts, "
+                   "YYYY-MM-DD (default: the next midnight)")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for the files")
+
+
 def _cmd_report(args) -> int:
-    from spillgauge.study.store import load_study
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
+    from spillgauge.study.store import load_study
 
     out = Path(args.dir)
     study = load_study(out)
@@ -211,8 +220,8 @@ def _cmd_new(args) -> int:
 
 def _cmd_sweep(args) -> int:
     from spillgauge.files import write_atomic
-    from spillgauge.sweep.sweep import parse_vary, run_sweep, write_sweep
     from spillgauge.report.sweep_figures import render_sweep_html, save_sweep_figures
+    from spillgauge.sweep.sweep import parse_vary, run_sweep, write_sweep
 
     scenario = _load(args.scenario)
     axes = [parse_vary(text) for text in args.vary]
@@ -247,6 +256,52 @@ def _cmd_list(args) -> int:
         scenario = load_scenario(path)
         summary = " ".join(scenario.description.split())
         print(f"{scenario.name:<14} {summary}")
+    return 0
+
+
+def _cmd_assign(args) -> int:
+    from spillgauge.experiment.assignment import assign_design
+    from spillgauge.experiment.balance import assignment_balance, balance_text
+    from spillgauge.experiment.folder import write_assignment
+
+    scenario = _load(args.scenario)
+    assignment = assign_design(scenario, args.design, seed=args.seed, start=args.start)
+    written = write_assignment(assignment, args.out)
+    schedule = assignment.schedule
+    print(f"{assignment.spec.label}: {assignment.describe()}; seed {assignment.seed}")
+    print(balance_text(assignment_balance(schedule, assignment.history), schedule.unit_kind))
+    print(f"\nwrote {args.out}/ ({', '.join(p.name for p in written)})")
+    print(f"after the experiment: spillgauge analyze {args.out} --orders ORDERS.csv")
+    return 0
+
+
+def _cmd_simulate(args) -> int:
+    from spillgauge.experiment.simulate import simulate_experiment, write_experiment
+    from spillgauge.formatting import format_number
+
+    scenario = _load(args.scenario)
+    experiment = simulate_experiment(scenario, args.design, seed=args.seed, start=args.start)
+    written = write_experiment(experiment, args.out)
+    truth = experiment.truth
+    print(f"{experiment.assignment.spec.label}: one synthetic experiment, seed "
+          f"{experiment.assignment.seed}; true effect (GTE) {format_number(truth.gte, sign=True)} "
+          f"orders per user ({format_number(truth.control_mean)} all control, "
+          f"{format_number(truth.treated_mean)} all treated)")
+    print(f"wrote {args.out}/ ({', '.join(p.name for p in written)})")
+    print(f"next: spillgauge analyze {args.out}")
+    return 0
+
+
+def _cmd_analyze(args) -> int:
+    from spillgauge.experiment.analyze import analysis_record, analysis_text, analyze_experiment
+
+    analysis = analyze_experiment(args.dir, orders=args.orders, study=args.study)
+    if args.json:
+        from spillgauge.files import dumps
+
+        print(dumps(analysis_record(analysis)))
+    else:
+        print(analysis_text(analysis))
     return 0
 
 
@@ -327,6 +382,37 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("name", metavar="NAME", help="scenario name (the file is NAME.toml)")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
     p.set_defaults(func=_cmd_new)
+
+    p = sub.add_parser("assign", help="draw a design's randomization for your market",
+                       description="Draw the real experiment's assignment of one of the "
+                       "scenario's designs (the same draw as replication 0 of a study with "
+                       "the same seed), with the users' ids from the scenario's CSV files. "
+                       "Writes assignment.json, assignment.csv and calendar.csv; prints the "
+                       "balance of pre-period orders by arm.")
+    _add_experiment(p)
+    p.set_defaults(func=_cmd_assign)
+
+    p = sub.add_parser("simulate", help="one synthetic experiment with its known answer",
+                       description="Simulate one experiment of a design as real data would "
+                       "look: the assignment files, orders.csv (user, day), stock.csv (pool, "
+                       "day), pool_orders.csv (pool, hour; designs whose arms change over "
+                       "time) and truth.json (the GTE and both counterfactual worlds).")
+    _add_experiment(p)
+    p.set_defaults(func=_cmd_simulate)
+
+    p = sub.add_parser("analyze", help="analyse an experiment's orders with the design's "
+                       "estimator", description="Read an assignment folder and the "
+                       "experiment's orders, and print the design's own estimate, standard "
+                       "error, interval and p-value (with a study's measured bias, coverage "
+                       "and power for the design when --study is given).")
+    p.add_argument("dir", metavar="DIR", help="a folder written by `spillgauge assign` or "
+                   "`spillgauge simulate`")
+    p.add_argument("--orders", metavar="FILE", help="the orders CSV (default DIR/orders.csv, "
+                   "or DIR/pool_orders.csv for designs whose arms change over time)")
+    p.add_argument("--study", metavar="DIR", help="a results folder of `spillgauge run` on "
+                   "the same scenario, for context")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_analyze)
 
     p = sub.add_parser("list", help="list the bundled scenarios")
     p.set_defaults(func=_cmd_list)

@@ -30,7 +30,7 @@ __all__ = ["DesignKind", "MarketView", "cluster_source_key",
 
 
 class MarketView(Protocol):
-    """What a design may ask of a market (:class:`~spillgauge.model.market.Market` answers)."""
+    """What a design may ask of a market (:class:`~spillgauge.market.build.Market` answers)."""
 
     @property
     def n_users(self) -> int: ...

@@ -12,7 +12,7 @@ from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
 from spillgauge.errors import ScenarioError
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from spillgauge.scenario import Scenario
 from spillgauge.study.replication import ReplicationResult, run_replication
 
