@@ -7,29 +7,18 @@ import os
 import sys
 from pathlib import Path
 
+from spillgauge.console import (
+    REPS,
+    SEED,
+    WORKERS,
+    ProgressBar,
+    fail,
+    interrupted,
+    out_folder,
+)
 from spillgauge.errors import ScenarioError, SpillgaugeError
 
 __all__ = ["main", "build_parser"]
-
-_TICK = 0.2  # seconds between progress-bar redraws
-_SEED_LIMIT = 2**63  # study.seed's range, [0, 2**63)
-
-
-def _whole_number(minimum: int, maximum: int | None = None, what: str = ""):
-    """Return an argparse type: a whole number in [minimum, maximum], refused by name."""
-    def parse(text: str) -> int:
-        try:
-            value = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"must be a whole number; got {text[:40]!r}") \
-                from None
-        if value < minimum or (maximum is not None and value > maximum):
-            allowed = what or (f">= {minimum}" if maximum is None else
-                               f"in [{minimum}, {maximum}]")
-            raise argparse.ArgumentTypeError(f"must be {allowed}; got {value}")
-        return value
-    parse.__name__ = "int"
-    return parse
 
 
 class _Parser(argparse.ArgumentParser):
@@ -37,32 +26,6 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str) -> None:  # noqa: D401 - argparse's hook
         self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
-
-
-class _ProgressBar:
-    """Replications done and time left (tqdm) on stderr: on a terminal, or when forced."""
-
-    def __init__(self, label: str, *, enabled: bool, forced: bool = False) -> None:
-        self.label = label
-        self.enabled = forced or (enabled and sys.stderr.isatty())
-        self.bar = None
-
-    def __call__(self, done: int, total: int) -> None:
-        if not self.enabled:
-            return
-        if self.bar is None:
-            from tqdm import tqdm
-
-            self.bar = tqdm(total=total, initial=done, desc=self.label, unit="rep",
-                            file=sys.stderr, mininterval=_TICK, dynamic_ncols=True)
-        self.bar.update(done - self.bar.n)
-        if done >= total:
-            self.close()
-
-    def close(self) -> None:
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
 
 
 def _load(path: str):
@@ -90,7 +53,7 @@ def _cmd_truth(args) -> int:
     from spillgauge.study.run import run_truth
 
     scenario = _load(args.scenario)
-    bar = _ProgressBar("truth", enabled=not args.quiet and not args.json,
+    bar = ProgressBar("truth", enabled=not args.quiet and not args.json,
                        forced=args.progress)
     truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                       scheduler=args.scheduler, progress=bar)
@@ -110,53 +73,32 @@ def _cmd_run(args) -> int:
     from spillgauge.study.run import run_study
 
     scenario = _load(args.scenario)
-    out = _out_folder(args.out, Path("results") / scenario.name)
-    bar = _ProgressBar(scenario.name, enabled=not args.quiet, forced=args.progress)
+    out = out_folder(args.out, Path("results") / scenario.name)
+    bar = ProgressBar(scenario.name, enabled=not args.quiet, forced=args.progress)
     try:
         study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                           scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
     except KeyboardInterrupt:
         bar.close()
-        return _interrupted(out)
+        return interrupted(out)
     written = write_report(study, out)
     print(study_text(study))
     print(f"\nresults: {out}/ ({', '.join(written)})")
     return 0
 
 
-_REPS = _whole_number(1, 1_000_000, "a whole number in [1, 1000000]")
-_SEED = _whole_number(0, _SEED_LIMIT - 1, "a whole number in [0, 2**63)")
-_WORKERS = _whole_number(1, 1024, "a whole number of processes in [1, 1024]")
-
-
-def _out_folder(given: str | None, default: Path) -> Path:
-    """Return the results folder, refusing by name one that cannot be a writable folder."""
-    out = Path(given) if given else default
-    option = "--out" if given else "the results folder"
-    if out.exists() and not out.is_dir():
-        raise ScenarioError(option, "a folder (this is a file)", str(out))
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise ScenarioError(option, f"a folder that can be created ({exc.strerror})",
-                            str(out)) from None
-    if not os.access(out, os.W_OK | os.X_OK):
-        raise ScenarioError(option, "a folder you can write to", str(out))
-    return out
-
-
 def _add_common(p: argparse.ArgumentParser, *, reps: bool = True) -> None:
     p.add_argument("scenario", help="a scenario TOML file, or the name of a bundled scenario "
                    "(see `spillgauge list`)")
     if reps:
-        p.add_argument("--reps", type=_REPS, metavar="N",
+        p.add_argument("--reps", type=REPS, metavar="N",
                        help="replications (default: the scenario's study.reps)")
-    p.add_argument("--seed", type=_SEED, metavar="S",
+    p.add_argument("--seed", type=SEED, metavar="S",
                    help="study seed (default: the scenario's study.seed)")
 
 
 def _add_compute(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--workers", type=_WORKERS, metavar="N", default=None,
+    p.add_argument("--workers", type=WORKERS, metavar="N", default=None,
                    help="local processes for the replications (default: every core)")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run replications on this Dask scheduler, e.g. tcp://10.0.0.5:8786 "
@@ -229,8 +171,8 @@ def _cmd_sweep(args) -> int:
         raise ScenarioError("--vary", "given once (curves) or twice (a grid)", len(axes))
     if len({a.key for a in axes}) != len(axes):
         raise ScenarioError("--vary", "two different keys", " and ".join(a.key for a in axes))
-    out = _out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
-    bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet,
+    out = out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
+    bar = ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet,
                        forced=args.progress)
     try:
         sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
@@ -238,7 +180,7 @@ def _cmd_sweep(args) -> int:
                           resume=args.resume, progress=bar)
     except KeyboardInterrupt:
         bar.close()
-        return _interrupted(out)
+        return interrupted(out)
     written = [p.name for p in write_sweep(sweep, out)]
     figures = save_sweep_figures(sweep, out)
     write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
@@ -370,8 +312,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="run the default scenario end to end",
                        description="Run the bundled default scenario (tight_pantry) and write "
                        "its results and report to results/tight_pantry.")
-    p.add_argument("--reps", type=_REPS, metavar="N", help="replications (default 200)")
-    p.add_argument("--seed", type=_SEED, metavar="S", help="study seed")
+    p.add_argument("--reps", type=REPS, metavar="N", help="replications (default 200)")
+    p.add_argument("--seed", type=SEED, metavar="S", help="study seed")
     p.add_argument("--out", metavar="DIR", help="results folder")
     _add_compute(p)
     p.set_defaults(func=_cmd_demo)
@@ -430,40 +372,21 @@ def main(argv: list[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         return args.func(args)
     except SpillgaugeError as exc:
-        return _fail(str(exc), 2)
+        return fail(str(exc), 2)
     except KeyboardInterrupt:
-        return _interrupted(None)
+        return interrupted(None)
     except BrokenPipeError:
         return 0
     except MemoryError:
-        return _fail("out of memory; use fewer --workers, fewer users or a shorter horizon", 2)
+        return fail("out of memory; use fewer --workers, fewer users or a shorter horizon", 2)
     except OSError as exc:
         where = f": {exc.filename}" if exc.filename else ""
-        return _fail(f"{exc.strerror or exc.__class__.__name__}{where}", 2)
+        return fail(f"{exc.strerror or exc.__class__.__name__}{where}", 2)
     except Exception as exc:  # noqa: BLE001 - a user sees one line, never a traceback
         if os.environ.get("SPILLGAUGE_DEBUG"):
             raise
-        return _fail(f"internal error ({exc.__class__.__name__}: {str(exc)[:200]}); please "
+        return fail(f"internal error ({exc.__class__.__name__}: {str(exc)[:200]}); please "
                      "report it, with the command (SPILLGAUGE_DEBUG=1 shows the traceback)", 1)
-
-
-def _interrupted(out: Path | None) -> int:
-    """Report Ctrl-C in one line (after a progress bar, on its own line); return 130."""
-    saved = (f"; finished replications are saved in {out}/: run the same command with "
-             "--resume to continue") if out is not None and out.is_dir() else ""
-    try:
-        sys.stderr.write(("\n" if sys.stderr.isatty() else "") + f"spillgauge: interrupted{saved}\n")
-    except (OSError, ValueError):
-        pass
-    return 130
-
-
-def _fail(message: str, code: int) -> int:
-    try:
-        sys.stderr.write(f"spillgauge: error: {message}\n")
-    except (OSError, ValueError):
-        pass
-    return code
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 
 from spillgauge.errors import MemoryLimitError
@@ -30,11 +31,13 @@ def _orders_per_week(scenario: Scenario) -> float:
                                field="users.file")
     try:
         if "orders_per_week" in columns:
-            return max(float(sum(map(float, columns["orders_per_week"]))) /
-                       len(columns["orders_per_week"]), 0.0)
-        if "history_orders" in columns and users.history_days > 0:
-            total = sum(map(float, columns["history_orders"]))
-            return total / len(columns["history_orders"]) / users.history_days * 7
+            values = [float(v) for v in columns["orders_per_week"]]
+            if all(map(math.isfinite, values)):
+                return max(sum(values) / len(values), 0.0)
+        elif "history_orders" in columns and users.history_days > 0:
+            values = [float(v) for v in columns["history_orders"]]
+            if all(map(math.isfinite, values)):
+                return sum(values) / len(values) / users.history_days * 7
     except ValueError:
         pass  # the population builder names the bad value
     return users.orders_per_week
