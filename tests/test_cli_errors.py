@@ -75,8 +75,10 @@ def test_bad_csv_cell_names_line_and_user(tmp_path, capsys):
 @pytest.mark.parametrize("cell", ["1_0", "0x10", "nan", "-inf", "1e400"])
 def test_csv_numbers_are_plain_decimals(tmp_path, capsys, cell):
     rows = f"user_id,pool_id,orders_per_week\nu1,p1,{cell}\n"
-    code, err = _main(["check", _csv_scenario(tmp_path, rows.encode())], capsys)
-    assert code == 2 and "(line 2, user_id 'u1')" in err
+    scenario = _csv_scenario(tmp_path, rows.encode())
+    for command in (["check"], ["truth", "--reps", "1", "--workers", "1"]):
+        code, err = _main([command[0], scenario, *command[1:]], capsys)
+        assert code == 2 and "(line 2, user_id 'u1')" in err, err
 
 
 def test_csv_errors_never_echo_the_file(tmp_path, capsys):
