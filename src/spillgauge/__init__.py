@@ -31,6 +31,8 @@ _EXPORTS = {
     "run_study": "spillgauge.study.run",
     "run_truth": "spillgauge.study.run",
     "run_sweep": "spillgauge.sweep.sweep",
+    "plan_study": "spillgauge.plan.plan",
+    "PlanResult": "spillgauge.plan.plan",
     "parse_vary": "spillgauge.sweep.sweep",
     "SweepResult": "spillgauge.sweep.sweep",
     "simulate_worlds": "spillgauge.worlds.engine",

@@ -190,6 +190,32 @@ def _cmd_sweep(args) -> int:
     return 0
 
 
+def _cmd_plan(args) -> int:
+    from spillgauge.files import dumps, write_atomic
+    from spillgauge.plan import plan_study, write_plan
+    from spillgauge.plan.figures import save_plan_figures
+    from spillgauge.report.plan_page import render_plan_html
+
+    if args.scheduler:
+        raise ScenarioError("--scheduler", "left out: plan runs on local processes (--workers)",
+                            args.scheduler)
+    scenario = _load(args.scenario)
+    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-plan"
+    bar = _ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json)
+    plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
+                      reps=args.reps, seed=args.seed, workers=args.workers, progress=bar)
+    written = write_plan(plan, out)
+    figures = save_plan_figures(plan, out)
+    write_atomic(out / "plan.html", render_plan_html(plan, figures))
+    if args.json:
+        print(dumps(plan.to_dict()))
+        return 0
+    print(plan.answer())
+    names = [p.name for p in [*written, *figures]] + ["plan.html"]
+    print(f"\nresults: {out}/ ({', '.join(names)})")
+    return 0
+
+
 def _cmd_list(args) -> int:
     from spillgauge.bundled import bundled_scenarios
     from spillgauge.scenario.reading import load_scenario
@@ -302,6 +328,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--resume", action="store_true",
                    help="continue an interrupted sweep from what DIR holds")
     p.set_defaults(func=_cmd_sweep)
+
+    p = sub.add_parser("plan", help="how long to run, and what each design can detect",
+                       description="Run the study once and analyse every design at each "
+                       "duration as the first days of the same worlds: power at the scenario's "
+                       "effect, minimum detectable effect, bias, coverage and trust; answer "
+                       "with the shortest duration at which a trusted design reaches the "
+                       "target power. Writes plan.csv, plan.json, plots and plan.html.")
+    _add_common(p)
+    _add_compute(p)
+    p.add_argument("--days", metavar="D,D,...",
+                   help="durations in days, e.g. 7,14,21,28 (default: whole weeks and the "
+                   "horizon; each at most calendar.days)")
+    p.add_argument("--power", type=float, default=0.8, metavar="P",
+                   help="target power (default 0.8)")
+    p.add_argument("--alpha", type=float, metavar="A",
+                   help="level of the tests (default: the scenario's study.alpha)")
+    p.add_argument("--out", metavar="DIR", help="results folder (default results/<name>-plan)")
+    p.add_argument("--json", action="store_true", help="print plan.json to stdout")
+    p.set_defaults(func=_cmd_plan)
 
     p = sub.add_parser("report", help="re-render the reports of a results folder",
                        description="Rebuild summary.txt, summary.md, the plots and "

@@ -18,6 +18,7 @@ DESIGNS = [
     {"kind": "switchback", "block_hours": 12},
     {"kind": "interference_test", "clusters": "pools"},
     {"kind": "rollout", "waves": 2},
+    {"kind": "switchback_minimax", "per": "pool"},
 ]
 
 

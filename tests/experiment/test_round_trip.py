@@ -26,7 +26,7 @@ def test_every_registered_kind_is_covered(scenario):
     assert {d.kind for d in scenario.designs} == set(KINDS)
 
 
-@pytest.mark.parametrize("index", range(9))
+@pytest.mark.parametrize("index", range(10))
 def test_simulate_then_analyze_equals_the_study_replication(scenario, replication, tmp_path,
                                                             index):
     # The study's code (run_replication: every design's world at once) is the reference.
@@ -57,7 +57,7 @@ def test_analyze_reads_user_rows_with_hours_for_a_switchback(scenario, replicati
     assert same_estimate(analysis.estimate, replication.runs[spec.label].estimate)
 
 
-@pytest.mark.parametrize("index", range(9))
+@pytest.mark.parametrize("index", range(10))
 def test_assignment_is_the_kinds_own_draw_and_reads_back_identical(scenario, tmp_path, index):
     spec = scenario.designs[index]
     market = build_market(scenario, SEED)
