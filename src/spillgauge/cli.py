@@ -200,8 +200,9 @@ def _cmd_plan(args) -> int:
         raise ScenarioError("--scheduler", "left out: plan runs on local processes (--workers)",
                             args.scheduler)
     scenario = _load(args.scenario)
-    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-plan"
-    bar = _ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json)
+    out = out_folder(args.out, Path("results") / f"{scenario.name}-plan")
+    bar = ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json,
+                      forced=args.progress)
     plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
                       reps=args.reps, seed=args.seed, workers=args.workers, progress=bar)
     written = write_plan(plan, out)
