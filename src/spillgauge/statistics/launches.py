@@ -38,10 +38,10 @@ def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | N
                          randomized_metrics: DesignMetrics | None, alpha: float) -> str:
     """Return the note on what not randomizing costs in this market (empty without launches).
 
-    Each launch analysis: its bias against its own truth (and relative to it), its
-    RMSE and how often its interval covers that truth. The closest analysis is the
-    one with the smallest RMSE; the users left out and the recommended randomized
-    design (its RMSE against the GTE) are named for comparison.
+    For each question the launches answer, the closest analysis (smallest RMSE
+    against its own truth) and the furthest, with bias, RMSE and coverage (the
+    table beside the note has every row); then the users left out and the
+    recommended randomized design (its RMSE against the GTE) for comparison.
 
     Examples
     --------
@@ -56,23 +56,29 @@ def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | N
     if not launches:
         return ""
     level = f"{1 - alpha:.0%}"
-    parts = []
-    for row in launches:
+
+    def judged(row: LaunchRow) -> str:
         m = row.metrics
-        relative = (f" ({format_percent(m.bias / row.truth, sign=True)} of it)"
+        relative = (f", {format_percent(m.bias / row.truth, sign=True)}"
                     if math.isfinite(row.truth) and abs(row.truth) > 0 else "")
-        parts.append(f"{row.label} estimates {row.question}, truly "
-                     f"{format_number(row.truth)} orders per user, with bias "
-                     f"{format_number(m.bias, sign=True)}{relative}, RMSE "
-                     f"{format_number(m.rmse)}, and its {level} interval covers the truth in "
-                     f"{format_percent(m.coverage)} of replications")
-    sentences = ["If you do not randomize: " + "; ".join(parts) + "."]
-    for kind in dict.fromkeys(r.kind for r in launches):
-        usable = [r for r in launches if r.kind == kind and math.isfinite(r.metrics.rmse)]
-        if len(usable) > 1:
-            best = min(usable, key=lambda r: r.metrics.rmse)
-            sentences.append(f"Closest to {best.question}: {best.label} (RMSE "
-                             f"{format_number(best.metrics.rmse)}).")
+        return (f"{row.label} (bias {format_number(m.bias, sign=True)} on a truth of "
+                f"{format_number(row.truth)}{relative}; RMSE "
+                f"{format_number(m.rmse)}, its {level} interval covering the truth in "
+                f"{format_percent(m.coverage)} of replications)")
+
+    parts = []
+    for question in dict.fromkeys(r.question for r in launches):
+        rows = [r for r in launches if r.question == question and math.isfinite(r.metrics.rmse)]
+        if not rows:
+            continue
+        rows.sort(key=lambda r: r.metrics.rmse)
+        if len(rows) == 1:
+            parts.append(f"for {question}, {judged(rows[0])}")
+        else:
+            parts.append(f"for {question}, the closest of "
+                         f"{len(rows)} analyses is {judged(rows[0])} and the furthest "
+                         f"{judged(rows[-1])}")
+    sentences = ["If you do not randomize: " + "; ".join(parts) + "."] if parts else []
     by_kind: dict[str, float] = {}
     for r in launches:
         if math.isfinite(r.left_out_effect):
