@@ -1,0 +1,100 @@
+"""Null calibration of the estimators' intervals on synthetic worlds.
+
+A 95% interval must cover the truth in about 95% of replications; each check
+uses ``scipy.stats.binomtest`` against 0.95 (two-sided, level 0.001, so a
+correct interval fails about once in a thousand runs). Long runs are marked
+``slow``; the unmarked ones are quick sanity versions with fewer replications.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from spillgauge.estimators import hajek_cluster, horvitz_thompson_cluster, switchback_difference
+from tests.calibration.synthetic import cluster_world, switchback_world
+
+
+def coverage(estimates, truths) -> tuple[int, int]:
+    """Return (intervals covering the truth, intervals) over finite intervals."""
+    hits = total = 0
+    for est, truth in zip(estimates, truths):
+        if np.isfinite(est.ci_low) and np.isfinite(est.ci_high):
+            total += 1
+            hits += est.ci_low <= truth <= est.ci_high
+    return hits, total
+
+
+def assert_covers_95(hits: int, total: int) -> None:
+    # Binomial test of coverage = 0.95 (scipy.stats.binomtest), level 0.001.
+    result = stats.binomtest(hits, total, 0.95)
+    assert result.pvalue > 0.001, f"coverage {hits}/{total} = {hits / total:.3f}"
+
+
+def cluster_coverage(estimator, n_clusters: int, reps: int, seed: int, **world):
+    rng = np.random.default_rng(seed)
+    estimates, truths = [], []
+    for _ in range(reps):
+        panel, schedule, gte = cluster_world(n_clusters, rng=rng, **world)
+        estimates.append(estimator(panel, schedule))
+        truths.append(gte)
+    return coverage(estimates, truths)
+
+
+def switchback_coverage(n_blocks: int, burn_in_ticks: int, share: float, reps: int,
+                        seed: int):
+    rng = np.random.default_rng(seed)
+    estimates = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for _ in range(reps):
+            panel, schedule = switchback_world(n_blocks, share=share, rng=rng)
+            estimates.append(switchback_difference(panel, schedule,
+                                                   burn_in_ticks=burn_in_ticks))
+    return coverage(estimates, [0.0] * reps)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [4, 8, 12])
+@pytest.mark.parametrize("unequal", [False, True])
+def test_hajek_cluster_covers_under_the_null(n_clusters, unequal):
+    # CR2 with Bell-McCaffrey degrees of freedom (Bell & McCaffrey 2002; Imbens & Kolesar
+    # 2016) is exact for equal clusters under normal errors and close otherwise.
+    assert_covers_95(*cluster_coverage(hajek_cluster, n_clusters, 4000, n_clusters,
+                                       unequal=unequal))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [4, 8, 12])
+def test_hajek_cluster_covers_with_cluster_heterogeneous_effects(n_clusters):
+    # Neyman (1923): with effects that differ across clusters the per-arm variance is
+    # conservative, so coverage is at least 95% (one-sided check).
+    hits, total = cluster_coverage(hajek_cluster, n_clusters, 4000, 100 + n_clusters,
+                                   effect_sd=1.0)
+    assert stats.binomtest(hits, total, 0.95, alternative="less").pvalue > 0.001, hits / total
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [4, 8, 12])
+def test_horvitz_thompson_cluster_covers_under_the_null(n_clusters):
+    assert_covers_95(*cluster_coverage(horvitz_thompson_cluster, n_clusters, 4000,
+                                       200 + n_clusters))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("burn_in_ticks", [0, 6, 12, 18])
+@pytest.mark.parametrize("share", [0.5, 0.3])
+def test_switchback_burn_in_covers_under_the_null(burn_in_ticks, share):
+    # 14 daily blocks with AR(1) daily shocks and a diurnal rhythm; sharp null.
+    assert_covers_95(*switchback_coverage(14, burn_in_ticks, share, 3000, burn_in_ticks))
+
+
+def test_hajek_cluster_few_clusters_quick():
+    assert_covers_95(*cluster_coverage(hajek_cluster, 6, 600, 1))
+
+
+def test_switchback_burn_in_quick():
+    assert_covers_95(*switchback_coverage(14, 12, 0.5, 600, 2))
