@@ -84,3 +84,36 @@ def switchback_world(n_blocks: int, *, block_ticks: int = 24, share: float = 0.5
         period_start_ticks=np.arange(n_blocks) * block_ticks, n_ticks=n_ticks,
         treated_probability=share, unit_kind="market", randomization="bernoulli")
     return panel, schedule
+
+
+def rollout_world(n_pools: int = 20, *, waves: int = 4, days: int = 14, lift: float = 0.0,
+                  lift_sd: float = 0.0, shock_sd: float = 0.15, amplitude: float = 0.6,
+                  users_per_pool: int = 100, rate_per_user_hour: float = 0.01,
+                  rng: np.random.Generator) -> tuple[OutcomePanel, AssignmentSchedule, float]:
+    """Draw one staggered rollout over pools; return (panel, schedule, GTE).
+
+    Pool ``p``'s orders per hour are Poisson with mean
+    ``N_p r_p diurnal(t) shock(day) (1 + lift_p D_pt)``: market-wide AR(1) daily shocks
+    and a diurnal rhythm (common to all pools), pool levels ``r_p`` and lifts
+    ``lift_p ~ N(lift, lift_sd)``. The GTE is the expected difference between all
+    pools treated and none, per user over the horizon, given the shocks.
+    """
+    from spillgauge.designs.rollout import draw_rollout_schedule
+
+    n_ticks = days * 24
+    users = rng.integers(users_per_pool // 2, 3 * users_per_pool // 2, n_pools)
+    level = rng.gamma(4.0, rate_per_user_hour / 4.0, n_pools)
+    lifts = lift + lift_sd * rng.standard_normal(n_pools)
+    common = diurnal(n_ticks, amplitude) * market_shocks(days, rho=0.5, sd=shock_sd,
+                                                         rng=rng)[np.arange(n_ticks) // 24]
+    pool_of_user = np.repeat(np.arange(n_pools), users)
+    schedule = draw_rollout_schedule(pool_of_user, n_ticks, waves=waves, rng=rng)
+    on = schedule.is_treated[:, schedule.period_of_tick()]             # (pools, ticks)
+    base = (users * level)[:, None] * common[None, :]
+    orders = rng.poisson(base * (1 + lifts[:, None] * on))
+    gte = float(np.sum(base * lifts[:, None]) / users.sum())
+    panel = OutcomePanel.from_arrays(
+        fulfilled=np.zeros((users.sum(), 1), dtype=np.int64), pool_of_user=pool_of_user,
+        pool_fulfilled=orders, pool_demanded=orders, pool_lost=np.zeros_like(orders),
+        pool_stock=np.zeros_like(orders))
+    return panel, schedule, gte

@@ -185,7 +185,7 @@ def clusters_per_arm(n_clusters: int, share: float, randomization: str) -> int:
     Complete randomization treats ``round(share * G)`` clusters (kept in ``[1, G - 1]``);
     Bernoulli can put every cluster in one arm, so its minimum is 0.
 
-    >>> clusters_per_arm(4, 0.5, "complete"), clusters_per_arm(5, 0.3, "complete")
+    >>> clusters_per_arm(4, 0.5, "complete"), clusters_per_arm(6, 0.2, "complete")
     (2, 1)
     """
     if randomization == "bernoulli" or n_clusters < 2:

@@ -17,7 +17,11 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
-from spillgauge.estimators.rollout import difference_in_differences
+from spillgauge.estimators.rollout import (
+    difference_in_differences,
+    staggered_difference_in_differences,
+    two_way_fixed_effects_period_weights,
+)
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -39,6 +43,8 @@ __all__ = [
     "hajek_exposure",
     "switchback_difference",
     "difference_in_differences",
+    "staggered_difference_in_differences",
+    "two_way_fixed_effects_period_weights",
     "interference_test",
     "InterferenceTest",
     "switchback_optimal_points",
