@@ -117,3 +117,23 @@ def rollout_world(n_pools: int = 20, *, waves: int = 4, days: int = 14, lift: fl
         pool_fulfilled=orders, pool_demanded=orders, pool_lost=np.zeros_like(orders),
         pool_stock=np.zeros_like(orders))
     return panel, schedule, gte
+
+
+def interference_world(n_clusters: int, *, rng: np.random.Generator, users_per_cluster=40,
+                       effect: float = 1.0, effect_sd: float = 2.0
+                       ) -> tuple[OutcomePanel, AssignmentSchedule]:
+    """Draw one test-of-interference world without interference; return (panel, schedule).
+
+    Each cluster's users gain ``delta_g ~ N(effect, effect_sd)`` orders when treated
+    themselves, whatever anyone else's arm: no interference, effects that differ
+    across clusters.
+    """
+    from spillgauge.designs.interference import draw_interference_schedule
+
+    cluster = np.repeat(np.arange(n_clusters), users_per_cluster)
+    level = rng.gamma(4.0, 1.25, n_clusters)
+    delta = rng.normal(effect, effect_sd, n_clusters)
+    schedule = draw_interference_schedule(cluster, 1, rng=rng)
+    treated = schedule.user_is_treated()
+    outcome = rng.poisson(level[cluster]) + np.where(treated, delta[cluster], 0.0)
+    return OutcomePanel.from_arrays(fulfilled=outcome), schedule
