@@ -10,10 +10,10 @@ import time
 import numpy as np
 
 from spillgauge.designs import draw_user_schedule
-from spillgauge.model.market import build_market
-from spillgauge.model.world import draw_candidates, simulate_worlds
+from spillgauge.market.build import build_market
 from spillgauge.scenario.reading import load_scenario
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 
 
 def main() -> None:

@@ -16,15 +16,17 @@ ROOT = Path(spillgauge.__file__).parent
 BASE = {"errors", "scenario", "schedule", "panel", "seeding", "bundled", "files", "formatting"}
 ALLOWED = {
     "base": BASE,
-    "model": BASE | {"model"},
+    "market": BASE | {"market"},
+    # the engine runs a market under schedules; the market never sees a world
+    "worlds": BASE | {"market", "worlds"},
     "estimators": BASE | {"estimators"},
     # a design kind names the estimator that analyses it
     "designs": BASE | {"estimators", "designs"},
     # reading [[design]] tables needs the design kinds' declared keys
     "reading": BASE | {"designs", "estimators"},
     "statistics": BASE | {"statistics"},
-    "study": BASE | {"model", "designs", "estimators", "reading", "statistics", "study"},
-    "sweep": BASE | {"model", "designs", "estimators", "reading", "statistics", "study", "sweep"},
+    "study": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study"},
+    "sweep": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study", "sweep"},
     "report": BASE | {"statistics", "study", "sweep", "report"},
 }
 

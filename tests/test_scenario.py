@@ -82,7 +82,7 @@ def test_missing_file_and_bad_toml(tmp_path):
 
 
 def test_missing_csv_column_is_named(tmp_path):
-    from spillgauge.model.market import build_market
+    from spillgauge.market.build import build_market
 
     users = tmp_path / "users.csv"
     users.write_text("user_id,pool_id\nu1,p1\n")
@@ -92,7 +92,7 @@ def test_missing_csv_column_is_named(tmp_path):
 
 
 def test_negative_rate_in_csv_is_named(tmp_path):
-    from spillgauge.model.market import build_market
+    from spillgauge.market.build import build_market
 
     users = tmp_path / "users.csv"
     users.write_text("user_id,pool_id,orders_per_week\nu1,p1,-3\n")

@@ -20,7 +20,7 @@ It writes, next to this script:
 Everything is invented and drawn with a fixed seed, so the files are the same
 on every run. The rates the scenario simulates are *not* in users.csv: the
 simulator estimates them from ``history_orders`` (``users.history_days = 28``)
-by Gamma-Poisson empirical Bayes (``spillgauge.model.population.estimate_rates``).
+by Gamma-Poisson empirical Bayes (``spillgauge.market.population.estimate_rates``).
 """
 
 from __future__ import annotations

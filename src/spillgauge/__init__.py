@@ -18,14 +18,14 @@ __version__ = "0.1.0"
 _EXPORTS = {
     "AssignmentSchedule": "spillgauge.schedule",
     "DegenerateEstimateWarning": "spillgauge.errors",
-    "Market": "spillgauge.model.market",
+    "Market": "spillgauge.market.build",
     "OutcomePanel": "spillgauge.panel",
     "ResultsError": "spillgauge.errors",
     "Scenario": "spillgauge.scenario",
     "ScenarioError": "spillgauge.errors",
     "SpillgaugeError": "spillgauge.errors",
     "StudyResult": "spillgauge.study.result",
-    "build_market": "spillgauge.model.market",
+    "build_market": "spillgauge.market.build",
     "load_scenario": "spillgauge.scenario.reading",
     "parse_scenario": "spillgauge.scenario.reading",
     "run_study": "spillgauge.study.run",
@@ -33,7 +33,7 @@ _EXPORTS = {
     "run_sweep": "spillgauge.sweep.sweep",
     "parse_vary": "spillgauge.sweep.sweep",
     "SweepResult": "spillgauge.sweep.sweep",
-    "simulate_worlds": "spillgauge.model.world",
+    "simulate_worlds": "spillgauge.worlds.engine",
 }
 
 __all__ = ["__version__", *sorted(_EXPORTS)]

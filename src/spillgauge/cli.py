@@ -60,9 +60,9 @@ def _load(path: str):
 
 
 def _cmd_check(args) -> int:
-    from spillgauge.study.market_summary import summarise_market
-    from spillgauge.model.market import build_market
+    from spillgauge.market.build import build_market
     from spillgauge.report.text import market_text
+    from spillgauge.study.market_summary import summarise_market
 
     scenario = _load(args.scenario)
     market = build_market(scenario, args.seed)
@@ -71,8 +71,8 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_truth(args) -> int:
-    from spillgauge.study.run import run_truth
     from spillgauge.report.text import truth_text
+    from spillgauge.study.run import run_truth
 
     scenario = _load(args.scenario)
     bar = _ProgressBar("truth", enabled=not args.quiet and not args.json)
@@ -89,9 +89,9 @@ def _cmd_truth(args) -> int:
 
 
 def _cmd_run(args) -> int:
-    from spillgauge.study.run import run_study
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
+    from spillgauge.study.run import run_study
 
     scenario = _load(args.scenario)
     out = Path(args.out) if args.out else Path("results") / scenario.name
@@ -129,9 +129,9 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_report(args) -> int:
-    from spillgauge.study.store import load_study
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
+    from spillgauge.study.store import load_study
 
     out = Path(args.dir)
     study = load_study(out)
@@ -164,8 +164,8 @@ def _cmd_new(args) -> int:
 
 def _cmd_sweep(args) -> int:
     from spillgauge.files import write_atomic
-    from spillgauge.sweep.sweep import parse_vary, run_sweep, write_sweep
     from spillgauge.report.sweep_figures import render_sweep_html, save_sweep_figures
+    from spillgauge.sweep.sweep import parse_vary, run_sweep, write_sweep
 
     scenario = _load(args.scenario)
     axes = [parse_vary(text) for text in args.vary]

@@ -16,10 +16,10 @@ import pytest
 from spillgauge.designs.registry import KINDS, kind_of, make_design_spec
 from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.estimators.estimate import Estimate
-from spillgauge.model.market import build_market
-from spillgauge.model.world import simulate_worlds
+from spillgauge.market.build import build_market
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import simulate_worlds
 from tests.conftest import make_scenario
 
 # Every kind with its defaults, plus the variants that take other code paths.

@@ -15,7 +15,7 @@ def test_scenario_docs_hold_the_generated_key_reference():
     start = text.index("-->\n\n", text.index("<!-- design keys")) + len("-->\n\n")
     end = text.index("\n<!-- end of design keys -->")
     assert text[start:end] == key_reference(), (
-        "docs/scenario.md is out of date: paste spillgauge.designs.registry.key_reference()")
+        "docs/scenario.md is out of date: run python docs/generate_key_reference.py")
 
 
 def test_every_kind_and_key_is_in_the_reference():

@@ -31,7 +31,7 @@ def test_linear_in_means_spillover_user_vs_cluster():
                 {"kind": "cluster", "clusters": "graph"}],
         study={"reps": 60, "seed": 4})
     study = run_study(scenario, workers=1)
-    from spillgauge.model.market import build_market
+    from spillgauge.market.build import build_market
 
     market = build_market(scenario, 4)
     connected = market.degree() > 0

@@ -33,7 +33,7 @@ MIN_CLUSTERS_PER_ARM = 2  # a cluster-robust variance needs two clusters in each
 
 
 class MarketView(Protocol):
-    """What a design may ask of a market (:class:`~spillgauge.model.market.Market` answers)."""
+    """What a design may ask of a market (:class:`~spillgauge.market.build.Market` answers)."""
 
     @property
     def n_users(self) -> int: ...

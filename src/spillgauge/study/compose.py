@@ -10,7 +10,7 @@ import numpy as np
 
 from spillgauge.designs.registry import kind_of
 from spillgauge.estimators.estimate import Estimate
-from spillgauge.model.market import Market
+from spillgauge.market.build import Market
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec
 from spillgauge.schedule import AssignmentSchedule

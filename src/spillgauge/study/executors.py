@@ -10,7 +10,7 @@ import os
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from spillgauge.scenario import Scenario
 from spillgauge.study.replication import ReplicationResult, run_replication
 

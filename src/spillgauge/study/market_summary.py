@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from spillgauge.model.market import Market
+from spillgauge.market.build import Market
 
 __all__ = ["summarise_market", "sample_clustering"]
 

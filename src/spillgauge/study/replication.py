@@ -11,13 +11,13 @@ from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic
 from spillgauge.files import nan_from_null
-from spillgauge.statistics.truth import ReplicationTruth, replication_truth
-from spillgauge.model.market import Market, build_market
-from spillgauge.model.world import simulate_worlds
+from spillgauge.market.build import Market, build_market
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import Scenario
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import ASSIGNMENT, DEMAND, design_key, stream
+from spillgauge.statistics.truth import ReplicationTruth, replication_truth
+from spillgauge.worlds.engine import simulate_worlds
 
 __all__ = ["DesignRun", "ReplicationResult", "run_replication", "result_to_record",
            "result_from_record", "SAMPLE_POOLS"]

@@ -22,7 +22,7 @@ def _orders_per_week(scenario: Scenario) -> float:
     users = scenario.users
     if users.file is None:
         return users.orders_per_week
-    from spillgauge.model.population import read_csv_columns
+    from spillgauge.market.population import read_csv_columns
 
     columns = read_csv_columns(users.file, required=("user_id", "pool_id"),
                                optional=("orders_per_week", "history_orders"),

@@ -15,7 +15,7 @@ from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
-from spillgauge.model.market import build_market
+from spillgauge.market.build import build_market
 from spillgauge.scenario import Scenario
 from spillgauge.statistics.truth import TruthSummary, summarise_truth
 from spillgauge.study.executors import default_workers, run_replications

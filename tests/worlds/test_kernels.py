@@ -6,17 +6,17 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from spillgauge.model.graph import (
+from spillgauge.market.graph import (
     adjacency_from_edges,
     closed_neighbourhood_units,
     pool_block_adjacency,
     small_world_adjacency,
     to_networkx,
 )
-from spillgauge.model.population import estimate_rates
-from spillgauge.model.treatment import peer_exposure_of_events, unit_dose
-from spillgauge.model.world import _serve_in_order
+from spillgauge.market.population import estimate_rates
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import _serve_in_order
+from spillgauge.worlds.treatment import peer_exposure_of_events, unit_dose
 
 
 def _random_schedule(rng, n_units=4, n_ticks=30):
@@ -119,7 +119,7 @@ def test_posterior_rate_draws_keep_the_prior_spread():
     # Gamma-Poisson (Morris 1983): if r ~ Gamma(k, b) and x | r ~ Poisson(r T), a draw from
     # the posterior Gamma(k + x, b + T) is again distributed as the prior, so the drawn rates
     # have the prior's mean k/b and variance k/b^2 (posterior means would shrink it).
-    from spillgauge.model.population import draw_rates
+    from spillgauge.market.population import draw_rates
 
     rng = np.random.default_rng(5)
     k, b, hours = 2.0, 400.0, 28 * 24.0
@@ -132,7 +132,7 @@ def test_posterior_rate_draws_keep_the_prior_spread():
 
 
 def test_communities_are_cached_on_disk_and_recomputed_when_damaged(tmp_path, monkeypatch):
-    from spillgauge.model import market as market_module
+    from spillgauge.market import build as market_module
 
     monkeypatch.setenv("SPILLGAUGE_CACHE", str(tmp_path))
     adjacency = small_world_adjacency(600, 6, 0.1, rng=np.random.default_rng(2))

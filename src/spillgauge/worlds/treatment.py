@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import sparse
 
-from spillgauge.model.graph import treated_neighbour_share
+from spillgauge.market.graph import treated_neighbour_share
 from spillgauge.schedule import AssignmentSchedule
 
 __all__ = ["unit_dose", "peer_exposure_of_events", "own_dose_of_events"]

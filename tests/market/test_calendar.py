@@ -7,11 +7,11 @@ import dataclasses
 import numpy as np
 import pytest
 
-from spillgauge.model.calendar import segment_bounds, stock_event_hours
-from spillgauge.model.market import build_market
-from spillgauge.model.world import draw_candidates, simulate_worlds
+from spillgauge.market.build import build_market
+from spillgauge.market.calendar import segment_bounds, stock_event_hours
 from spillgauge.scenario import Calendar, Pools
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from tests.conftest import make_scenario
 
 

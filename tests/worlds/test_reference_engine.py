@@ -20,9 +20,9 @@ from spillgauge.designs import (
     draw_switchback_schedule,
     draw_user_schedule,
 )
-from spillgauge.model.market import build_market
-from spillgauge.model.world import draw_candidates, simulate_worlds
+from spillgauge.market.build import build_market
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from tests.conftest import make_scenario
 
 FIELDS = ("fulfilled", "demanded", "pool_fulfilled", "pool_demanded", "pool_lost", "pool_stock")

@@ -7,9 +7,9 @@ import pytest
 from scipy import stats
 
 from spillgauge.designs import draw_switchback_schedule, draw_user_schedule
-from spillgauge.model.market import build_market
-from spillgauge.model.world import simulate_worlds
+from spillgauge.market.build import build_market
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import simulate_worlds
 from tests.conftest import make_scenario
 
 

@@ -21,22 +21,22 @@ from dataclasses import dataclass
 import numpy as np
 import simpy
 
-from spillgauge.model.calendar import (
+from spillgauge.market.build import Market
+from spillgauge.market.calendar import (
     day_of_tick,
     diurnal_multiplier,
     draw_daily_shocks,
     segment_bounds,
     start_stock_calendar,
 )
-from spillgauge.model.market import Market
-from spillgauge.model.treatment import (
+from spillgauge.panel import OutcomePanel
+from spillgauge.schedule import AssignmentSchedule
+from spillgauge.seeding import check_rng
+from spillgauge.worlds.treatment import (
     own_dose_of_events,
     peer_exposure_of_events,
     unit_dose,
 )
-from spillgauge.panel import OutcomePanel
-from spillgauge.schedule import AssignmentSchedule
-from spillgauge.seeding import check_rng
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
 

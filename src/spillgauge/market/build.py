@@ -13,14 +13,14 @@ import numpy as np
 from scipy import sparse
 
 from spillgauge.errors import ScenarioError
-from spillgauge.model.graph import (
+from spillgauge.market.graph import (
     adjacency_from_edges,
     closed_neighbourhood_units,
     detect_communities,
     pool_block_adjacency,
     small_world_adjacency,
 )
-from spillgauge.model.population import Population, build_population, read_csv_columns
+from spillgauge.market.population import Population, build_population, read_csv_columns
 from spillgauge.scenario import Scenario
 from spillgauge.scenario.config import CLUSTER_SOURCES
 from spillgauge.seeding import MARKET, stream
