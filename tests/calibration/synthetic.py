@@ -48,7 +48,7 @@ def cluster_world(n_clusters: int, *, rng: np.random.Generator, users_per_cluste
     cluster = np.repeat(np.arange(n_clusters), sizes)
     level = rng.gamma(1 / cluster_sd ** 2, 5.0 * cluster_sd ** 2, n_clusters)
     delta = rng.normal(0.0, effect_sd, n_clusters) if effect_sd else np.zeros(n_clusters)
-    n_treated = int(round(share * n_clusters))
+    n_treated = round(share * n_clusters)
     is_treated = np.zeros(n_clusters, dtype=bool)
     is_treated[rng.permutation(n_clusters)[:n_treated]] = True
     base = rng.poisson(level[cluster]).astype(float)

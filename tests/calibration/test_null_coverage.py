@@ -14,7 +14,11 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from spillgauge.estimators import hajek_cluster, horvitz_thompson_cluster, switchback_difference
+from spillgauge.estimators import (
+    hajek_cluster,
+    horvitz_thompson_cluster,
+    switchback_difference,
+)
 from tests.calibration.synthetic import cluster_world, switchback_world
 
 

@@ -126,7 +126,7 @@ def _tight(**over):
                 "pools": {"count": 4, "stock_cover": 0.85}, "calendar": {"days": 4},
                 "effect": {"lift": 0.4}}
     for key, value in over.items():
-        sections[key] = {**sections.get(key, {}), **value}
+        sections[key] = value if key == "design" else {**sections.get(key, {}), **value}
     return make_scenario(**sections)
 
 
@@ -153,7 +153,9 @@ CASES = {
         pools={"count": 3, "stock_cover": 0.6, "on_stockout": "substitute",
                "substitute_share": 1.0, "restock_every_hours": 12, "lead_time_hours": 6},
         graph={"model": "small_world", "mean_degree": 4, "rewire_share": 0.3},
-        effect={"lift": 0.5, "peer_lift": 0.4, "carryover_half_life_hours": 4}),
+        effect={"lift": 0.5, "peer_lift": 0.4, "carryover_half_life_hours": 4},
+        # 3 pools cannot hold two per arm, so the default cluster design is refused
+        design=[{"kind": "user"}, {"kind": "switchback", "block_hours": 24}]),
 }
 
 

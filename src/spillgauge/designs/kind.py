@@ -190,7 +190,7 @@ def clusters_per_arm(n_clusters: int, share: float, randomization: str) -> int:
     """
     if randomization == "bernoulli" or n_clusters < 2:
         return 0
-    n_treated = min(max(int(round(share * n_clusters)), 1), n_clusters - 1)
+    n_treated = min(max(round(share * n_clusters), 1), n_clusters - 1)
     return min(n_treated, n_clusters - n_treated)
 
 

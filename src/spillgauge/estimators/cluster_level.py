@@ -16,8 +16,8 @@ import numpy as np
 from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
-    cr2_arm_difference,
     check_static,
+    cr2_arm_difference,
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate

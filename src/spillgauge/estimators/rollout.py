@@ -15,9 +15,9 @@ import numpy as np
 from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
-    satterthwaite_df,
     check_over_time,
     degenerate_estimate,
+    satterthwaite_df,
 )
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
