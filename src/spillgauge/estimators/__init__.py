@@ -17,6 +17,7 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
+from spillgauge.estimators.randomization import randomization_p_value, redraw_assignment
 from spillgauge.estimators.rollout import (
     difference_in_differences,
     staggered_difference_in_differences,
@@ -49,4 +50,6 @@ __all__ = [
     "InterferenceTest",
     "switchback_optimal_points",
     "switchback_exposure_probabilities",
+    "redraw_assignment",
+    "randomization_p_value",
 ]
