@@ -129,7 +129,9 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
                                     "(the file sets it)", users[key])
     raw_designs = data.get("design")
     if raw_designs is None:
-        designs = default_designs()
+        pools, users = sections["pools"], sections["users"]
+        designs = default_designs(
+            n_pools=None if pools.file is not None or users.file is not None else pools.count)
     else:
         if not isinstance(raw_designs, list):
             raise ScenarioError("design", "an array of [[design]] tables", raw_designs)
