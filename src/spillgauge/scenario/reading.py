@@ -104,9 +104,9 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
 
     Examples
     --------
-    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
+    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 4}})
     >>> s.users.count, s.pools.count, [d.label for d in s.designs]
-    (50, 2, ['user', 'cluster-pools', 'switchback-24h'])
+    (50, 4, ['user', 'cluster-pools', 'switchback-24h'])
     """
     if not isinstance(data, dict):
         raise ScenarioError("scenario", "a table of sections", data)
