@@ -17,6 +17,16 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
+from spillgauge.estimators.launch import (
+    launch_difference_in_differences,
+    pre_post_difference,
+    synthetic_control,
+)
+from spillgauge.estimators.propensity import (
+    augmented_inverse_probability_weighting,
+    inverse_probability_weighting,
+    propensity_score_matching,
+)
 from spillgauge.estimators.randomization import randomization_p_value, redraw_assignment
 from spillgauge.estimators.rollout import (
     difference_in_differences,
@@ -52,4 +62,10 @@ __all__ = [
     "switchback_exposure_probabilities",
     "redraw_assignment",
     "randomization_p_value",
+    "propensity_score_matching",
+    "inverse_probability_weighting",
+    "augmented_inverse_probability_weighting",
+    "pre_post_difference",
+    "launch_difference_in_differences",
+    "synthetic_control",
 ]

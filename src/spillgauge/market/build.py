@@ -69,6 +69,16 @@ class Market:
         return self.population.pool_of_user
 
     @property
+    def history(self) -> np.ndarray:
+        """Each user's pre-period orders, shape ``(n_users,)``."""
+        return self.population.history
+
+    @property
+    def rate_per_hour(self) -> np.ndarray:
+        """Each user's base demand rate, orders per hour, shape ``(n_users,)``."""
+        return self.population.rate_per_hour
+
+    @property
     def n_ticks(self) -> int:
         """Number of ticks in the horizon."""
         return self.scenario.calendar.n_ticks
