@@ -8,6 +8,7 @@ __all__ = [
     "ResultsError",
     "MemoryLimitError",
     "DegenerateEstimateWarning",
+    "PeriodWeightWarning",
 ]
 
 
@@ -60,3 +61,7 @@ class MemoryLimitError(SpillgaugeError):
 
 class DegenerateEstimateWarning(RuntimeWarning):
     """An estimator got legal but degenerate input (an empty arm, one cluster) and returned NaN."""
+
+
+class PeriodWeightWarning(UserWarning):
+    """An estimator weighs the periods of a design unlike the GTE (two-way fixed effects)."""

@@ -36,35 +36,84 @@ def twelve_clusters():
     return cluster, is_treated, outcome
 
 
-def test_hajek_matches_statsmodels_cluster_robust_ols(twelve_clusters):
-    # statsmodels OLS(y, [1, z]).fit(cov_type='cluster') uses CR1 = CR0 * G/(G-1) * (N-1)/(N-K)
-    # (REFERENCES §9 / check 23, from statsmodels' sandwich_covariance source); hajek_cluster
-    # documents CR0 * G/(G-1), so its variance is statsmodels' times (N-K)/(N-1), K = 2.
+def _cr2_by_matrices(outcome, cluster, is_treated):
+    """CR2 variance and Bell-McCaffrey df of the slope of OLS(y ~ 1 + z), by their definitions.
+
+    Bell & McCaffrey (2002): V = B [sum_g X_g' A_g e_g e_g' A_g X_g] B with B = (X'X)^-1 and
+    A_g = (I - H_gg)^(-1/2); with V = y'My (M = sum_g v_g v_g', v_g = (I - H)_g' A_g X_g B c)
+    the degrees of freedom under the working model Var(y) = I are tr(M)^2 / tr(M^2)
+    (Imbens & Kolesar 2016, Section 4). Written with dense matrices, independently of the
+    estimator's closed form.
+    """
+    from scipy.linalg import sqrtm
+
+    z = is_treated[cluster].astype(float)
+    x = np.column_stack([np.ones_like(z), z])
+    bread = np.linalg.inv(x.T @ x)
+    hat = x @ bread @ x.T
+    residual = outcome - hat @ outcome
+    contrast = np.array([0.0, 1.0])
+    m = np.zeros((outcome.size, outcome.size))
+    meat = np.zeros((2, 2))
+    for g in np.unique(cluster):
+        rows = cluster == g
+        adjust = np.real(sqrtm(np.linalg.inv(np.eye(rows.sum()) - hat[np.ix_(rows, rows)])))
+        score = x[rows].T @ adjust @ residual[rows]
+        meat += np.outer(score, score)
+        v = (np.eye(outcome.size) - hat)[rows].T @ adjust @ x[rows] @ bread @ contrast
+        m += np.outer(v, v)
+    variance = float((bread @ meat @ bread)[1, 1])
+    return variance, np.trace(m) ** 2 / np.trace(m @ m)
+
+
+def test_hajek_matches_statsmodels_point_and_cr2_by_its_definition(twelve_clusters):
+    # The Hajek point is statsmodels' OLS slope of y ~ 1 + z. Its variance is CR2 (Bell &
+    # McCaffrey 2002), which statsmodels does not offer: it is checked against the dense
+    # matrix definition above, whose code is in turn checked by giving statsmodels' CR0
+    # (cov_type="cluster", use_correction=False) when every A_g is the identity.
     cluster, is_treated, outcome = twelve_clusters
     est = hajek_cluster(OutcomePanel.from_arrays(fulfilled=outcome),
                         _cluster_schedule(cluster, is_treated))
+    y = outcome.astype(float)
     design = sm.add_constant(is_treated[cluster].astype(float))
-    fit = sm.OLS(outcome.astype(float), design).fit(cov_type="cluster",
-                                                    cov_kwds={"groups": cluster})
-    n = outcome.size
-    assert est.point == pytest.approx(fit.params[1], rel=1e-12)
-    assert est.standard_error ** 2 == pytest.approx(fit.bse[1] ** 2 * (n - 2) / (n - 1),
-                                                    rel=1e-10)
+    fit0 = sm.OLS(y, design).fit(cov_type="cluster",
+                                 cov_kwds={"groups": cluster, "use_correction": False})
+    assert est.point == pytest.approx(fit0.params[1], rel=1e-12)
+    variance, df = _cr2_by_matrices(y, cluster, is_treated)
+    assert est.standard_error ** 2 == pytest.approx(variance, rel=1e-9)
+    assert est.degrees_of_freedom == pytest.approx(df, rel=1e-9)
     assert est.n_units == 12
-    # and without statsmodels' correction (CR0) the factor G/(G-1) is all that separates them
-    fit0 = sm.OLS(outcome.astype(float), design).fit(
-        cov_type="cluster", cov_kwds={"groups": cluster, "use_correction": False})
-    assert est.standard_error ** 2 == pytest.approx(fit0.bse[1] ** 2 * 12 / 11, rel=1e-10)
+    # the matrix code without the adjustment is statsmodels' CR0
+    bread = np.linalg.inv(design.T @ design)
+    scores = np.zeros((12, 2))
+    np.add.at(scores, cluster, design * fit0.resid[:, None])
+    cr0 = (bread @ scores.T @ scores @ bread)[1, 1]
+    assert cr0 == pytest.approx(fit0.bse[1] ** 2, rel=1e-10)
+    assert variance > cr0 * 12 / 11  # CR2 exceeds CR1's pooled factor with few clusters
 
 
-def test_hajek_interval_uses_student_t_with_g_minus_2_df(twelve_clusters):
-    # documented choice for few clusters (Cameron, Gelbach & Miller 2008): t with G - 2 df
-    cluster, is_treated, outcome = twelve_clusters
+def test_hajek_cr2_with_equal_clusters_is_per_arm_neyman_with_g_minus_2_df():
+    # Equal clusters: CR2 = s1^2/G1 + s0^2/G0 on cluster means and the Bell-McCaffrey df is
+    # G - 2 for equal arms (Imbens & Kolesar 2016, the balanced case; worked by hand in
+    # cr2_arm_difference's docstring); the interval is t with those df.
+    rng = np.random.default_rng(3)
+    cluster = np.repeat(np.arange(8), 5)
+    is_treated = np.isin(np.arange(8), [0, 2, 5, 7])
+    outcome = rng.poisson(4.0, 40)
     est = hajek_cluster(OutcomePanel.from_arrays(fulfilled=outcome),
                         _cluster_schedule(cluster, is_treated), confidence=0.9)
-    half_width = stats.t.ppf(0.95, 10) * est.standard_error
+    means = np.bincount(cluster, weights=outcome) / 5
+    neyman = np.var(means[is_treated], ddof=1) / 4 + np.var(means[~is_treated], ddof=1) / 4
+    assert est.standard_error ** 2 == pytest.approx(neyman, rel=1e-12)
+    assert est.degrees_of_freedom == pytest.approx(6.0, rel=1e-12)
+    half_width = stats.t.ppf(0.95, 6) * est.standard_error
     assert (est.ci_low, est.ci_high) == pytest.approx(
         (est.point - half_width, est.point + half_width), rel=1e-12)
+    # the p-value is the t test's (scipy.stats.ttest_ind with equal_var=False on cluster
+    # means has the same statistic; its df differ, so only the statistic is compared)
+    welch = stats.ttest_ind(means[is_treated], means[~is_treated], equal_var=False)
+    assert est.point / est.standard_error == pytest.approx(welch.statistic, rel=1e-12)
+    assert est.p_value == pytest.approx(2 * stats.t.sf(abs(welch.statistic), 6), rel=1e-12)
 
 
 def _potential_outcomes():
@@ -178,3 +227,26 @@ def test_horvitz_thompson_needs_a_randomized_schedule():
                                  p=float("nan"))
     with pytest.raises(ValueError, match="treated_probability"):
         horvitz_thompson_cluster(panel, schedule)
+
+
+def test_hajek_cr2_is_unbiased_for_the_exact_randomization_variance():
+    # Sharp null, 10 equal clusters, 5 treated: enumerate all 252 assignments. The point's
+    # randomization variance is S^2 (1/G1 + 1/G0) on cluster means, and the Neyman variance
+    # (= CR2 here) has exactly that expectation over the assignments (Neyman 1923; Imbens &
+    # Rubin 2015, Theorem 6.2). The pooled factor G/(G-1) would give (G-2)/(G-1) of it.
+    rng = np.random.default_rng(11)
+    cluster = np.repeat(np.arange(10), 6)
+    outcome = rng.poisson(rng.gamma(2.0, 2.0, 10)[cluster])
+    panel = OutcomePanel.from_arrays(fulfilled=outcome)
+    points, variances = [], []
+    for treated in itertools.combinations(range(10), 5):
+        est = hajek_cluster(panel, _cluster_schedule(cluster, np.isin(np.arange(10), treated)))
+        points.append(est.point)
+        variances.append(est.standard_error ** 2)
+    assert np.mean(points) == pytest.approx(0.0, abs=1e-12)
+    assert np.mean(variances) == pytest.approx(np.var(points), rel=1e-10)
+    # and the t interval's rejection rate over the enumeration is close to its level: the
+    # exact share of assignments whose 95% interval misses 0 (Fisher's sharp null)
+    misses = np.mean([abs(p) / np.sqrt(v) > stats.t.ppf(0.975, 8)
+                      for p, v in zip(points, variances)])
+    assert misses <= 0.05 + 2 * np.sqrt(0.05 * 0.95 / 252)

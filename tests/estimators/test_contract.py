@@ -26,7 +26,8 @@ _SCHEDULE_FIELDS = ("unit_of_user", "is_treated", "period_start_ticks")
 # Helpers, and the test of interference (it returns a test result, not an Estimate; see
 # test_interference.py).
 _HELPERS = {"Estimate", "exposure_probabilities", "switchback_optimal_points",
-            "switchback_exposure_probabilities", "interference_test", "InterferenceTest"}
+            "switchback_exposure_probabilities", "interference_test", "InterferenceTest",
+            "two_way_fixed_effects_period_weights", "redraw_assignment", "randomization_p_value"}
 
 
 def _user_world(rng: np.random.Generator, n_users: int = 40):
@@ -110,6 +111,8 @@ CASES = {
     "hajek_exposure": (estimators.hajek_exposure, _exposure_world),
     "switchback_difference": (estimators.switchback_difference, _switchback_world),
     "difference_in_differences": (estimators.difference_in_differences, _rollout_world),
+    "staggered_difference_in_differences": (estimators.staggered_difference_in_differences,
+                                            _rollout_world),
     "propensity_score_matching": (estimators.propensity_score_matching, _user_world),
     "inverse_probability_weighting": (estimators.inverse_probability_weighting, _user_world),
     "augmented_inverse_probability_weighting": (

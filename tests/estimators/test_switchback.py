@@ -81,8 +81,13 @@ def test_pool_units_weight_by_users():
     # pool 0 has 1 user, pool 1 has 3; 2 periods of 2 ticks; pool 0 arms T C, pool 1 C T.
     # by hand: treated rate (3 + 1 + 6 + 6) / (2*1 + 2*3) = 2, control (0 + 2 + 3 + 0) / 8
     # = 5/8, point 4 * (2 - 5/8) = 5.5. Treated block residuals 4 - 2*2 = 0 and 12 - 2*6 = 0;
-    # control blocks (F, n) = (2, 2), (3, 6): residuals 0.75, -0.75, V = 2 * 1.125 / 8^2,
-    # SE = 4 * sqrt(0.03515625) = 0.75.
+    # control blocks (F, n) = (2, 2), (3, 6): residuals 0.75, -0.75, sum psi^2 = 0.28125.
+    # Small-sample factor of the control arm under the block-effect working model (Bell &
+    # McCaffrey 2002's unbiasing, worked by hand): lambda = 2/4 per position, control rates
+    # 0.75 and 0.5, so the loadings are 0.625 * N = (0.625, 1.875) with squared norm 3.90625,
+    # and Q = 0.625 [[0.75, -0.75], [-0.75, 0.75]] gives tr(QQ') = 0.87890625: kappa =
+    # 4.4444. V = 4.4444 * 0.28125 = 1.25, SE = 1.118 (the pooled factor 2 gave 0.75; the
+    # small pool's block carries a quarter of the arm's users and most of its leverage).
     fulfilled = np.array([[3, 1, 0, 2], [1, 0, 2, 2], [1, 0, 2, 2], [1, 0, 2, 2]])
     pools = np.array([0, 1, 1, 1])
     panel = OutcomePanel.from_arrays(fulfilled=fulfilled, pool_of_user=pools)
@@ -91,7 +96,7 @@ def test_pool_units_weight_by_users():
                                   unit_kind="pool", randomization="complete")
     est = switchback_difference(panel, schedule)
     assert est.point == pytest.approx(5.5, abs=1e-12)
-    assert est.standard_error == pytest.approx(0.75, abs=1e-12)
+    assert est.standard_error == pytest.approx(math.sqrt(1.25), abs=1e-12)
     assert est.n_units == 4
 
 

@@ -53,9 +53,9 @@ def test_user_design_equals_ols_with_hc2(scenario, tmp_path):
 
 
 def test_cluster_design_equals_ols_with_cluster_robust_covariance(scenario, tmp_path):
-    # The Hajek estimate is the OLS slope of y on the arm; its variance is the cluster-robust
-    # sandwich CR0 (Liang & Zeger 1986; statsmodels cov_type="cluster" without its
-    # correction) times G / (G - 1) (Cameron & Miller 2015, J. Human Resources 50, sec. VI).
+    # The Hajek estimate is the OLS slope of y on the arm; its variance is CR2 (Bell &
+    # McCaffrey 2002): each cluster's residual sum from statsmodels' fit scaled by
+    # (1 - N_g / N_a)^(-1/2), N_a the users of its arm (for this regression H_gg = J / N_a).
     write_assignment(assign_design(scenario, "cluster-pools", seed=8, start="2027-03-01"),
                      tmp_path)
     users, orders = _orders(tmp_path, seed=2)
@@ -68,7 +68,13 @@ def test_cluster_design_equals_ols_with_cluster_robust_covariance(scenario, tmp_
     assert estimate.method == "hajek_cluster"
     assert estimate.n_units == n_groups
     assert estimate.point == pytest.approx(fit.params[1], rel=1e-12)
-    expected_variance = fit.cov_params()[1, 1] * n_groups / (n_groups - 1)
+    arm = np.asarray(x)[:, 1] > 0.5
+    residual_sums = np.bincount(groups, weights=np.asarray(fit.resid))
+    sizes = np.bincount(groups).astype(float)
+    group_arm = np.bincount(groups, weights=arm.astype(float)) > 0
+    arm_users = np.where(group_arm, sizes[group_arm].sum(), sizes[~group_arm].sum())
+    expected_variance = float(np.sum(residual_sums ** 2 / ((1 - sizes / arm_users)
+                                                           * arm_users ** 2)))
     assert estimate.standard_error ** 2 == pytest.approx(expected_variance, rel=1e-10)
 
 

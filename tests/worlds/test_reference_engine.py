@@ -164,7 +164,7 @@ def _tight(**over):
                 "pools": {"count": 4, "stock_cover": 0.85}, "calendar": {"days": 4},
                 "effect": {"lift": 0.4}}
     for key, value in over.items():
-        sections[key] = {**sections.get(key, {}), **value}
+        sections[key] = value if key == "design" else {**sections.get(key, {}), **value}
     return make_scenario(**sections)
 
 
@@ -191,7 +191,9 @@ CASES = {
         pools={"count": 3, "stock_cover": 0.6, "on_stockout": "substitute",
                "substitute_share": 1.0, "restock_every_hours": 12, "lead_time_hours": 6},
         graph={"model": "small_world", "mean_degree": 4, "rewire_share": 0.3},
-        effect={"lift": 0.5, "peer_lift": 0.4, "carryover_half_life_hours": 4}),
+        effect={"lift": 0.5, "peer_lift": 0.4, "carryover_half_life_hours": 4},
+        # 3 pools cannot hold two per arm, so the default cluster design is refused
+        design=[{"kind": "user"}, {"kind": "switchback", "block_hours": 24}]),
     "pool_shocks_factors_trend": _tight(
         calendar={"days": 6, "daily_shock_sd": 0.2, "trend_per_week": 0.3},
         pools={"count": 5, "shock_sd": 0.4, "shock_autocorrelation": 0.6, "factor_count": 2,

@@ -9,6 +9,7 @@ from spillgauge.designs._draw import draw_treated_units
 from spillgauge.designs.kind import (
     DesignKind,
     MarketView,
+    check_clusters_per_arm,
     check_graph_clusters,
     cluster_label,
     cluster_source_key,
@@ -89,6 +90,10 @@ class ClusterLevel(DesignKind):
         if spec.clusters != "pools" or spec.exposure != "none":
             check_graph_clusters(spec, scenario,
                                  spec.clusters if spec.exposure == "none" else spec.exposure)
+        if spec.clusters == "pools" and scenario.users.file is None \
+                and scenario.pools.file is None:
+            check_clusters_per_arm(spec, scenario.pools.count, "pools.count",
+                                   scenario.pools.count)
 
     def default_label(self, spec: DesignSpec) -> str:
         label = cluster_label("cluster", spec)
@@ -107,7 +112,9 @@ class ClusterLevel(DesignKind):
         return f"{method}_{family}"
 
     def prepare(self, market: MarketView, spec: DesignSpec) -> None:
-        market.clusters(spec.clusters, resolution=spec.resolution)
+        labels = market.clusters(spec.clusters, resolution=spec.resolution)
+        n_clusters = int(labels.max()) + 1 if labels.size else 0
+        check_clusters_per_arm(spec, n_clusters, f"{spec.at}.clusters", spec.clusters)
         if spec.exposure == "neighbourhood":
             market.neighbourhood_clusters(spec.clusters, resolution=spec.resolution)
 

@@ -26,7 +26,10 @@ from spillgauge.schedule import RANDOMIZATIONS, AssignmentSchedule
 
 __all__ = ["DesignKind", "MarketView", "cluster_source_key",
            "resolution_key", "share_key", "randomization_key", "describe_clusters",
-           "cluster_label", "check_graph_clusters"]
+           "cluster_label", "check_graph_clusters", "clusters_per_arm", "check_clusters_per_arm",
+           "MIN_CLUSTERS_PER_ARM"]
+
+MIN_CLUSTERS_PER_ARM = 2  # a cluster-robust variance needs two clusters in each arm
 
 
 class MarketView(Protocol):
@@ -203,3 +206,38 @@ def check_graph_clusters(spec: DesignSpec, scenario: Scenario, value: object) ->
     """Refuse graph clusters (or exposure) when the scenario has no graph."""
     check(scenario.graph.model != "none", f"{spec.at}.clusters",
           "'pools' when graph.model = 'none' (graph clusters need a graph)", value)
+
+
+def clusters_per_arm(n_clusters: int, share: float, randomization: str) -> int:
+    """Return the fewest clusters an arm can get, as ``draw_treated_units`` draws them.
+
+    Complete randomization treats ``round(share * G)`` clusters (kept in ``[1, G - 1]``);
+    Bernoulli can put every cluster in one arm, so its minimum is 0.
+
+    >>> clusters_per_arm(4, 0.5, "complete"), clusters_per_arm(6, 0.2, "complete")
+    (2, 1)
+    """
+    if randomization == "bernoulli" or n_clusters < 2:
+        return 0
+    n_treated = min(max(round(share * n_clusters), 1), n_clusters - 1)
+    return min(n_treated, n_clusters - n_treated)
+
+
+def check_clusters_per_arm(spec: DesignSpec, n_clusters: int, field: str, value: object) -> None:
+    """Refuse a cluster design whose arms can never hold two clusters each.
+
+    With fewer than :data:`MIN_CLUSTERS_PER_ARM` clusters in an arm the
+    cluster-robust variance is undefined and no replication gives an interval.
+    Complete randomization is judged by its fixed split; Bernoulli needs at least
+    ``2 * MIN_CLUSTERS_PER_ARM`` clusters.
+    """
+    if spec.randomization == "bernoulli":
+        needed = 2 * MIN_CLUSTERS_PER_ARM
+        check(n_clusters >= needed, field,
+              f">= {needed} clusters for a Bernoulli cluster design ({spec.at}: at least "
+              f"{MIN_CLUSTERS_PER_ARM} per arm; this market has {n_clusters})", value)
+        return
+    fewest = clusters_per_arm(n_clusters, spec.share, spec.randomization)
+    check(fewest >= MIN_CLUSTERS_PER_ARM, field,
+          f"enough clusters for at least {MIN_CLUSTERS_PER_ARM} per arm ({spec.at}: share "
+          f"{spec.share:g} of {n_clusters} clusters leaves {fewest} in an arm)", value)

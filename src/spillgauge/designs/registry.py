@@ -12,7 +12,7 @@ from collections.abc import Mapping
 
 from spillgauge.designs.cluster_level import ClusterLevel
 from spillgauge.designs.interference import InterferenceTestDesign
-from spillgauge.designs.kind import DesignKind
+from spillgauge.designs.kind import MIN_CLUSTERS_PER_ARM, DesignKind, clusters_per_arm
 from spillgauge.designs.opt_in import OptIn
 from spillgauge.designs.regional_launch import RegionalLaunch
 from spillgauge.designs.rollout import Rollout
@@ -190,11 +190,23 @@ def check_design(spec: DesignSpec, scenario: Scenario) -> None:
     kind_of(spec).check(spec, scenario)
 
 
-def default_designs() -> tuple[DesignSpec, ...]:
-    """Return the designs of a scenario without ``[[design]]`` tables."""
-    return (make_design_spec("user", index=0),
-            make_design_spec("cluster", clusters="pools", index=1),
-            make_design_spec("switchback", block_hours=24, index=2))
+def default_designs(n_pools: int | None = None) -> tuple[DesignSpec, ...]:
+    """Return the designs of a scenario without ``[[design]]`` tables.
+
+    The pool design is left out when ``n_pools`` pools cannot hold two per arm
+    (a cluster-robust variance needs them); ``None`` means the count is not known
+    yet (pools read from a file).
+
+    >>> [spec.label for spec in default_designs(n_pools=3)]
+    ['user', 'switchback-24h']
+    """
+    designs = [make_design_spec("user", index=0)]
+    cluster = make_design_spec("cluster", clusters="pools", index=1)
+    if n_pools is None or clusters_per_arm(n_pools, cluster.share,
+                                           cluster.randomization) >= MIN_CLUSTERS_PER_ARM:
+        designs.append(cluster)
+    designs.append(make_design_spec("switchback", block_hours=24, index=len(designs)))
+    return tuple(designs)
 
 
 def key_reference() -> str:

@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 from spillgauge.designs.kind import DesignKind, MarketView
+from spillgauge.errors import PeriodWeightWarning
+from spillgauge.estimators.rollout import two_way_fixed_effects_period_weights
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_rollout_schedule", "Rollout"]
+__all__ = ["draw_rollout_schedule", "Rollout", "warn_period_weights"]
 
 
 def draw_rollout_schedule(pool_of_user: np.ndarray, n_ticks: int, *, waves: int,
@@ -59,6 +63,28 @@ def draw_rollout_schedule(pool_of_user: np.ndarray, n_ticks: int, *, waves: int,
                               randomization="complete")
 
 
+def warn_period_weights(spec: DesignSpec, n_pools: int, n_ticks: int) -> None:
+    """Warn with :class:`PeriodWeightWarning` when TWFE weighs the rollout's periods unlike the GTE.
+
+    The weights are those of a rollout of ``n_pools`` equal pools in ``spec.waves`` waves
+    (Goodman-Bacon 2021); the GTE weighs each period by its share of the horizon.
+    """
+    starts = np.floor(np.arange(spec.waves + 1) * n_ticks / (spec.waves + 1)).astype(int)
+    lengths = np.diff(np.append(starts, n_ticks))
+    group = np.arange(n_pools) * (spec.waves + 1) // n_pools
+    adoption = np.where(group == 0, spec.waves + 1, group)
+    is_treated = np.arange(spec.waves + 1)[None, :] >= adoption[:, None]
+    weights = two_way_fixed_effects_period_weights(is_treated, np.ones(n_pools), lengths)
+    gte = lengths / n_ticks
+    if np.max(np.abs(weights - gte)) > 0.01:
+        warnings.warn(f"{spec.at}: two_way_fixed_effects weighs the rollout's periods "
+                      + ", ".join(f"{w:.2f}" for w in weights) + " where the GTE weighs them "
+                      + ", ".join(f"{w:.2f}" for w in gte) + "; when the effect per hour "
+                      "moves with the calendar its estimate is biased (Goodman-Bacon 2021); "
+                      "estimator = \"staggered\" weighs them as the GTE does",
+                      PeriodWeightWarning, stacklevel=2)
+
+
 class Rollout(DesignKind):
     """Pools switch on at random times in waves and stay on."""
 
@@ -71,6 +97,13 @@ class Rollout(DesignKind):
                       "the pools are split at random into waves + 1 groups, group k switching "
                       "on at period k and staying on, one group never (needs at least "
                       "waves + 1 pools)"),
+        DesignKey(name="estimator", type=str, default="staggered",
+                  choices=("staggered", "two_way_fixed_effects"),
+                  doc="`\"staggered\"`: each period's switched-on pools against the "
+                      "not-yet-switched ones, every hour weighted alike as the GTE does "
+                      "(Callaway & Sant'Anna 2021); `\"two_way_fixed_effects\"`: the TWFE "
+                      "regression, whose period weights differ from the GTE's "
+                      "(Goodman-Bacon 2021; a warning says by how much)"),
     )
     shown_keys = ("waves",)
 
@@ -81,15 +114,23 @@ class Rollout(DesignKind):
         n_ticks = scenario.calendar.n_ticks
         check(spec.waves + 1 <= n_ticks, f"{spec.at}.waves",
               f"at most n_ticks - 1 = {n_ticks - 1}", spec.waves)
+        if spec.estimator == "two_way_fixed_effects":
+            warn_period_weights(spec, scenario.pools.count if scenario.pools.file is None
+                                and scenario.users.file is None else spec.waves + 1, n_ticks)
 
     def default_label(self, spec: DesignSpec) -> str:
-        return f"rollout-{spec.waves}-waves"
+        label = f"rollout-{spec.waves}-waves"
+        if spec.estimator == "two_way_fixed_effects":
+            label += "-twfe"
+        return label
 
     def describe_unit(self, spec: DesignSpec) -> str:
         return f"pool, staggered rollout in {spec.waves} waves"
 
     def estimator_name(self, spec: DesignSpec) -> str:
-        return "difference_in_differences"
+        if spec.estimator == "two_way_fixed_effects":
+            return "difference_in_differences"
+        return "staggered_difference_in_differences"
 
     def draw(self, market: MarketView, spec: DesignSpec, *, rng: np.random.Generator
              ) -> AssignmentSchedule:

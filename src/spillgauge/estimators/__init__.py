@@ -27,7 +27,12 @@ from spillgauge.estimators.propensity import (
     inverse_probability_weighting,
     propensity_score_matching,
 )
-from spillgauge.estimators.rollout import difference_in_differences
+from spillgauge.estimators.randomization import randomization_p_value, redraw_assignment
+from spillgauge.estimators.rollout import (
+    difference_in_differences,
+    staggered_difference_in_differences,
+    two_way_fixed_effects_period_weights,
+)
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -49,10 +54,14 @@ __all__ = [
     "hajek_exposure",
     "switchback_difference",
     "difference_in_differences",
+    "staggered_difference_in_differences",
+    "two_way_fixed_effects_period_weights",
     "interference_test",
     "InterferenceTest",
     "switchback_optimal_points",
     "switchback_exposure_probabilities",
+    "redraw_assignment",
+    "randomization_p_value",
     "propensity_score_matching",
     "inverse_probability_weighting",
     "augmented_inverse_probability_weighting",

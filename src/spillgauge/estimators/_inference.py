@@ -26,6 +26,8 @@ __all__ = [
     "build_estimate",
     "degenerate_estimate",
     "neyman_variance",
+    "cr2_arm_difference",
+    "satterthwaite_df",
 ]
 
 
@@ -117,9 +119,13 @@ def build_estimate(point: float, variance: float, *, confidence: float, method: 
     """
     se = math.sqrt(max(float(variance), 0.0))
     level = (1.0 + confidence) / 2.0
-    quantile = float(stats.norm.ppf(level) if df is None else stats.t.ppf(level, df))
+    reference = stats.norm if df is None else stats.t(df)
+    quantile = float(reference.ppf(level))
+    p_value = float(2 * reference.sf(abs(point) / se)) if se > 0 else math.nan
     return Estimate(point=float(point), standard_error=se, ci_low=float(point) - quantile * se,
-                    ci_high=float(point) + quantile * se, method=method, n_units=int(n_units))
+                    ci_high=float(point) + quantile * se, method=method, n_units=int(n_units),
+                    confidence=float(confidence),
+                    degrees_of_freedom=math.inf if df is None else float(df), p_value=p_value)
 
 
 def degenerate_estimate(method: str, reason: str, *, n_units: int,
@@ -154,3 +160,76 @@ def neyman_variance(treated_values: np.ndarray, control_values: np.ndarray) -> f
     """
     return float(np.var(treated_values, ddof=1) / treated_values.size
                  + np.var(control_values, ddof=1) / control_values.size)
+
+
+def cr2_arm_difference(residual_sums: np.ndarray, sizes: np.ndarray,
+                       is_treated: np.ndarray) -> tuple[float, float]:
+    """Return the CR2 variance of a difference of two arm means over clusters, and its df.
+
+    Parameters
+    ----------
+    residual_sums : ndarray of float, shape (G,)
+        Each cluster's residual sum ``e_g = T_g - N_g * mean_a`` (``mean_a`` its arm's
+        user-weighted mean).
+    sizes : ndarray of float, shape (G,)
+        Users per cluster ``N_g`` (all > 0).
+    is_treated : ndarray of bool, shape (G,)
+
+    Returns
+    -------
+    variance, df : float
+        NaN for both when an arm has fewer than 2 clusters.
+
+    Notes
+    -----
+    The difference of the arms' user-weighted means is the OLS slope of
+    ``y ~ 1 + z`` over users. Its CR2 variance (Bell & McCaffrey 2002) adjusts
+    each cluster's residuals by ``(I - H_gg)^(-1/2)``; here ``H_gg = J / N_a``
+    (``N_a`` the users of the cluster's arm), whose inverse square root scales the
+    residual sum by ``(1 - N_g / N_a)^(-1/2)``:
+
+    ``V = sum_a sum_{g in a} e_g^2 / ((1 - N_g / N_a) N_a^2)``.
+
+    With equal clusters this is each arm's own ``G_a / (G_a - 1)`` factor (the
+    Neyman variance of cluster means). The degrees of freedom are Bell and
+    McCaffrey's Satterthwaite approximation under the working model of
+    independent, equal-variance users (Imbens & Kolesar 2016, eq. for ``K_BM``;
+    Pustejovsky & Tipton 2018): writing ``V = y' M y``,
+    ``df = tr(M)^2 / tr(M^2)``, which uses the Gram matrix
+    ``K_gh = N_g [g = h] - N_g N_h / N_a`` within each arm. Equal arms of equal
+    clusters give ``G - 2``.
+
+    Examples
+    --------
+    Four equal clusters, two per arm: each arm's factor is 2 and ``df = 2``.
+
+    >>> v, df = cr2_arm_difference(np.array([1.0, -1.0, 2.0, -2.0]), np.full(4, 2.0),
+    ...                            np.array([True, True, False, False]))
+    >>> round(v, 6), round(df, 6)  # 2 * (1 + 1) / 16 + 2 * (4 + 4) / 16
+    (1.25, 2.0)
+    """
+    variance, trace, trace_square = 0.0, 0.0, 0.0
+    for arm in (is_treated, ~is_treated):
+        if int(arm.sum()) < 2:
+            return math.nan, math.nan
+        n_g = sizes[arm].astype(float)
+        n_a = float(n_g.sum())
+        weight = 1.0 / ((1.0 - n_g / n_a) * n_a ** 2)
+        variance += float(np.sum(weight * residual_sums[arm] ** 2))
+        gram = np.diag(n_g) - np.outer(n_g, n_g) / n_a
+        trace += float(np.sum(weight * np.diag(gram)))
+        trace_square += float(np.sum(np.outer(weight, weight) * gram ** 2))
+    return variance, trace ** 2 / trace_square
+
+
+def satterthwaite_df(parts: list[tuple[float, float]]) -> float:
+    """Return Satterthwaite's degrees of freedom of a sum of independent variance parts.
+
+    ``parts`` holds ``(variance, df)`` pairs; the result is
+    ``(sum v)^2 / sum (v^2 / df)`` (Satterthwaite 1946; Welch 1947).
+
+    >>> round(satterthwaite_df([(1.0, 4.0), (1.0, 4.0)]), 6)
+    8.0
+    """
+    total = sum(v for v, _ in parts)
+    return total ** 2 / sum(v ** 2 / df for v, df in parts)

@@ -3,9 +3,10 @@
 The units are the schedule's assignment units (``schedule.unit_of_user``); a
 unit is treated when ``schedule.is_treated[:, 0]`` says so. Each user's outcome
 is ``panel.user_fulfilled()``. Because these designs often have few clusters,
-every interval here uses Student's t with ``G - 2`` degrees of freedom (``G``
-clusters), the usual small-sample choice for a two-group comparison of cluster
-means (Cameron, Gelbach & Miller 2008).
+every variance here is the CR2 (Bell & McCaffrey 2002) one, per arm, and every
+interval uses Student's t with Bell and McCaffrey's Satterthwaite-type degrees
+of freedom (Imbens & Kolesar 2016; Pustejovsky & Tipton 2018): ``G - 2`` for
+equal arms of equal clusters, fewer when arms or clusters differ in size.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
     check_static,
+    cr2_arm_difference,
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
@@ -81,15 +83,18 @@ def hajek_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     users in treated and control clusters: the treated users' mean minus the
     control users' mean, i.e. the OLS slope of ``y ~ 1 + z``.
 
-    The variance is the cluster-robust (Liang & Zeger 1986) sandwich variance of
-    that slope, CR0, times the small-sample factor ``G / (G - 1)``:
+    The variance is the CR2 cluster-robust variance of that slope (Bell &
+    McCaffrey 2002):
 
-    ``V = G/(G-1) * [sum_{g treated} e_g^2 / N_1^2 + sum_{g control} e_g^2 / N_0^2]``,
+    ``V = sum_a sum_{g in a} e_g^2 / ((1 - N_g / N_a) N_a^2)``,
 
-    with ``e_g = T_g - N_g * (mean of g's arm)`` the cluster's residual sum. This is
-    the linearization variance of the ratio estimator. statsmodels' default
-    cluster correction (CR1) is larger by ``(N - 1) / (N - 2)``. The interval
-    uses Student's t with ``G - 2`` degrees of freedom.
+    with ``e_g = T_g - N_g * (mean of g's arm)`` the cluster's residual sum and
+    ``N_a`` the users of its arm. With equal clusters each arm gets its own factor
+    ``G_a / (G_a - 1)``, so ``V`` is the Neyman variance of cluster means; the
+    pooled CR1 factor ``G / (G - 1)`` would give only ``(G - 2)/(G - 1)`` of it and
+    under-cover with few clusters. The interval uses Student's t with Bell and
+    McCaffrey's degrees of freedom (Imbens & Kolesar 2016), see
+    ``cr2_arm_difference``.
 
     Examples
     --------
@@ -98,9 +103,9 @@ def hajek_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     ...     unit_of_user=np.array([0, 0, 1, 1, 2, 2, 3, 3]),
     ...     is_treated=np.array([[0], [0], [1], [1]], bool), period_start_ticks=[0],
     ...     n_ticks=1, treated_probability=0.5, unit_kind="cluster", randomization="complete")
-    >>> est = hajek_cluster(panel, schedule)  # 22/4 - 8/4; V = 4/3 * (1 + 1) / 4**2
-    >>> est.point, round(est.standard_error ** 2, 6), est.n_units
-    (3.5, 0.166667, 4)
+    >>> est = hajek_cluster(panel, schedule)  # 22/4 - 8/4; V = 2 * (1 + 1) / 4**2
+    >>> est.point, round(est.standard_error ** 2, 6), est.n_units, est.degrees_of_freedom
+    (3.5, 0.25, 4, 2.0)
     """
     method = "hajek_cluster"
     confidence = _check_inputs(panel, schedule, confidence, method)
@@ -121,11 +126,10 @@ def hajek_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, *,
                                    "cluster-robust variance is undefined",
                                    n_units=n_clusters, point=point)
     residual_sums = totals - sizes * np.where(is_treated, mean_treated, mean_control)
-    cr0 = (np.sum(residual_sums[treated] ** 2) / users_treated ** 2
-           + np.sum(residual_sums[control] ** 2) / users_control ** 2)
-    variance = n_clusters / (n_clusters - 1) * cr0
+    variance, df = cr2_arm_difference(residual_sums[has_users], sizes[has_users].astype(float),
+                                      is_treated[has_users])
     return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_clusters, df=n_clusters - 2)
+                          n_units=n_clusters, df=df)
 
 
 def _design_probability(schedule: AssignmentSchedule, is_treated: np.ndarray,
@@ -195,7 +199,10 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
     ``(1/N^2) [sum_{treated} T_g^2 / p^2 + sum_{control} T_g^2 / (1-p)^2]``,
     whose expectation exceeds the true variance by ``sum_g (T_g(1) - T_g(0))^2 / N^2``.
 
-    Both intervals use Student's t with ``G - 2`` degrees of freedom.
+    Complete randomization's variance is the CR2 one of the regression of
+    cluster totals on the arm (each cluster one observation), so its interval uses
+    Bell and McCaffrey's degrees of freedom (Welch's under equal variances:
+    ``G - 2`` for equal arms); Bernoulli's uses ``G - 2``.
 
     Examples
     --------
@@ -223,9 +230,10 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
         if n_treated < 2 or n_control < 2:
             return degenerate_estimate(method, "an arm has a single cluster, so the Neyman "
                                        "variance is undefined", n_units=n_clusters, point=point)
-        variance = (n_clusters / n_users) ** 2 * (
-            np.var(totals[is_treated], ddof=1) / n_treated
-            + np.var(totals[~is_treated], ddof=1) / n_control)
+        residuals = totals - np.where(is_treated, totals[is_treated].mean(),
+                                      totals[~is_treated].mean())
+        variance, df = cr2_arm_difference(residuals, np.ones(n_clusters), is_treated)
+        variance *= (n_clusters / n_users) ** 2
     else:
         if n_clusters < 3:
             return degenerate_estimate(method, "fewer than 3 clusters leave no degrees of "
@@ -233,6 +241,7 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
                                        point=point)
         variance = (np.sum(totals[is_treated] ** 2) / p ** 2
                     + np.sum(totals[~is_treated] ** 2) / (1 - p) ** 2) / n_users ** 2
+        df = n_clusters - 2
     return build_estimate(point, float(variance), confidence=confidence, method=method,
-                          n_units=n_clusters, df=n_clusters - 2)
+                          n_units=n_clusters, df=df)
 

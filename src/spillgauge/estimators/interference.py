@@ -10,7 +10,11 @@ import numpy as np
 from scipy import stats
 
 from spillgauge.errors import DegenerateEstimateWarning
-from spillgauge.estimators._inference import check_common_inputs, check_static
+from spillgauge.estimators._inference import (
+    check_common_inputs,
+    check_static,
+    satterthwaite_df,
+)
 from spillgauge.estimators.cluster_level import hajek_cluster
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.estimators.user_level import difference_in_means
@@ -77,9 +81,11 @@ def interference_test(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     *Detecting network effects: randomizing over randomized experiments*:
     without interference both halves estimate the same effect, so
     ``delta = mu_user - mu_cluster`` has mean 0 and variance at most
-    ``se_user^2 + se_cluster^2`` (conservative Neyman-type variances, the
+    ``se_user^2 + se_cluster^2 + v_split`` (conservative Neyman-type variances, the
     cluster half's with each arm's own ``G_a / (G_a - 1)`` factor; the halves
-    are randomized independently). The user arm uses :func:`difference_in_means`,
+    are randomized independently; ``v_split`` is how much the halves' true effects
+    differ through the random split of clusters when effects differ across
+    clusters, see ``_split_variance``). The user arm uses :func:`difference_in_means`,
     the cluster arm :func:`hajek_cluster` (user-weighted, so both halves target
     the same per-user effect even when clusters differ in size). A positive
     ``delta`` means the user-level design overstates the effect relative to the
@@ -132,8 +138,10 @@ def interference_test(panel: OutcomePanel, schedule: AssignmentSchedule, *,
                          minlength=labels.size)
     sizes = np.bincount(relabelled, minlength=labels.size).astype(float)
     cluster_variance = _neyman_ratio_variance(totals, sizes, cluster_treated)
+    split_variance, split_df = _split_variance(panel.user_fulfilled()[users], treated[users],
+                                               clusters[users], labels.size)
     delta = user_arm.point - cluster_arm.point
-    delta_se = math.sqrt(user_arm.standard_error ** 2 + cluster_variance)
+    delta_se = math.sqrt(user_arm.standard_error ** 2 + cluster_variance + split_variance)
     alpha = 1.0 - confidence
     if not (math.isfinite(delta) and math.isfinite(delta_se) and delta_se > 0):
         warnings.warn(f"{method}: an arm's estimate or its SE is undefined; no test",
@@ -145,13 +153,47 @@ def interference_test(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     # clusters (G - 2 df), the user half's on many users.
     v_user, v_cluster = user_arm.standard_error ** 2, cluster_variance
     df_user, df_cluster = max(user_arm.n_units - 2, 1), max(cluster_arm.n_units - 2, 1)
-    df = (v_user + v_cluster) ** 2 / (v_user ** 2 / df_user + v_cluster ** 2 / df_cluster)
+    parts = [(v_user, df_user), (v_cluster, df_cluster)]
+    if split_variance > 0:
+        parts.append((split_variance, split_df))
+    df = satterthwaite_df(parts)
     return InterferenceTest(
         user_arm=user_arm, cluster_arm=cluster_arm, delta=float(delta),
         delta_se=float(delta_se), statistic=float(statistic),
         p_value=float(2 * stats.t.sf(abs(statistic), df)),
         rejects=bool(abs(statistic) >= stats.t.ppf(1 - alpha / 2, df)),
         rejects_chebyshev=bool(abs(statistic) >= 1 / math.sqrt(alpha)))
+
+
+def _split_variance(outcome: np.ndarray, treated: np.ndarray, cluster: np.ndarray,
+                    n_cluster_half: int) -> tuple[float, float]:
+    """Return how much the two halves' true effects differ through the random split, and its df.
+
+    Without interference the halves still target different effects when the
+    effect differs across clusters: which clusters land in which half is random.
+    For a random split of clusters into ``G_U`` and ``G_C``, the difference of the
+    halves' mean cluster effects has variance ``S_tau^2 (1/G_U + 1/G_C)``, ``S_tau^2``
+    the variance of the cluster effects (Neyman 1923 for two disjoint random
+    samples of a finite population; Pouget-Abadie et al. 2019 and Saveski et al.
+    2017 add this term to the test's variance). ``S_tau^2`` is estimated from the
+    user half, whose clusters each hold treated and control users: the spread of
+    their within-cluster differences in means beyond those differences' own
+    sampling variance. Returns ``(0, inf)`` when fewer than 2 clusters allow it.
+    """
+    effects, noise = [], []
+    for label in np.unique(cluster):
+        members = cluster == label
+        on, off = outcome[members & treated], outcome[members & ~treated]
+        if on.size < 2 or off.size < 2:
+            continue
+        effects.append(on.mean() - off.mean())
+        noise.append(np.var(on, ddof=1) / on.size + np.var(off, ddof=1) / off.size)
+    if len(effects) < 2 or n_cluster_half < 1:
+        return 0.0, math.inf
+    spread = float(np.var(effects, ddof=1) - np.mean(noise))
+    if spread <= 0:
+        return 0.0, math.inf
+    return spread * (1 / len(effects) + 1 / n_cluster_half), float(len(effects) - 1)
 
 
 def _neyman_ratio_variance(totals: np.ndarray, sizes: np.ndarray, treated: np.ndarray) -> float:

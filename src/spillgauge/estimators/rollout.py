@@ -1,4 +1,12 @@
-"""Difference in differences for a staggered rollout over pools (two-way fixed effects)."""
+"""Staggered rollouts over pools: period-by-period difference in differences, and two-way fixed effects.
+
+:func:`staggered_difference_in_differences` targets the GTE: each period's
+switched-on pools against the not-yet-switched ones, aggregated with equal
+weight per hour (Callaway & Sant'Anna 2021; Sun & Abraham 2021).
+:func:`difference_in_differences` is the two-way fixed effects regression, kept
+as a named alternative; its implicit period weights differ from the GTE's
+(Goodman-Bacon 2021), see :func:`two_way_fixed_effects_period_weights`.
+"""
 
 from __future__ import annotations
 
@@ -9,12 +17,14 @@ from spillgauge.estimators._inference import (
     check_common_inputs,
     check_over_time,
     degenerate_estimate,
+    satterthwaite_df,
 )
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
-__all__ = ["difference_in_differences"]
+__all__ = ["difference_in_differences", "staggered_difference_in_differences",
+           "two_way_fixed_effects_period_weights"]
 
 
 def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
@@ -105,3 +115,198 @@ def difference_in_differences(panel: OutcomePanel, schedule: AssignmentSchedule,
     return build_estimate(float(coefficients[-1]) * scale, variance * scale ** 2,
                           confidence=confidence, method=method, n_units=n_pools,
                           df=n_pools - 1)
+
+
+def _pool_period_rates(panel: OutcomePanel, schedule: AssignmentSchedule
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return per-user-tick rates (pools with users x periods), users, period lengths, arms."""
+    lengths = schedule.period_lengths().astype(float)
+    period = schedule.period_of_tick()
+    n_units, n_periods = schedule.n_units, schedule.n_periods
+    totals = np.zeros((n_units, n_periods))
+    np.add.at(totals.T, period, np.asarray(panel.pool_fulfilled, dtype=float)[:n_units].T)
+    users = panel.users_per_pool()[:n_units].astype(float)
+    keep = users > 0
+    rates = totals[keep] / (users[keep][:, None] * lengths[None, :])
+    return rates, users[keep], lengths, schedule.is_treated[keep]
+
+
+def staggered_difference_in_differences(panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                                        confidence: float = 0.95) -> Estimate:
+    """Estimate the GTE of a staggered rollout period by period, with equal weight per hour.
+
+    Parameters
+    ----------
+    panel : OutcomePanel
+    schedule : AssignmentSchedule
+        Units are the pools; periods are the rollout's periods; the first period
+        is the baseline (all control in a rollout drawn by the rollout design).
+    confidence : float, default 0.95
+
+    Returns
+    -------
+    Estimate
+        ``method="staggered_difference_in_differences"``; ``n_units`` is the number
+        of pools with users.
+
+    Warns
+    -----
+    DegenerateEstimateWarning
+        When no period after the first has pools in both arms, or an arm of every
+        such period holds a single pool.
+
+    Notes
+    -----
+    With ``Y_pk`` pool ``p``'s orders per user and tick in period ``k`` and
+    ``d_pk = Y_pk - Y_p0`` its change from the baseline, each period ``k >= 1`` with
+    pools in both arms gives ``tau_k = mean_on(d_k) - mean_off(d_k)`` (user-weighted
+    means over the switched-on and the not-yet-switched pools): the effect per
+    user-tick in period ``k``, unbiased under the random order of the rollout
+    whatever the calendar does to demand (Callaway & Sant'Anna 2021, the
+    not-yet-treated comparison; Sun & Abraham 2021). The GTE gives every hour the
+    same weight, so the estimate is ``T * sum_k L_k tau_k / sum_k L_k`` over the
+    identified periods (``L_k`` their lengths, ``T`` the horizon): the hours of the
+    baseline, which no pool is treated in, get the identified hours' mean effect.
+
+    Variance: the linearization over pools ``psi_p`` (each period's residual of
+    ``d_pk`` about its arm's mean, weighted as in the point), with a small-sample
+    factor and Satterthwaite degrees of freedom from the working model of
+    independent pool-period rates with variance ``1 / (N_p L_k)`` (Bell &
+    McCaffrey 2002; Pustejovsky & Tipton 2018). Market-wide shocks cancel inside
+    each period's comparison but move the effect from period to period; the
+    baseline's effect is extrapolated, so the variance adds
+    ``(L_0 Ybar_0)^2 (1 + 1/K) s^2`` with ``s^2`` the hour-weighted spread of the
+    relative effects ``tau_k / Ybar_off,k`` beyond their sampling variance (``K``
+    identified periods), with ``K - 1`` degrees of freedom.
+
+    Examples
+    --------
+    Four pools of one user, three periods of one tick; pool 3 switches on in
+    period 1, pool 2 in period 2; every switched-on pool gains 1 order per tick:
+
+    >>> panel = OutcomePanel.from_arrays(
+    ...     fulfilled=np.array([[1, 2, 1], [2, 3, 2], [1, 2, 2], [2, 4, 3]]),
+    ...     pool_of_user=np.arange(4))
+    >>> schedule = AssignmentSchedule(
+    ...     unit_of_user=np.arange(4),
+    ...     is_treated=np.array([[0, 0, 0], [0, 0, 0], [0, 0, 1], [0, 1, 1]], bool),
+    ...     period_start_ticks=[0, 1, 2], n_ticks=3, unit_kind="pool",
+    ...     randomization="complete")
+    >>> est = staggered_difference_in_differences(panel, schedule)
+    >>> round(est.point, 6)  # tau_1 = tau_2 = 1; the baseline tick adds 1.5 x 2 / (7/3 + 3/2)
+    2.782609
+    """
+    method = "staggered_difference_in_differences"
+    confidence = _check_inputs(panel, schedule, confidence, method)
+    rates, users, lengths, treated = _pool_period_rates(panel, schedule)
+    n_pools, n_periods = rates.shape
+    change = rates - rates[:, :1]
+    effects, used_lengths, levels, maps = [], [], [], []
+    for k in range(1, n_periods):
+        on, off = treated[:, k], ~treated[:, k]
+        if not on.any() or not off.any():
+            continue
+        weight = np.where(on, users / users[on].sum(), -users / users[off].sum())
+        effects.append(float(weight @ change[:, k]))
+        used_lengths.append(lengths[k])
+        levels.append(float(users[off] @ rates[off, k] / users[off].sum()))
+        maps.append((k, on, weight))
+    if not effects:
+        return degenerate_estimate(method, "no period after the first has pools in both arms",
+                                   n_units=n_pools)
+    effects, used_lengths, levels = np.array(effects), np.array(used_lengths), np.array(levels)
+    horizon = float(schedule.n_ticks)
+    # hours without a comparison (the all-control baseline) get the identified hours' effect
+    # relative to the control level, applied to their own level: the effect per hour moves
+    # with demand (a lift multiplies it) and the baseline's demand is observed
+    missing_hours = horizon - used_lengths.sum()
+    missing_level = float(users @ rates[:, 0] / users.sum()) if missing_hours > 0 else 0.0
+    control_orders = float(used_lengths @ levels)
+    scale = 1.0 + (missing_hours * missing_level / control_orders if control_orders > 0
+                   else missing_hours / used_lengths.sum())
+    hour_weight = scale * used_lengths
+    point = float(hour_weight @ effects)
+    # the estimate is linear in the rates: coefficients (pools x periods) of theta and of
+    # each pool's residualized contribution psi_p (rows: pools; one map per period)
+    theta = np.zeros((n_pools, n_periods))
+    psi_maps = np.zeros((n_periods, n_pools, n_pools))   # psi = sum_k R_k y_k
+    period_variances = []
+    for (k, on, weight), w in zip(maps, hour_weight):
+        theta[:, k] += w * weight
+        theta[:, 0] -= w * weight
+        # residual of d_k about its arm's user-weighted mean: (I - P) d_k
+        share = np.where(on, users / users[on].sum(), users / users[~on].sum())
+        same_arm = on[:, None] == on[None, :]
+        residual_map = np.eye(n_pools) - same_arm * share[None, :]
+        r = w * weight[:, None] * residual_map
+        psi_maps[k] += r
+        psi_maps[0] -= r
+        residual = residual_map @ change[:, k]
+        period_variances.append(float(np.sum((weight * residual) ** 2)))
+    psi = np.einsum("kpq,qk->p", psi_maps, rates)
+    noise = 1.0 / (users[:, None] * lengths[None, :])          # working Var(y_pk)
+    covariance = np.einsum("kpq,qk,krq->pr", psi_maps, noise, psi_maps)
+    target = float(np.sum(theta ** 2 * noise))
+    trace = float(np.trace(covariance))
+    if not trace > 1e-12 * target:
+        return degenerate_estimate(method, "an arm of every period holds a single pool, so "
+                                   "the pool-level variance is undefined", n_units=n_pools,
+                                   point=point)
+    factor = target / trace
+    variance = factor * float(np.sum(psi ** 2))
+    parts = [(variance, trace ** 2 / float(np.sum(covariance ** 2)))]
+    if missing_hours > 0 and effects.size >= 2 and np.all(levels > 0):
+        share = used_lengths / used_lengths.sum()
+        relative = effects / levels
+        spread = float(share @ (relative - share @ relative) ** 2) * effects.size / (
+            effects.size - 1)
+        sampling = float(share @ (np.array(period_variances) / levels ** 2))
+        between = max(spread - sampling, 0.0)
+        extrapolation = (missing_hours * missing_level) ** 2 * (1 + 1 / effects.size) * between
+        if extrapolation > 0:
+            parts.append((extrapolation, effects.size - 1.0))
+            variance += extrapolation
+    df = satterthwaite_df(parts) if len(parts) > 1 else parts[0][1]
+    return build_estimate(point, variance, confidence=confidence, method=method,
+                          n_units=n_pools, df=df)
+
+
+def two_way_fixed_effects_period_weights(is_treated: np.ndarray, users: np.ndarray,
+                                         lengths: np.ndarray) -> np.ndarray:
+    """Return the weight two-way fixed effects give each period's effect, shape ``(n_periods,)``.
+
+    Parameters
+    ----------
+    is_treated : ndarray of bool, shape (n_pools, n_periods)
+    users : ndarray, shape (n_pools,)
+        Users per pool (> 0).
+    lengths : ndarray, shape (n_periods,)
+        Ticks per period.
+
+    Notes
+    -----
+    By Frisch-Waugh-Lovell the weighted TWFE coefficient is
+    ``sum w_pk D~_pk Y_pk / sum w_pk D~_pk D_pk``, ``D~`` the treatment residualized
+    on pool and period effects (weights ``w_pk = N_p L_k``). When the effect per
+    user-tick is ``tau_k`` in period ``k`` (the same for every pool) it returns
+    ``sum_k omega_k tau_k`` with ``omega_k = sum_p w_pk D~_pk D_pk / sum w D~ D``
+    (Goodman-Bacon 2021; de Chaisemartin & D'Haultfoeuille 2020). The GTE weighs
+    period ``k`` by ``L_k / T``; the first, all-control period gets ``omega_0 = 0``.
+
+    Examples
+    --------
+    >>> d = np.array([[0, 0, 0], [0, 0, 1], [0, 1, 1]], bool)
+    >>> np.round(two_way_fixed_effects_period_weights(d, np.ones(3), np.ones(3)), 4).tolist()
+    [0.0, 0.5, 0.5]
+    """
+    n_pools, n_periods = is_treated.shape
+    weights = (np.asarray(users, float)[:, None] * np.asarray(lengths, float)[None, :]).ravel()
+    pool_index = np.repeat(np.arange(n_pools), n_periods)
+    period_index = np.tile(np.arange(n_periods), n_pools)
+    fixed = np.hstack([np.eye(n_pools)[pool_index], np.eye(n_periods)[period_index][:, 1:]])
+    d = is_treated.ravel().astype(float)
+    root = np.sqrt(weights)
+    coefficients, *_ = np.linalg.lstsq(fixed * root[:, None], d * root, rcond=None)
+    residual = d - fixed @ coefficients
+    contribution = (weights * residual * d).reshape(n_pools, n_periods).sum(axis=0)
+    return contribution / contribution.sum()

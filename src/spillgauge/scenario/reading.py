@@ -104,9 +104,9 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
 
     Examples
     --------
-    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 2}})
+    >>> s = parse_scenario({"name": "tiny", "users": {"count": 50}, "pools": {"count": 4}})
     >>> s.users.count, s.pools.count, [d.label for d in s.designs]
-    (50, 2, ['user', 'cluster-pools', 'switchback-24h'])
+    (50, 4, ['user', 'cluster-pools', 'switchback-24h'])
     """
     if not isinstance(data, dict):
         raise ScenarioError("scenario", "a table of sections", data)
@@ -129,7 +129,9 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
                                     "(the file sets it)", users[key])
     raw_designs = data.get("design")
     if raw_designs is None:
-        designs = default_designs()
+        pools, users = sections["pools"], sections["users"]
+        designs = default_designs(
+            n_pools=None if pools.file is not None or users.file is not None else pools.count)
     else:
         if not isinstance(raw_designs, list):
             raise ScenarioError("design", "an array of [[design]] tables", raw_designs)

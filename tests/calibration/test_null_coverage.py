@@ -1,0 +1,189 @@
+"""Null calibration of the estimators' intervals on synthetic worlds.
+
+A 95% interval must cover the truth in about 95% of replications; each check
+uses ``scipy.stats.binomtest`` against 0.95 (two-sided, level 0.001, so a
+correct interval fails about once in a thousand runs). Long runs are marked
+``slow``; the unmarked ones are quick sanity versions with fewer replications.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from spillgauge.estimators import (
+    hajek_cluster,
+    horvitz_thompson_cluster,
+    switchback_difference,
+)
+from tests.calibration.synthetic import cluster_world, switchback_world
+
+
+def coverage(estimates, truths) -> tuple[int, int]:
+    """Return (intervals covering the truth, intervals) over finite intervals."""
+    hits = total = 0
+    for est, truth in zip(estimates, truths):
+        if np.isfinite(est.ci_low) and np.isfinite(est.ci_high):
+            total += 1
+            hits += est.ci_low <= truth <= est.ci_high
+    return hits, total
+
+
+def assert_covers_95(hits: int, total: int) -> None:
+    # Binomial test of coverage = 0.95 (scipy.stats.binomtest), level 0.001.
+    result = stats.binomtest(hits, total, 0.95)
+    assert result.pvalue > 0.001, f"coverage {hits}/{total} = {hits / total:.3f}"
+
+
+def cluster_coverage(estimator, n_clusters: int, reps: int, seed: int, **world):
+    rng = np.random.default_rng(seed)
+    estimates, truths = [], []
+    for _ in range(reps):
+        panel, schedule, gte = cluster_world(n_clusters, rng=rng, **world)
+        estimates.append(estimator(panel, schedule))
+        truths.append(gte)
+    return coverage(estimates, truths)
+
+
+def switchback_coverage(n_blocks: int, burn_in_ticks: int, share: float, reps: int,
+                        seed: int):
+    rng = np.random.default_rng(seed)
+    estimates = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for _ in range(reps):
+            panel, schedule = switchback_world(n_blocks, share=share, rng=rng)
+            estimates.append(switchback_difference(panel, schedule,
+                                                   burn_in_ticks=burn_in_ticks))
+    return coverage(estimates, [0.0] * reps)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [4, 8, 12])
+@pytest.mark.parametrize("unequal", [False, True])
+def test_hajek_cluster_covers_under_the_null(n_clusters, unequal):
+    # CR2 with Bell-McCaffrey degrees of freedom (Bell & McCaffrey 2002; Imbens & Kolesar
+    # 2016) is exact for equal clusters under normal errors and close otherwise.
+    assert_covers_95(*cluster_coverage(hajek_cluster, n_clusters, 4000, n_clusters,
+                                       unequal=unequal))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [4, 8, 12])
+def test_hajek_cluster_covers_with_cluster_heterogeneous_effects(n_clusters):
+    # Neyman (1923): with effects that differ across clusters the per-arm variance is
+    # conservative, so coverage is at least 95% (one-sided check).
+    hits, total = cluster_coverage(hajek_cluster, n_clusters, 4000, 100 + n_clusters,
+                                   effect_sd=1.0)
+    assert stats.binomtest(hits, total, 0.95, alternative="less").pvalue > 0.001, hits / total
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [4, 8, 12])
+def test_horvitz_thompson_cluster_covers_under_the_null(n_clusters):
+    assert_covers_95(*cluster_coverage(horvitz_thompson_cluster, n_clusters, 4000,
+                                       200 + n_clusters))
+
+
+# Known shortfall, measured (3000 replications): 93.3% and 92.0% at 12 and 18 h burn-in with
+# share 0.5, 92-93% at share 0.3. The blocks that did not switch come in runs that share the
+# AR(1) market shocks, which a block-level variance does not see. strict: a fix makes them pass.
+_SHORT = pytest.mark.xfail(strict=True, reason="switchback coverage 92-93%, see comment")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(("share", "burn_in_ticks"), [
+    (0.5, 0), (0.5, 6), pytest.param(0.5, 12, marks=_SHORT), pytest.param(0.5, 18, marks=_SHORT),
+    pytest.param(0.3, 0, marks=_SHORT), pytest.param(0.3, 6, marks=_SHORT),
+    pytest.param(0.3, 12, marks=_SHORT), pytest.param(0.3, 18, marks=_SHORT)])
+def test_switchback_burn_in_covers_under_the_null(share, burn_in_ticks):
+    # 14 daily blocks with AR(1) daily shocks and a diurnal rhythm; sharp null.
+    assert_covers_95(*switchback_coverage(14, burn_in_ticks, share, 3000, burn_in_ticks))
+
+
+def test_hajek_cluster_few_clusters_quick():
+    assert_covers_95(*cluster_coverage(hajek_cluster, 6, 600, 1))
+
+
+def test_switchback_burn_in_quick():
+    assert_covers_95(*switchback_coverage(14, 12, 0.5, 600, 2))
+
+
+def rollout_coverage(reps: int, seed: int, **world):
+    from spillgauge.estimators import staggered_difference_in_differences
+    from tests.calibration.synthetic import rollout_world
+
+    rng = np.random.default_rng(seed)
+    estimates, truths = [], []
+    for _ in range(reps):
+        panel, schedule, gte = rollout_world(rng=rng, **world)
+        estimates.append(staggered_difference_in_differences(panel, schedule))
+        truths.append(gte)
+    errors = np.array([e.point - g for e, g in zip(estimates, truths)])
+    return (*coverage(estimates, truths), errors)
+
+
+ROLLOUT_WORLDS = {
+    "null": {},
+    "daily shocks": {"lift": 0.3, "lift_sd": 0.1, "shock_sd": 0.4, "users_per_pool": 2000,
+                     "rate_per_user_hour": 0.05},
+    "diurnal, 6 h periods": {"lift": 0.3, "waves": 7, "days": 2, "amplitude": 0.9,
+                             "users_per_pool": 2000, "rate_per_user_hour": 0.05},
+}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("world", [
+    "null", "daily shocks",
+    # measured 93.1% (1500 replications): with 6 h periods the extrapolated first period
+    # sits at the trough of the rhythm and its error is larger than the spread term allows
+    pytest.param("diurnal, 6 h periods", marks=pytest.mark.xfail(
+        strict=True, reason="staggered rollout coverage 93.1% under a strong diurnal rhythm"))])
+def test_staggered_rollout_covers_and_is_unbiased(world):
+    # Coverage at least 95% (one-sided binomtest: the extrapolation term for the all-control
+    # period is conservative, 97% was measured under strong daily shocks) and mean error
+    # within 4 Monte Carlo SE of 0: the staggered comparison is design-unbiased for each
+    # period's effect (Callaway & Sant'Anna 2021).
+    hits, total, errors = rollout_coverage(1500, 7, **ROLLOUT_WORLDS[world])
+    assert stats.binomtest(hits, total, 0.95, alternative="less").pvalue > 0.001, hits / total
+    assert abs(errors.mean()) < 4 * errors.std(ddof=1) / np.sqrt(errors.size)
+
+
+def test_staggered_rollout_quick():
+    hits, total, errors = rollout_coverage(300, 8, **ROLLOUT_WORLDS["daily shocks"])
+    assert_covers_95(hits, total)
+    assert abs(errors.mean()) < 4 * errors.std(ddof=1) / np.sqrt(errors.size)
+
+
+def interference_rejections(n_clusters: int, reps: int, seed: int, **world):
+    from spillgauge.estimators import interference_test
+    from tests.calibration.synthetic import interference_world
+
+    rng = np.random.default_rng(seed)
+    rejections = tests = 0
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for _ in range(reps):
+            result = interference_test(*interference_world(n_clusters, rng=rng, **world))
+            if np.isfinite(result.p_value):
+                tests += 1
+                rejections += result.rejects
+    return rejections, tests
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n_clusters", [8, 12, 20])
+def test_interference_test_keeps_its_level_with_heterogeneous_effects(n_clusters):
+    # No interference, effects differing across clusters: rejection at most 5% within
+    # binomial error (one-sided binomtest), as the split-variance term restores
+    # (Pouget-Abadie et al. 2019; Saveski et al. 2017).
+    rejections, tests = interference_rejections(n_clusters, 3000, 40 + n_clusters)
+    assert stats.binomtest(rejections, tests, 0.05, alternative="greater").pvalue > 0.001
+
+
+def test_interference_test_level_quick():
+    rejections, tests = interference_rejections(12, 500, 3)
+    assert stats.binomtest(rejections, tests, 0.05, alternative="greater").pvalue > 0.001
