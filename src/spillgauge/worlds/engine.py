@@ -202,8 +202,8 @@ def _serve_in_order(accepted: np.ndarray, pools: np.ndarray, level: np.ndarray
 
 
 def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
-                    rng: np.random.Generator, events: CandidateEvents | None = None
-                    ) -> list[OutcomePanel]:
+                    rng: np.random.Generator, events: CandidateEvents | None = None,
+                    user_days: bool = True) -> list[OutcomePanel]:
     """Simulate one world per schedule on the same candidate order events.
 
     Parameters
@@ -216,6 +216,11 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     events : CandidateEvents, optional
         Candidates already drawn with :func:`draw_candidates` (then ``rng`` is
         not used).
+    user_days : bool, default True
+        Keep each user's orders per day (``OutcomePanel.fulfilled``, ``demanded``);
+        otherwise the panels hold per-user totals over the horizon only, which is
+        all most designs need and much cheaper at scale. The numbers are the
+        same either way.
 
     Returns
     -------
@@ -275,7 +280,8 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
     return [_panel(market, events, accepted[w], served[w] | substituted[w], substituted[w],
-                   level_at_start[:, w, :], bounds) for w in range(n_worlds)]
+                   level_at_start[:, w, :], bounds, user_days=user_days)
+            for w in range(n_worlds)]
 
 
 def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarray,
@@ -296,7 +302,7 @@ def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarra
 
 def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
            fulfilled: np.ndarray, substituted: np.ndarray, level_at_start: np.ndarray,
-           bounds: np.ndarray) -> OutcomePanel:
+           bounds: np.ndarray, *, user_days: bool) -> OutcomePanel:
     calendar = market.scenario.calendar
     population = market.population
     n_users, n_pools, n_ticks = population.n_users, population.n_pools, calendar.n_ticks
@@ -305,6 +311,9 @@ def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
     def per_user_day(mask: np.ndarray) -> np.ndarray:
         counts = np.bincount(events.user_day[mask], minlength=n_users * n_days)
         return counts.astype(np.int32).reshape(n_users, n_days)
+
+    def per_user(mask: np.ndarray) -> np.ndarray:
+        return np.bincount(events.user[mask], minlength=n_users)
 
     def per_pool_tick(index: np.ndarray) -> np.ndarray:
         return np.bincount(index, minlength=n_pools * n_ticks).reshape(n_pools, n_ticks)
@@ -322,8 +331,12 @@ def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
     for s in range(bounds.size - 1):
         a, b = bounds[s], bounds[s + 1]
         stock[:, a:b] = level_at_start[s][:, None] - np.cumsum(sold[:, a:b], axis=1)
-    return OutcomePanel(fulfilled=per_user_day(fulfilled), demanded=per_user_day(accepted),
-                        pool_of_user=population.pool_of_user, history=population.history,
+    if user_days:
+        users = {"fulfilled": per_user_day(fulfilled), "demanded": per_user_day(accepted)}
+    else:
+        users = {"fulfilled": None, "demanded": None, "fulfilled_total": per_user(fulfilled),
+                 "demanded_total": per_user(accepted)}
+    return OutcomePanel(**users, pool_of_user=population.pool_of_user, history=population.history,
                         pool_fulfilled=pool_fulfilled, pool_demanded=pool_demanded,
                         pool_lost=pool_demanded - pool_fulfilled, pool_stock=stock,
                         tick_hours=calendar.tick_hours)

@@ -1,0 +1,56 @@
+"""Time one replication of a study against its candidate draw, in one process.
+
+Usage: python _replication_child.py SCENARIO [--repeat K] [--profile FILE]
+
+Builds the scenario's market once, then for each of ``repeat`` replications
+times, alternately, the candidate draw alone (``draw_candidates`` on the
+replication's demand stream) and the whole replication (``run_replication``:
+design draws, the truth worlds and every design's world, estimates). Prints
+``replication: key=value ...`` with the medians and their ratio.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import time
+
+import numpy as np
+
+from spillgauge.market.build import build_market
+from spillgauge.scenario.reading import load_scenario
+from spillgauge.seeding import DEMAND, stream
+from spillgauge.study.replication import run_replication
+from spillgauge.worlds.engine import draw_candidates
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("scenario")
+    parser.add_argument("--repeat", type=int, default=3)
+    args = parser.parse_args()
+    scenario = load_scenario(args.scenario)
+    seed = scenario.study.seed
+    t0 = time.perf_counter()
+    market = build_market(scenario, seed)
+    build_s = time.perf_counter() - t0
+    run_replication(scenario, seed, 0, market=market, keep_traces=False)  # warm-up (imports)
+    draws, reps, n_events = [], [], 0
+    for r in range(1, args.repeat + 1):
+        t0 = time.perf_counter()
+        events = draw_candidates(market, rng=np.random.default_rng(stream(seed, r, DEMAND)))
+        draws.append(time.perf_counter() - t0)
+        n_events = events.n_events
+        del events
+        t0 = time.perf_counter()
+        run_replication(scenario, seed, r, market=market, keep_traces=False)
+        reps.append(time.perf_counter() - t0)
+    draw_s, rep_s = statistics.median(draws), statistics.median(reps)
+    print(f"replication: users={market.n_users} worlds={2 + len(scenario.designs)} "
+          f"build_s={build_s:.3f} candidates={n_events} draw_s={draw_s:.4f} "
+          f"replication_s={rep_s:.4f} ratio={rep_s / draw_s:.3f} "
+          f"ns_per_candidate_draw={1e9 * draw_s / n_events:.1f}", flush=True)
+
+
+if __name__ == "__main__":
+    main()
