@@ -32,11 +32,7 @@ from spillgauge.market.calendar import (
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
-from spillgauge.worlds.treatment import (
-    own_dose_of_events,
-    peer_exposure_of_events,
-    unit_dose,
-)
+from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
 
@@ -57,9 +53,6 @@ class CandidateEvents:
         unexposed user.
     uniform : ndarray of float, shape (n_events,)
         The thinning uniform of each event.
-    user_day, pool_tick : ndarray of int, shape (n_events,)
-        Flat indexes ``user * n_days + day`` and ``pool * n_ticks + tick``, computed
-        once for every world's tallies.
     segment_bounds : ndarray of int, shape (n_segments + 1,)
         First tick of each segment (between two stock events), then ``n_ticks``.
     segment_starts : ndarray of int, shape (n_segments + 1,)
@@ -77,8 +70,6 @@ class CandidateEvents:
     segment_starts: np.ndarray
     substitute_uniform: np.ndarray | None
     substitute_pool: np.ndarray | None
-    user_day: np.ndarray
-    pool_tick: np.ndarray
 
     @property
     def n_events(self) -> int:
@@ -137,30 +128,7 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
                            base_accept=base_accept, uniform=uniform,
                            segment_bounds=bounds, segment_starts=segment_starts,
                            substitute_uniform=substitute_uniform,
-                           substitute_pool=substitute_pool,
-                           user_day=user * calendar.days + day,
-                           pool_tick=pool * calendar.n_ticks + tick)
-
-
-def _accepted(market: Market, events: CandidateEvents, schedule: AssignmentSchedule
-              ) -> np.ndarray:
-    """Return which candidate events become orders in a world, shape ``(n_events,)``."""
-    effect = market.scenario.effect
-    calendar = market.scenario.calendar
-    if schedule.n_users != market.n_users or schedule.n_ticks != calendar.n_ticks:
-        raise ValueError("the schedule does not match the market (users or ticks differ)")
-    probability = events.base_accept
-    if not schedule.is_treated.any():
-        return events.uniform < probability
-    dose = unit_dose(schedule, half_life_hours=effect.carryover_half_life_hours,
-                     tick_hours=calendar.tick_hours)
-    probability = probability * (1.0 + effect.lift * own_dose_of_events(
-        dose, schedule.unit_of_user, events.user, events.tick))
-    if effect.peer_lift != 0 and market.adjacency.nnz:
-        exposure = peer_exposure_of_events(market.adjacency, schedule.unit_of_user, dose,
-                                           events.user, events.tick)
-        probability = probability * (1.0 + effect.peer_lift * exposure)
-    return events.uniform < probability
+                           substitute_pool=substitute_pool)
 
 
 def _serve_in_order(accepted: np.ndarray, pools: np.ndarray, level: np.ndarray
@@ -183,20 +151,20 @@ def _serve_in_order(accepted: np.ndarray, pools: np.ndarray, level: np.ndarray
     n_worlds, n = accepted.shape
     if n == 0:
         return accepted.copy(), np.zeros_like(level)
+    # An order is served when its rank among its pool's orders (running count minus the
+    # count before the pool's first order) is within the pool's level: running <= threshold.
     running = np.cumsum(accepted, axis=1, dtype=np.int64)
     is_first = np.empty(n, dtype=bool)
     is_first[0] = True
     np.not_equal(pools[1:], pools[:-1], out=is_first[1:])
     first = np.flatnonzero(is_first)
-    group_of = np.cumsum(is_first) - 1
     before = np.where(first > 0, running[:, np.maximum(first - 1, 0)], 0)  # (n_worlds, groups)
-    rank = running - before[:, group_of]
-    served = accepted & (rank <= np.take_along_axis(level, np.broadcast_to(pools, (n_worlds, n)),
-                                                    axis=1))
-    sold = np.zeros_like(level)
-    last = np.append(first[1:], n) - 1
-    demand = running[:, last] - before
     group_pool = pools[first]
+    threshold = before + level[:, group_pool]
+    sizes = np.diff(np.append(first, n))
+    served = accepted & (running <= np.repeat(threshold, sizes, axis=1))
+    sold = np.zeros_like(level)
+    demand = running[:, first + sizes - 1] - before
     sold[:, group_pool] = np.minimum(demand, level[:, group_pool])
     return served, sold
 
@@ -230,12 +198,13 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     check_rng(rng)
     if events is None:
         events = draw_candidates(market, rng=rng)
+    events = live_events(market, events)  # the events no world keeps change no number
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
     n_worlds, n_pools = len(schedules), population.n_pools
-    accepted = np.stack([_accepted(market, events, s) for s in schedules]) if n_worlds else \
-        np.zeros((0, events.n_events), dtype=bool)
+    accepted = np.stack([accepted_in_world(market, events, s) for s in schedules]) \
+        if n_worlds else np.zeros((0, events.n_events), dtype=bool)
     served = np.zeros_like(accepted)
     substituted = np.zeros_like(accepted)
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
@@ -279,12 +248,13 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
             _substitute(events, accepted, served, substituted, level, lo, hi, pools)
     if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
+    pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of every tally
     return [_panel(market, events, accepted[w], served[w] | substituted[w], substituted[w],
-                   level_at_start[:, w, :], bounds, user_days=user_days)
+                   level_at_start[:, w, :], bounds, pool_tick=pool_tick, user_days=user_days)
             for w in range(n_worlds)]
 
 
-def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarray,
+def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
                 substituted: np.ndarray, level: np.ndarray, lo: int, hi: int, pools) -> None:
     """Send a share of one tick's lost orders to another pool, served from what it has left."""
     lost = accepted[:, lo:hi] & ~served[:, lo:hi]
@@ -300,16 +270,17 @@ def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarra
     level -= sold
 
 
-def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
+def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
            fulfilled: np.ndarray, substituted: np.ndarray, level_at_start: np.ndarray,
-           bounds: np.ndarray, *, user_days: bool) -> OutcomePanel:
+           bounds: np.ndarray, *, pool_tick: np.ndarray, user_days: bool) -> OutcomePanel:
     calendar = market.scenario.calendar
     population = market.population
     n_users, n_pools, n_ticks = population.n_users, population.n_pools, calendar.n_ticks
     n_days = calendar.days
 
     def per_user_day(mask: np.ndarray) -> np.ndarray:
-        counts = np.bincount(events.user_day[mask], minlength=n_users * n_days)
+        user_day = events.user[mask] * n_days + day_of_tick(calendar)[events.tick[mask]]
+        counts = np.bincount(user_day, minlength=n_users * n_days)
         return counts.astype(np.int32).reshape(n_users, n_days)
 
     def per_user(mask: np.ndarray) -> np.ndarray:
@@ -318,11 +289,11 @@ def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
     def per_pool_tick(index: np.ndarray) -> np.ndarray:
         return np.bincount(index, minlength=n_pools * n_ticks).reshape(n_pools, n_ticks)
 
-    pool_fulfilled = per_pool_tick(events.pool_tick[fulfilled])
-    pool_demanded = per_pool_tick(events.pool_tick[accepted])
+    pool_fulfilled = per_pool_tick(pool_tick[fulfilled])
+    pool_demanded = per_pool_tick(pool_tick[accepted])
     if substituted.any():
         served_home = fulfilled & ~substituted
-        sold = per_pool_tick(events.pool_tick[served_home])
+        sold = per_pool_tick(pool_tick[served_home])
         sold += per_pool_tick(events.substitute_pool[substituted] * n_ticks
                               + events.tick[substituted])
     else:
