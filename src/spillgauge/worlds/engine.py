@@ -105,9 +105,14 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     substitute = pools.on_stockout == "substitute" and population.n_pools > 1
     bounds = segment_bounds(pools, calendar, every_tick=substitute)
 
+    segment_of_tick = np.searchsorted(bounds, np.arange(calendar.n_ticks), side="right") - 1
+
     def locate(user: np.ndarray, hour: np.ndarray):
-        tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
-        return tick, np.searchsorted(bounds, tick, side="right") - 1, population.pool_of_user[user]
+        # Hours are >= 0, so truncation is the floor: with one-hour ticks ``hour // 1``.
+        whole = hour.astype(np.int64) if calendar.tick_hours == 1 else \
+            (hour // calendar.tick_hours).astype(np.int64)
+        tick = np.minimum(whole, calendar.n_ticks - 1)
+        return tick, segment_of_tick[tick], population.pool_of_user[user]
 
     tick, segment, pool = locate(user, hour)
     order = np.argsort((segment * population.n_pools + pool).astype(float) + hour / horizon)
