@@ -211,10 +211,10 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     accepted = np.stack([accepted_in_world(market, events, s) for s in schedules]) \
         if n_worlds else np.zeros((0, events.n_events), dtype=bool)
     served = np.zeros_like(accepted)
-    substituted = np.zeros_like(accepted)
+    substitute = events.substitute_pool is not None
+    substituted = np.zeros_like(accepted) if substitute else None
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
     order_up_to = population.order_up_to
-    substitute = events.substitute_pool is not None
     bounds = events.segment_bounds
     n_segments = bounds.size - 1
     level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
@@ -253,9 +253,16 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
             _substitute(events, accepted, served, substituted, level, lo, hi, pools)
     if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
-    pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of every tally
-    return [_panel(market, events, accepted[w], served[w] | substituted[w], substituted[w],
-                   level_at_start[:, w, :], bounds, pool_tick=pool_tick, user_days=user_days)
+    fulfilled = served if substituted is None else served | substituted
+    pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of the pool tallies
+    pool_counts = _count_orders(pool_tick, accepted, fulfilled, n_pools * calendar.n_ticks)
+    user_counts = None if user_days else _count_orders(events.user, accepted, fulfilled,
+                                                       population.n_users)
+    return [_panel(market, events, accepted[w], fulfilled[w],
+                   None if substituted is None else substituted[w],
+                   level_at_start[:, w, :], bounds, pool_tick=pool_tick,
+                   pool_counts=(pool_counts[0][w], pool_counts[1][w]),
+                   user_counts=None if user_days else (user_counts[0][w], user_counts[1][w]))
             for w in range(n_worlds)]
 
 
@@ -275,9 +282,34 @@ def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
     level -= sold
 
 
+def _count_orders(index: np.ndarray, accepted: np.ndarray, fulfilled: np.ndarray,
+                  n_bins: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
+
+    ``index`` gives each event's bin. Orders placed in every world are counted once;
+    a world adds its other placed orders, and its fulfilled orders are its placed
+    ones less its lost ones (fulfilled orders are placed orders), so each world
+    counts only the events where it differs from the rest or lost the sale.
+    """
+    n_worlds = accepted.shape[0]
+    placed = np.empty((n_worlds, n_bins), dtype=np.int64)
+    done = np.empty((n_worlds, n_bins), dtype=np.int64)
+    if n_worlds == 0:
+        return placed, done
+    everywhere = np.logical_and.reduce(accepted, axis=0)
+    common = np.bincount(index[everywhere], minlength=n_bins)
+    for w in range(n_worlds):
+        placed[w] = common + np.bincount(index[accepted[w] & ~everywhere], minlength=n_bins)
+        done[w] = placed[w] - np.bincount(index[accepted[w] & ~fulfilled[w]], minlength=n_bins)
+    return placed, done
+
+
 def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
-           fulfilled: np.ndarray, substituted: np.ndarray, level_at_start: np.ndarray,
-           bounds: np.ndarray, *, pool_tick: np.ndarray, user_days: bool) -> OutcomePanel:
+           fulfilled: np.ndarray, substituted: np.ndarray | None, level_at_start: np.ndarray,
+           bounds: np.ndarray, *, pool_tick: np.ndarray, pool_counts: tuple,
+           user_counts: tuple | None) -> OutcomePanel:
+    """Return a world's panel; ``*_counts`` are its (placed, fulfilled) per pool tick and user,
+    ``user_counts`` None to keep each user's orders per day instead."""
     calendar = market.scenario.calendar
     population = market.population
     n_users, n_pools, n_ticks = population.n_users, population.n_pools, calendar.n_ticks
@@ -288,15 +320,11 @@ def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
         counts = np.bincount(user_day, minlength=n_users * n_days)
         return counts.astype(np.int32).reshape(n_users, n_days)
 
-    def per_user(mask: np.ndarray) -> np.ndarray:
-        return np.bincount(events.user[mask], minlength=n_users)
-
     def per_pool_tick(index: np.ndarray) -> np.ndarray:
         return np.bincount(index, minlength=n_pools * n_ticks).reshape(n_pools, n_ticks)
 
-    pool_fulfilled = per_pool_tick(pool_tick[fulfilled])
-    pool_demanded = per_pool_tick(pool_tick[accepted])
-    if substituted.any():
+    pool_demanded, pool_fulfilled = (counts.reshape(n_pools, n_ticks) for counts in pool_counts)
+    if substituted is not None and substituted.any():
         served_home = fulfilled & ~substituted
         sold = per_pool_tick(pool_tick[served_home])
         sold += per_pool_tick(events.substitute_pool[substituted] * n_ticks
@@ -307,11 +335,11 @@ def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
     for s in range(bounds.size - 1):
         a, b = bounds[s], bounds[s + 1]
         stock[:, a:b] = level_at_start[s][:, None] - np.cumsum(sold[:, a:b], axis=1)
-    if user_days:
+    if user_counts is None:
         users = {"fulfilled": per_user_day(fulfilled), "demanded": per_user_day(accepted)}
     else:
-        users = {"fulfilled": None, "demanded": None, "fulfilled_total": per_user(fulfilled),
-                 "demanded_total": per_user(accepted)}
+        users = {"fulfilled": None, "demanded": None, "fulfilled_total": user_counts[1],
+                 "demanded_total": user_counts[0]}
     return OutcomePanel(**users, pool_of_user=population.pool_of_user, history=population.history,
                         pool_fulfilled=pool_fulfilled, pool_demanded=pool_demanded,
                         pool_lost=pool_demanded - pool_fulfilled, pool_stock=stock,
