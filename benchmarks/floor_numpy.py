@@ -44,7 +44,7 @@ def simulate(workload: ref.Workload, treated: np.ndarray, rate: np.ndarray,
         kept = rng.random(n) * PEAK < ref.diurnal(when)
         users, when = users[kept], when[kept]
         pools = pool_of_user[users]
-        order = np.lexsort((when, pools))  # by pool, then arrival time
+        order = np.argsort(pools + (when - hour))  # by pool, then arrival time in the hour
         users, pools = users[order], pools[order]
         demand = np.bincount(pools, minlength=workload.n_pools)
         first = np.cumsum(demand) - demand
