@@ -27,7 +27,11 @@ ALLOWED = {
     "statistics": BASE | {"statistics"},
     "study": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study"},
     "sweep": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study", "sweep"},
-    "report": BASE | {"statistics", "study", "sweep", "report"},
+    "plan": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics", "study", "plan"},
+    "report": BASE | {"statistics", "study", "sweep", "plan", "report"},
+    # the real experiment: a design's draw and analysis, a study's world and metrics
+    "experiment": BASE | {"market", "worlds", "designs", "estimators", "reading", "statistics",
+                          "study", "experiment"},
 }
 
 

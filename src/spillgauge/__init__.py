@@ -31,9 +31,17 @@ _EXPORTS = {
     "run_study": "spillgauge.study.run",
     "run_truth": "spillgauge.study.run",
     "run_sweep": "spillgauge.sweep.sweep",
+    "plan_study": "spillgauge.plan.plan",
+    "PlanResult": "spillgauge.plan.plan",
     "parse_vary": "spillgauge.sweep.sweep",
     "SweepResult": "spillgauge.sweep.sweep",
     "simulate_worlds": "spillgauge.worlds.engine",
+    "assign_design": "spillgauge.experiment.assignment",
+    "simulate_experiment": "spillgauge.experiment.simulate",
+    "analyze_experiment": "spillgauge.experiment.analyze",
+    "Assignment": "spillgauge.experiment.assignment",
+    "SimulatedExperiment": "spillgauge.experiment.simulate",
+    "ExperimentAnalysis": "spillgauge.experiment.analyze",
 }
 
 __all__ = ["__version__", *sorted(_EXPORTS)]

@@ -128,6 +128,15 @@ def _add_compute(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
+def _add_experiment(p: argparse.ArgumentParser) -> None:
+    _add_common(p, reps=False)
+    p.add_argument("--design", required=True, metavar="LABEL",
+                   help="a design label of the scenario (as `spillgauge run` prints it)")
+    p.add_argument("--start", metavar="DATE", help="the midnight the experiment starts, "
+                   "YYYY-MM-DD (default: the next midnight)")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for the files")
+
+
 def _cmd_report(args) -> int:
     from spillgauge.report import write_report
     from spillgauge.report.text import study_text
@@ -192,6 +201,32 @@ def _cmd_sweep(args) -> int:
     return 0
 
 
+def _cmd_plan(args) -> int:
+    from spillgauge.files import dumps, write_atomic
+    from spillgauge.plan import plan_study, write_plan
+    from spillgauge.plan.figures import save_plan_figures
+    from spillgauge.report.plan_page import render_plan_html
+
+    if args.scheduler:
+        raise ScenarioError("--scheduler", "left out: plan runs on local processes (--workers)",
+                            args.scheduler)
+    scenario = _load(args.scenario)
+    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-plan"
+    bar = _ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json)
+    plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
+                      reps=args.reps, seed=args.seed, workers=args.workers, progress=bar)
+    written = write_plan(plan, out)
+    figures = save_plan_figures(plan, out)
+    write_atomic(out / "plan.html", render_plan_html(plan, figures))
+    if args.json:
+        print(dumps(plan.to_dict()))
+        return 0
+    print(plan.answer())
+    names = [p.name for p in [*written, *figures]] + ["plan.html"]
+    print(f"\nresults: {out}/ ({', '.join(names)})")
+    return 0
+
+
 def _cmd_list(args) -> int:
     from spillgauge.bundled import bundled_scenarios
     from spillgauge.scenario.reading import load_scenario
@@ -200,6 +235,52 @@ def _cmd_list(args) -> int:
         scenario = load_scenario(path)
         summary = " ".join(scenario.description.split())
         print(f"{scenario.name:<14} {summary}")
+    return 0
+
+
+def _cmd_assign(args) -> int:
+    from spillgauge.experiment.assignment import assign_design
+    from spillgauge.experiment.balance import assignment_balance, balance_text
+    from spillgauge.experiment.folder import write_assignment
+
+    scenario = _load(args.scenario)
+    assignment = assign_design(scenario, args.design, seed=args.seed, start=args.start)
+    written = write_assignment(assignment, args.out)
+    schedule = assignment.schedule
+    print(f"{assignment.spec.label}: {assignment.describe()}; seed {assignment.seed}")
+    print(balance_text(assignment_balance(schedule, assignment.history), schedule.unit_kind))
+    print(f"\nwrote {args.out}/ ({', '.join(p.name for p in written)})")
+    print(f"after the experiment: spillgauge analyze {args.out} --orders ORDERS.csv")
+    return 0
+
+
+def _cmd_simulate(args) -> int:
+    from spillgauge.experiment.simulate import simulate_experiment, write_experiment
+    from spillgauge.formatting import format_number
+
+    scenario = _load(args.scenario)
+    experiment = simulate_experiment(scenario, args.design, seed=args.seed, start=args.start)
+    written = write_experiment(experiment, args.out)
+    truth = experiment.truth
+    print(f"{experiment.assignment.spec.label}: one synthetic experiment, seed "
+          f"{experiment.assignment.seed}; true effect (GTE) {format_number(truth.gte, sign=True)} "
+          f"orders per user ({format_number(truth.control_mean)} all control, "
+          f"{format_number(truth.treated_mean)} all treated)")
+    print(f"wrote {args.out}/ ({', '.join(p.name for p in written)})")
+    print(f"next: spillgauge analyze {args.out}")
+    return 0
+
+
+def _cmd_analyze(args) -> int:
+    from spillgauge.experiment.analyze import analysis_record, analysis_text, analyze_experiment
+
+    analysis = analyze_experiment(args.dir, orders=args.orders, study=args.study)
+    if args.json:
+        from spillgauge.files import dumps
+
+        print(dumps(analysis_record(analysis)))
+    else:
+        print(analysis_text(analysis))
     return 0
 
 
@@ -259,6 +340,25 @@ def build_parser() -> argparse.ArgumentParser:
                    help="continue an interrupted sweep from what DIR holds")
     p.set_defaults(func=_cmd_sweep)
 
+    p = sub.add_parser("plan", help="how long to run, and what each design can detect",
+                       description="Run the study once and analyse every design at each "
+                       "duration as the first days of the same worlds: power at the scenario's "
+                       "effect, minimum detectable effect, bias, coverage and trust; answer "
+                       "with the shortest duration at which a trusted design reaches the "
+                       "target power. Writes plan.csv, plan.json, plots and plan.html.")
+    _add_common(p)
+    _add_compute(p)
+    p.add_argument("--days", metavar="D,D,...",
+                   help="durations in days, e.g. 7,14,21,28 (default: whole weeks and the "
+                   "horizon; each at most calendar.days)")
+    p.add_argument("--power", type=float, default=0.8, metavar="P",
+                   help="target power (default 0.8)")
+    p.add_argument("--alpha", type=float, metavar="A",
+                   help="level of the tests (default: the scenario's study.alpha)")
+    p.add_argument("--out", metavar="DIR", help="results folder (default results/<name>-plan)")
+    p.add_argument("--json", action="store_true", help="print plan.json to stdout")
+    p.set_defaults(func=_cmd_plan)
+
     p = sub.add_parser("report", help="re-render the reports of a results folder",
                        description="Rebuild summary.txt, summary.md, the plots and "
                        "report.html from the replications saved in DIR, without simulating.")
@@ -280,6 +380,37 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("name", metavar="NAME", help="scenario name (the file is NAME.toml)")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
     p.set_defaults(func=_cmd_new)
+
+    p = sub.add_parser("assign", help="draw a design's randomization for your market",
+                       description="Draw the real experiment's assignment of one of the "
+                       "scenario's designs (the same draw as replication 0 of a study with "
+                       "the same seed), with the users' ids from the scenario's CSV files. "
+                       "Writes assignment.json, assignment.csv and calendar.csv; prints the "
+                       "balance of pre-period orders by arm.")
+    _add_experiment(p)
+    p.set_defaults(func=_cmd_assign)
+
+    p = sub.add_parser("simulate", help="one synthetic experiment with its known answer",
+                       description="Simulate one experiment of a design as real data would "
+                       "look: the assignment files, orders.csv (user, day), stock.csv (pool, "
+                       "day), pool_orders.csv (pool, hour; designs whose arms change over "
+                       "time) and truth.json (the GTE and both counterfactual worlds).")
+    _add_experiment(p)
+    p.set_defaults(func=_cmd_simulate)
+
+    p = sub.add_parser("analyze", help="analyse an experiment's orders with the design's "
+                       "estimator", description="Read an assignment folder and the "
+                       "experiment's orders, and print the design's own estimate, standard "
+                       "error, interval and p-value (with a study's measured bias, coverage "
+                       "and power for the design when --study is given).")
+    p.add_argument("dir", metavar="DIR", help="a folder written by `spillgauge assign` or "
+                   "`spillgauge simulate`")
+    p.add_argument("--orders", metavar="FILE", help="the orders CSV (default DIR/orders.csv, "
+                   "or DIR/pool_orders.csv for designs whose arms change over time)")
+    p.add_argument("--study", metavar="DIR", help="a results folder of `spillgauge run` on "
+                   "the same scenario, for context")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_cmd_analyze)
 
     p = sub.add_parser("list", help="list the bundled scenarios")
     p.set_defaults(func=_cmd_list)

@@ -44,6 +44,9 @@ class MarketView(Protocol):
     @property
     def pool_of_user(self) -> np.ndarray: ...
 
+    @property
+    def carryover_half_life_hours(self) -> float: ...
+
     def clusters(self, source: str = "pools", *, resolution: float = 1.0) -> np.ndarray: ...
 
     def neighbourhood_clusters(self, source: str = "pools", *, resolution: float = 1.0

@@ -7,6 +7,7 @@ every registered kind by itself).
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Mapping
 
 from spillgauge.designs.cluster_level import ClusterLevel
@@ -14,13 +15,18 @@ from spillgauge.designs.interference import InterferenceTestDesign
 from spillgauge.designs.kind import DesignKind
 from spillgauge.designs.rollout import Rollout
 from spillgauge.designs.switchback import Switchback
+from spillgauge.designs.switchback_minimax import SwitchbackMinimax
 from spillgauge.designs.user_level import UserLevel
 from spillgauge.errors import ScenarioError
+from spillgauge.formatting import format_value
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.keys import coerce
 
 __all__ = ["KINDS", "DESIGN_KINDS", "design_kind", "kind_of", "make_design_spec",
-           "check_design", "default_designs", "key_reference"]
+           "expand_design_specs", "check_design", "default_designs", "key_reference",
+           "MAX_VARIANTS"]
+
+MAX_VARIANTS = 64  # combinations one [[design]] table may expand into
 
 KINDS: Mapping[str, DesignKind] = {kind.name: kind for kind in (
     UserLevel(),
@@ -28,6 +34,7 @@ KINDS: Mapping[str, DesignKind] = {kind.name: kind for kind in (
     Switchback(),
     InterferenceTestDesign(),
     Rollout(),
+    SwitchbackMinimax(),
 )}
 
 DESIGN_KINDS = tuple(KINDS)
@@ -95,6 +102,83 @@ def make_design_spec(kind: str, values: Mapping[str, object] | None = None, /, *
     spec = DesignSpec(kind=kind, label="", values=checked, index=index)
     label = coerce(label, str, f"{at}.label") or design.default_label(spec)
     return DesignSpec(kind=kind, label=label, values=checked, index=index)
+
+
+def _tuned_values(design: DesignKind, values: Mapping[str, object], at: str
+                  ) -> dict[str, list]:
+    """Return the keys given as lists (tuned values), each checked: numeric, non-empty, unique."""
+    declared = {key.name: key for key in design.keys}
+    tuned = {}
+    for name, value in values.items():
+        if not isinstance(value, list):
+            continue
+        key = declared.get(name)
+        if key is None:
+            continue  # make_design_spec names the unknown key
+        if not key.is_numeric:
+            raise ScenarioError(f"{at}.{name}", f"{key.expected()} (only numeric keys take a "
+                                "list of values)", value)
+        if not value:
+            raise ScenarioError(f"{at}.{name}", "a non-empty list of values", value)
+        checked = [key.validate(v, f"{at}.{name}") for v in value]
+        if len(set(checked)) != len(checked):
+            raise ScenarioError(f"{at}.{name}", "a list of distinct values", value)
+        tuned[name] = checked
+    return tuned
+
+
+def _shown_in_label(name: str, combos: list[dict], labels: list[str]) -> bool:
+    """Whether variants that differ only in ``name`` get different labels."""
+    groups: dict[tuple, set[str]] = {}
+    sizes: dict[tuple, int] = {}
+    for combo, label in zip(combos, labels):
+        rest = tuple(sorted((k, v) for k, v in combo.items() if k != name))
+        groups.setdefault(rest, set()).add(label)
+        sizes[rest] = sizes.get(rest, 0) + 1
+    return all(len(groups[k]) == sizes[k] for k in groups)
+
+
+def expand_design_specs(kind: str, values: Mapping[str, object] | None = None, /, *,
+                        label: object = "", index: int = 0) -> tuple[DesignSpec, ...]:
+    """Return one validated spec per combination of the values given as lists (tuned keys).
+
+    A numeric key given as a list (``block_hours = [6, 12, 24]``) expands into one
+    design per value, and several such keys into one per combination, in the
+    order written. Each variant's label shows its values: the kind's readable
+    label when it already tells the variants apart, else ``-<key><value>``
+    appended for each tuned key it does not show (always, after an explicit
+    ``label``). Without a list this is ``(make_design_spec(...),)``.
+
+    Examples
+    --------
+    >>> [s.label for s in expand_design_specs("switchback", {"block_hours": [12, 24]})]
+    ['switchback-12h', 'switchback-24h']
+    >>> [s.label for s in expand_design_specs("user", {"share": [0.2, 0.5]})]
+    ['user-share0.2', 'user-share0.5']
+    """
+    at = f"design[{index}]"
+    values = dict(values or {})
+    design = design_kind(kind, field=f"{at}.kind")
+    tuned = _tuned_values(design, values, at)
+    if not tuned:
+        return (make_design_spec(kind, values, label=label, index=index),)
+    n_variants = 1
+    for options in tuned.values():
+        n_variants *= len(options)
+    if n_variants > MAX_VARIANTS:
+        raise ScenarioError(f"{at}", f"at most {MAX_VARIANTS} combinations of listed values",
+                            n_variants)
+    combos = [dict(zip(tuned, c)) for c in itertools.product(*tuned.values())]
+    specs = [make_design_spec(kind, {**values, **combo}, label=label, index=index)
+             for combo in combos]
+    named = coerce(label, str, f"{at}.label")
+    labels = [spec.label for spec in specs]
+    hidden = [name for name in tuned if named or not _shown_in_label(name, combos, labels)]
+    return tuple(DesignSpec(kind=spec.kind, values=spec.values, index=index,
+                            label=spec.label + "".join(
+                                f"-{name.replace('_', '-')}{format_value(combo[name])}"
+                                for name in hidden))
+                 for spec, combo in zip(specs, combos))
 
 
 def check_design(spec: DesignSpec, scenario: Scenario) -> None:

@@ -76,6 +76,11 @@ class Market:
         """Length of one tick in hours."""
         return self.scenario.calendar.tick_hours
 
+    @property
+    def carryover_half_life_hours(self) -> float:
+        """Half-life of the treatment's effect after a unit leaves treatment, in hours."""
+        return self.scenario.effect.carryover_half_life_hours
+
     def degree(self) -> np.ndarray:
         """Return each user's number of graph neighbours, shape ``(n_users,)``."""
         return np.diff(self.adjacency.indptr)

@@ -17,7 +17,7 @@ from spillgauge.designs.registry import (
     check_design,
     default_designs,
     design_kind,
-    make_design_spec,
+    expand_design_specs,
 )
 from spillgauge.errors import ScenarioError
 from spillgauge.scenario.config import SECTIONS, DesignSpec, Scenario
@@ -51,7 +51,7 @@ def _build(cls: type, table: object, prefix: str, base_dir: Path | None) -> obje
     return cls(**kwargs)
 
 
-def _design(table: object, index: int) -> DesignSpec:
+def _design(table: object, index: int) -> tuple[DesignSpec, ...]:
     at = f"design[{index}]"
     if not isinstance(table, dict):
         raise ScenarioError(at, "a table", table)
@@ -60,7 +60,7 @@ def _design(table: object, index: int) -> DesignSpec:
             map(repr, DESIGN_KINDS)), None)
     design_kind(table["kind"], field=f"{at}.kind")
     values = {k: v for k, v in table.items() if k not in ("kind", "label")}
-    return make_design_spec(table["kind"], values, label=table.get("label", ""), index=index)
+    return expand_design_specs(table["kind"], values, label=table.get("label", ""), index=index)
 
 
 def validate_scenario(scenario: Scenario) -> Scenario:
@@ -133,7 +133,7 @@ def parse_scenario(data: dict, *, base_dir: str | Path | None = None,
     else:
         if not isinstance(raw_designs, list):
             raise ScenarioError("design", "an array of [[design]] tables", raw_designs)
-        designs = tuple(_design(table, i) for i, table in enumerate(raw_designs))
+        designs = tuple(spec for i, table in enumerate(raw_designs) for spec in _design(table, i))
     return validate_scenario(Scenario(name=name, description=description, designs=designs,
                                       source=source, **sections))
 

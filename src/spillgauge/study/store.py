@@ -16,7 +16,7 @@ from spillgauge.study.replication import (
 from spillgauge.scenario import Scenario
 from spillgauge.scenario.reading import scenario_to_dict
 
-__all__ = ["ResultsFolder", "load_study", "FORMAT_VERSION"]
+__all__ = ["ResultsFolder", "load_study", "FORMAT_VERSION", "scenario_fingerprint"]
 
 FORMAT_VERSION = 1
 _STUDY = "study.json"
@@ -37,6 +37,18 @@ def _data_file_digests(scenario: Scenario) -> dict:
             with open(path, "rb") as handle:
                 digests[key] = hashlib.sha256(handle.read()).hexdigest()
     return digests
+
+
+def scenario_fingerprint(scenario: Scenario, seed: int) -> dict:
+    """Return what identifies a study: the scenario's settings (not ``study.reps``), seed and data.
+
+    ``study.json`` holds it; an assignment folder keeps it to name the scenario it
+    was drawn for. Data files are identified by their SHA-256, not their paths.
+    """
+    settings = scenario_to_dict(scenario)
+    settings["study"] = {k: v for k, v in settings["study"].items() if k != "reps"}
+    return {"format": FORMAT_VERSION, "scenario": scenario.name, "seed": int(seed),
+            "settings": settings, "data_files": _data_file_digests(scenario)}
 
 
 def _first_difference(a: object, b: object, prefix: str = "") -> str:
@@ -71,11 +83,7 @@ class ResultsFolder:
 
     def __init__(self, path: str | Path, scenario: Scenario, seed: int) -> None:
         self.path = Path(path)
-        settings = scenario_to_dict(scenario)
-        settings["study"] = {k: v for k, v in settings["study"].items() if k != "reps"}
-        self.fingerprint = {"format": FORMAT_VERSION, "scenario": scenario.name,
-                            "seed": int(seed), "settings": settings,
-                            "data_files": _data_file_digests(scenario)}
+        self.fingerprint = scenario_fingerprint(scenario, seed)
 
     @property
     def log_path(self) -> Path:

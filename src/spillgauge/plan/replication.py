@@ -1,0 +1,154 @@
+"""One replication of a plan: the study's worlds, analysed at every duration as prefixes.
+
+The schedules are drawn from the same streams as :func:`spillgauge.study.run_study`
+draws them (so the whole horizon gives the study's numbers), the worlds are
+simulated once, and each duration cuts the truth worlds and every design's
+world to its first days before the design's own analysis (the registry's
+``analyse``) runs on the cut panel and schedule.
+"""
+
+from __future__ import annotations
+
+import os
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from spillgauge.errors import DegenerateEstimateWarning
+from spillgauge.market.build import Market, build_market
+from spillgauge.plan.prefix import first_days_of_panel, first_ticks_of_schedule
+from spillgauge.scenario import Scenario
+from spillgauge.schedule import AssignmentSchedule
+from spillgauge.seeding import ASSIGNMENT, DEMAND, design_key, stream
+from spillgauge.statistics.truth import ReplicationTruth, replication_truth
+from spillgauge.study.compose import draw_design_schedule, estimate_design
+from spillgauge.worlds.engine import simulate_worlds
+
+__all__ = ["PrefixRun", "PlanReplication", "run_plan_replication", "run_plan_replications"]
+
+
+@dataclass(frozen=True, slots=True)
+class PrefixRun:
+    """One design's analysis of the first days of its world in one replication."""
+
+    point: float
+    standard_error: float
+    ci_low: float
+    ci_high: float
+    degrees_of_freedom: float
+    n_units: int
+    note: str = ""
+
+
+@dataclass(frozen=True, slots=True)
+class PlanReplication:
+    """What one replication of a plan leaves behind.
+
+    Parameters
+    ----------
+    replication : int
+    n_users : int
+    truths : dict of int to ReplicationTruth
+        The truth of the first ``days`` days, per duration.
+    runs : dict of str to dict of int to PrefixRun
+        Per design label and duration.
+    history_correlation : dict of int to float
+        Per duration, the correlation over users between pre-period orders and
+        fulfilled orders of the first days in the all-control world (NaN when
+        either is constant).
+    """
+
+    replication: int
+    n_users: int
+    truths: dict[int, ReplicationTruth]
+    runs: dict[str, dict[int, PrefixRun]]
+    history_correlation: dict[int, float]
+
+
+def _correlation(x: np.ndarray, y: np.ndarray) -> float:
+    if x.size < 2 or np.ptp(x) == 0 or np.ptp(y) == 0:
+        return float("nan")
+    return float(np.corrcoef(x, y)[0, 1])
+
+
+def run_plan_replication(scenario: Scenario, seed: int, replication: int, days: tuple[int, ...],
+                         *, market: Market | None = None) -> PlanReplication:
+    """Run one replication and analyse each design at every duration in ``days``."""
+    market = market if market is not None else build_market(scenario, seed)
+    n_users, n_ticks = market.n_users, scenario.calendar.n_ticks
+    schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),
+                 AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=True)]
+    for spec in scenario.designs:
+        rng = np.random.default_rng(stream(seed, replication, ASSIGNMENT, design_key(spec.label)))
+        schedules.append(draw_design_schedule(market, spec, rng=rng))
+    demand_rng = np.random.default_rng(stream(seed, replication, DEMAND))
+    panels = simulate_worlds(market, schedules, rng=demand_rng)
+    confidence = 1.0 - scenario.study.alpha
+    tick_hours = scenario.calendar.tick_hours
+    ticks_per_day = 24 // tick_hours
+    truths, correlations = {}, {}
+    runs: dict[str, dict[int, PrefixRun]] = {spec.label: {} for spec in scenario.designs}
+    for d in days:
+        control = first_days_of_panel(panels[0], d)
+        truths[d] = replication_truth(control, first_days_of_panel(panels[1], d))
+        correlations[d] = _correlation(control.history, control.user_fulfilled())
+        for spec, schedule, panel in zip(scenario.designs, schedules[2:], panels[2:]):
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", DegenerateEstimateWarning)
+                try:
+                    estimate = estimate_design(
+                        spec, first_days_of_panel(panel, d),
+                        first_ticks_of_schedule(schedule, d * ticks_per_day),
+                        confidence=confidence, tick_hours=tick_hours)
+                except ValueError as exc:  # a design that cannot be analysed this early
+                    runs[spec.label][d] = PrefixRun(*(float("nan"),) * 5, n_units=0,
+                                                    note=str(exc))
+                    continue
+            notes = [str(w.message) for w in caught
+                     if issubclass(w.category, DegenerateEstimateWarning)]
+            runs[spec.label][d] = PrefixRun(
+                point=float(estimate.point), standard_error=float(estimate.standard_error),
+                ci_low=float(estimate.ci_low), ci_high=float(estimate.ci_high),
+                degrees_of_freedom=float(estimate.degrees_of_freedom),
+                n_units=int(estimate.n_units), note=notes[0] if notes else "")
+    return PlanReplication(replication=replication, n_users=n_users, truths=truths, runs=runs,
+                           history_correlation=correlations)
+
+
+def _run_task(scenario: Scenario, seed: int, replication: int, days: tuple[int, ...]
+              ) -> PlanReplication:
+    return run_plan_replication(scenario, seed, replication, days)
+
+
+def run_plan_replications(scenario: Scenario, seed: int, reps: int, days: tuple[int, ...], *,
+                          market: Market, workers: int | None = 1,
+                          progress: Callable[[int, int], None] | None = None
+                          ) -> list[PlanReplication]:
+    """Run ``reps`` replications serially or on local processes; return them in order."""
+    n_workers = max(1, len(os.sched_getaffinity(0))) if workers is None else max(1, workers)
+    results: list[PlanReplication] = []
+    if progress:
+        progress(0, reps)
+    if n_workers == 1 or reps <= 1:
+        for r in range(reps):
+            results.append(run_plan_replication(scenario, seed, r, days, market=market))
+            if progress:
+                progress(len(results), reps)
+    else:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+
+        context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
+        with ProcessPoolExecutor(max_workers=min(n_workers, reps), mp_context=context) as pool:
+            futures = [pool.submit(_run_task, scenario, seed, r, days) for r in range(reps)]
+            try:
+                for future in as_completed(futures):
+                    results.append(future.result())
+                    if progress:
+                        progress(len(results), reps)
+            except BaseException:
+                pool.shutdown(wait=False, cancel_futures=True)
+                raise
+    return sorted(results, key=lambda r: r.replication)

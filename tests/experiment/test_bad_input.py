@@ -1,0 +1,202 @@
+"""Bad files and options: one line naming file, line, column and value; exit 2; nothing written."""
+
+from __future__ import annotations
+
+import csv
+import json
+import re
+from pathlib import Path
+
+import pytest
+
+from spillgauge.cli import main
+from spillgauge.experiment.simulate import simulate_experiment, write_experiment
+from spillgauge.study.run import run_study
+from tests.experiment.conftest import small_market
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory, scenario):
+    out = tmp_path_factory.mktemp("experiment")
+    write_experiment(simulate_experiment(scenario, "user", seed=3, start="2027-03-01"), out)
+    return out
+
+
+def _rows(folder: Path) -> list[list[str]]:
+    with open(folder / "orders.csv", newline="") as handle:
+        return list(csv.reader(handle))
+
+
+def _write(path: Path, rows: list[list[str]]) -> Path:
+    with open(path, "w", newline="") as handle:
+        csv.writer(handle).writerows(rows)
+    return path
+
+
+def _refused(capsys, argv: list[str]) -> str:
+    assert main(argv) == 2
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("spillgauge: error: "), captured.err
+    assert "Traceback" not in captured.err
+    return lines[0]
+
+
+def _edit(row: int, column: int, value: str):
+    def change(rows):
+        rows[row][column] = value
+        return rows
+    return change
+
+
+def _duplicate(rows):
+    rows[6] = list(rows[5])
+    return rows
+
+
+def _drop_orders(rows):
+    return [r[:3] for r in rows]
+
+
+# (what, edit of the rows (row 0 is the header = line 1), line, column, value named)
+CASES = [
+    ("unknown user", _edit(4, 0, "ghost-7"), 5, "user_id", "ghost-7"),
+    ("date after the window", _edit(5, 2, "2027-03-07"), 6, "date", "2027-03-07"),
+    ("date before the window", _edit(2, 2, "2027-02-28"), 3, "date", "2027-02-28"),
+    ("not a date", _edit(3, 2, "03/01/2027"), 4, "date", "03/01/2027"),
+    ("duplicate row", _duplicate, 7, "date", None),
+    ("negative orders", _edit(7, 3, "-1"), 8, "orders", "-1"),
+    ("non-integer orders", _edit(8, 3, "1.5"), 9, "orders", "1.5"),
+    ("not a number", _edit(9, 3, "many"), 10, "orders", "many"),
+    ("another home pool", _edit(10, 1, "no-such-pool"), 11, "pool_id", "no-such-pool"),
+    ("missing column", _drop_orders, 1, "orders", None),
+]
+
+
+@pytest.mark.parametrize("what, edit, line, column, value", CASES, ids=[c[0] for c in CASES])
+def test_bad_orders_are_refused_by_file_line_column_and_value(capsys, folder, tmp_path, what,
+                                                             edit, line, column, value):
+    bad = _write(tmp_path / "orders.csv", edit(_rows(folder)))
+    message = _refused(capsys, ["analyze", str(folder), "--orders", str(bad)])
+    assert f"{bad} line {line} column {column} " in message
+    if value is not None:
+        assert f"got '{value}'" in message
+
+
+def test_the_good_file_is_read(capsys, folder, tmp_path):
+    good = _write(tmp_path / "orders.csv", _rows(folder))
+    assert main(["analyze", str(folder), "--orders", str(good)]) == 0
+    assert "difference_in_means" in capsys.readouterr().out
+
+
+def test_a_header_with_a_byte_order_mark_and_spaces_is_read(capsys, folder, tmp_path):
+    # Spreadsheet exports often start with a UTF-8 byte-order mark and put a space after commas.
+    text = (folder / "orders.csv").read_text().replace(",", ", ")
+    (tmp_path / "orders.csv").write_text("\ufeff" + text, encoding="utf-8")
+    assert main(["analyze", str(folder), "--orders", str(tmp_path / "orders.csv"), "--json"]) == 0
+    again = json.loads(capsys.readouterr().out)
+    assert main(["analyze", str(folder), "--json"]) == 0
+    first = json.loads(capsys.readouterr().out)
+    for key in ("estimate", "standard_error", "ci_low", "ci_high", "n_units"):
+        assert again[key] == first[key]
+
+
+def test_days_without_any_order_are_named(capsys, folder, tmp_path):
+    # An export that stops early reads as zero orders on the last days: analyze says so.
+    rows = [r for r in _rows(folder) if r[2] not in ("2027-03-05", "2027-03-06")]
+    short = _write(tmp_path / "orders.csv", rows)
+    assert main(["analyze", str(folder), "--orders", str(short)]) == 0
+    out = capsys.readouterr().out
+    assert "no orders at all on 2027-03-05, 2027-03-06" in out
+    assert main(["analyze", str(folder)]) == 0
+    assert "no orders at all" not in capsys.readouterr().out
+
+
+def test_an_edited_assignment_is_refused(capsys, folder, tmp_path):
+    import shutil
+
+    copy = tmp_path / "copy"
+    shutil.copytree(folder, copy)
+    with open(copy / "assignment.csv", newline="") as handle:
+        rows = list(csv.reader(handle))
+    column = rows[0].index("arm")
+    rows[3][column] = "control" if rows[3][column] == "treatment" else "treatment"
+    _write(copy / "assignment.csv", rows)
+    message = _refused(capsys, ["analyze", str(copy)])
+    assert "assignment.csv line 4 column arm must be the arm of the user's unit" in message
+
+
+@pytest.fixture(scope="module")
+def studies(tmp_path_factory, scenario):
+    root = tmp_path_factory.mktemp("studies")
+    run_study(scenario, reps=2, seed=3, workers=1, out=root / "same")
+    other = small_market(effect={"lift": 0.5})
+    run_study(other, reps=2, seed=3, workers=1, out=root / "other")
+    # same market, but its design labelled "user" treats 30% of users
+    changed = small_market(design=[{"kind": "user", "share": 0.3, "label": "user"}])
+    run_study(changed, reps=2, seed=3, workers=1, out=root / "changed")
+    return root
+
+
+def test_a_study_of_another_scenario_is_refused(capsys, folder, studies):
+    message = _refused(capsys, ["analyze", str(folder), "--study", str(studies / "other")])
+    assert "--study must be a study of the assignment's scenario 'small_market'" in message
+
+
+def test_a_study_whose_design_has_other_keys_is_refused(capsys, folder, studies):
+    message = _refused(capsys, ["analyze", str(folder), "--study", str(studies / "changed")])
+    assert "--study must be a study holding the design 'user' with the same keys" in message
+
+
+def test_a_study_of_the_same_scenario_gives_context(capsys, folder, studies):
+    assert main(["analyze", str(folder), "--study", str(studies / "same")]) == 0
+    out = capsys.readouterr().out
+    assert re.search(r"in 2 simulations of this market this design's interval covered", out)
+
+
+def test_not_an_assignment_folder(capsys, tmp_path):
+    message = _refused(capsys, ["analyze", str(tmp_path)])
+    assert "DIR must be an assignment folder" in message
+
+
+@pytest.mark.parametrize("option, value, named", [
+    ("--start", "2027-03-01T06:00", "--start must be a midnight"),
+    ("--start", "soon", "--start must be an ISO date"),
+    ("--design", "nope", "--design must be a design label of the scenario"),
+])
+def test_bad_options_write_nothing(capsys, tmp_path, option, value, named):
+    toml = tmp_path / "tiny.toml"
+    toml.write_text('name = "tiny"\n[users]\ncount = 50\n[pools]\ncount = 4\n')
+    options = {"--design": "user", "--out": str(tmp_path / "out"), option: value}
+    argv = ["assign", str(toml), *[part for pair in options.items() for part in pair]]
+    message = _refused(capsys, argv)
+    assert named in message
+    assert not (tmp_path / "out").exists()
+
+
+def test_another_assignment_is_never_overwritten(capsys, tmp_path):
+    toml = tmp_path / "tiny.toml"
+    toml.write_text('name = "tiny"\n[users]\ncount = 50\n[pools]\ncount = 4\n')
+    out = str(tmp_path / "out")
+    assert main(["assign", str(toml), "--design", "user", "--seed", "1", "--start",
+                 "2027-03-01", "--out", out]) == 0
+    before = (tmp_path / "out" / "assignment.csv").read_bytes()
+    # the same assignment again is fine; another seed is refused and leaves the files alone
+    assert main(["assign", str(toml), "--design", "user", "--seed", "1", "--start",
+                 "2027-03-01", "--out", out]) == 0
+    capsys.readouterr()
+    message = _refused(capsys, ["assign", str(toml), "--design", "user", "--seed", "2",
+                                "--start", "2027-03-01", "--out", out])
+    assert "holds another assignment" in message
+    assert (tmp_path / "out" / "assignment.csv").read_bytes() == before
+
+
+def test_a_switchback_needs_the_hour(capsys, scenario, tmp_path):
+    # 2-hour ticks: daily user rows cannot say which block an order fell in.
+    write_experiment(simulate_experiment(scenario, "switchback-12h", seed=3,
+                                         start="2027-03-01"), tmp_path)
+    message = _refused(capsys, ["analyze", str(tmp_path), "--orders",
+                                str(tmp_path / "orders.csv")])
+    assert "orders.csv line 1 column hour must be a column of the header: this design's " \
+        "arms change within a day" in message

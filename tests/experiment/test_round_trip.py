@@ -1,0 +1,135 @@
+"""simulate -> files -> analyze gives the study's own estimate for that replication, bit for bit."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from spillgauge import analyze_experiment, assign_design, simulate_experiment
+from spillgauge.designs.registry import KINDS, kind_of
+from spillgauge.experiment.folder import read_assignment, write_assignment
+from spillgauge.experiment.simulate import write_experiment
+from spillgauge.market.build import build_market
+from spillgauge.seeding import ASSIGNMENT, design_key, stream
+from spillgauge.study.replication import run_replication
+from tests.experiment.conftest import same_estimate
+
+SEED = 23
+
+
+@pytest.fixture(scope="module")
+def replication(scenario):
+    return run_replication(scenario, SEED, 0)
+
+
+def test_every_registered_kind_is_covered(scenario):
+    assert {d.kind for d in scenario.designs} == set(KINDS)
+
+
+@pytest.mark.parametrize("index", range(10))
+def test_simulate_then_analyze_equals_the_study_replication(scenario, replication, tmp_path,
+                                                            index):
+    # The study's code (run_replication: every design's world at once) is the reference.
+    spec = scenario.designs[index]
+    experiment = simulate_experiment(scenario, spec.label, seed=SEED, start="2027-03-01")
+    write_experiment(experiment, tmp_path)
+    analysis = analyze_experiment(tmp_path)
+    expected = replication.runs[spec.label].estimate
+    assert same_estimate(analysis.estimate, expected), (analysis.estimate, expected)
+    assert analysis.note == replication.runs[spec.label].note
+    assert experiment.truth == replication.truth
+
+
+def test_analyze_reads_user_rows_with_hours_for_a_switchback(scenario, replication, tmp_path):
+    # A team may export user rows by hour instead of pool rows: same panel, same estimate.
+    spec = scenario.design("switchback-24h-burn6h-per-pool")
+    experiment = simulate_experiment(scenario, spec.label, seed=SEED, start="2027-03-01")
+    write_experiment(experiment, tmp_path)
+    import pandas as pd
+
+    pools = pd.read_csv(tmp_path / "pool_orders.csv", dtype={"pool_id": str})
+    users = pd.read_csv(tmp_path / "assignment.csv", dtype={"user_id": str, "pool_id": str})
+    first_user = users.groupby("pool_id")["user_id"].first()
+    pools["user_id"] = pools["pool_id"].map(first_user)
+    pools = pools.dropna(subset=["user_id"])
+    pools[["user_id", "date", "hour", "orders"]].to_csv(tmp_path / "by_user.csv", index=False)
+    analysis = analyze_experiment(tmp_path, orders=tmp_path / "by_user.csv")
+    assert same_estimate(analysis.estimate, replication.runs[spec.label].estimate)
+
+
+@pytest.mark.parametrize("index", range(10))
+def test_assignment_is_the_kinds_own_draw_and_reads_back_identical(scenario, tmp_path, index):
+    spec = scenario.designs[index]
+    market = build_market(scenario, SEED)
+    kind = kind_of(spec)
+    kind.prepare(market, spec)
+    drawn = kind.draw(market, spec, rng=np.random.default_rng(
+        stream(SEED, 0, ASSIGNMENT, design_key(spec.label))))
+    assignment = assign_design(scenario, spec.label, seed=SEED, start="2027-03-01")
+    write_assignment(assignment, tmp_path)
+    back = read_assignment(tmp_path)
+    for schedule in (assignment.schedule, back.schedule):
+        for name in ("unit_of_user", "is_treated", "period_start_ticks"):
+            assert np.array_equal(getattr(schedule, name), getattr(drawn, name)), name
+        assert (schedule.unit_kind, schedule.randomization, schedule.n_ticks) == \
+            (drawn.unit_kind, drawn.randomization, drawn.n_ticks)
+        assert schedule.treated_probability == drawn.treated_probability
+        for name in ("cluster_of_user", "is_cluster_arm"):
+            assert (getattr(drawn, name) is None) == (getattr(schedule, name) is None)
+            if getattr(drawn, name) is not None:
+                assert np.array_equal(getattr(drawn, name), getattr(schedule, name))
+        if drawn.exposure_units is not None:
+            assert (schedule.exposure_units != drawn.exposure_units).nnz == 0
+    assert np.array_equal(back.history, assignment.history)
+    assert np.array_equal(back.pool_of_user, assignment.pool_of_user)
+    assert (back.spec.kind, back.spec.label, back.spec.values) == \
+        (assignment.spec.kind, assignment.spec.label, assignment.spec.values)
+
+
+def test_same_seed_same_files_other_seed_other_assignment(scenario, tmp_path):
+    label = "cluster-pools"
+    for name, seed in (("a", 5), ("b", 5), ("c", 6)):
+        write_assignment(assign_design(scenario, label, seed=seed, start="2027-03-01"),
+                         tmp_path / name)
+    for file in ("assignment.csv", "calendar.csv", "assignment.json"):
+        assert (tmp_path / "a" / file).read_bytes() == (tmp_path / "b" / file).read_bytes()
+    assert (tmp_path / "a" / "calendar.csv").read_bytes() != \
+        (tmp_path / "c" / "calendar.csv").read_bytes()
+
+
+def test_ids_come_from_the_users_file(tmp_path):
+    from pathlib import Path
+
+    from spillgauge.scenario.reading import load_scenario
+
+    example = Path(__file__).parents[2] / "docs" / "calibration"
+    scenario = load_scenario(example / "calibrated.toml")
+    assignment = assign_design(scenario, "cluster-pools", seed=1, start="2027-03-01")
+    write_assignment(assignment, tmp_path)
+    import pandas as pd
+
+    users = pd.read_csv(example / "users.csv", dtype=str)
+    written = pd.read_csv(tmp_path / "assignment.csv", dtype=str)
+    assert sorted(written["user_id"]) == sorted(users["user_id"])
+    home = dict(zip(users["user_id"], users["pool_id"]))
+    assert all(home[u] == p for u, p in zip(written["user_id"], written["pool_id"]))
+    history = dict(zip(users["user_id"], users["history_orders"].astype(int)))
+    assert all(history[u] == int(h) for u, h in zip(written["user_id"],
+                                                     written["pre_period_orders"]))
+    # a pool's users share one arm (the unit is the pool, named by its id)
+    assert (written["unit"] == written["pool_id"]).all()
+    assert written.groupby("pool_id")["arm"].nunique().max() == 1
+
+
+def test_a_rollout_names_each_users_switch_on_time(scenario, tmp_path):
+    import pandas as pd
+
+    assignment = assign_design(scenario, "rollout-2-waves", seed=SEED, start="2027-03-01")
+    write_assignment(assignment, tmp_path)
+    users = pd.read_csv(tmp_path / "assignment.csv", dtype=str)
+    calendar = pd.read_csv(tmp_path / "calendar.csv", dtype=str)
+    first = calendar[calendar["arm"] == "treatment"].groupby("unit")["start"].min()
+    expected = users["unit"].map(first).fillna("never")
+    assert (users["switch_on"] == expected).all()
+    # 2 waves on 6 days of 2-hour ticks: periods start at ticks 0, 24 and 48 (days 0, 2, 4)
+    assert set(users["switch_on"]) == {"2027-03-03T00:00", "2027-03-05T00:00", "never"}
