@@ -32,6 +32,12 @@ VARIANTS = [{"kind": name} for name in KINDS] + [
     {"kind": "switchback", "per": "pool", "block_hours": 12, "burn_in_hours": 3},
     {"kind": "interference_test", "clusters": "graph"},
     {"kind": "rollout", "waves": 2},
+    {"kind": "opt_in", "estimator": "naive", "selection_on": "rate"},
+    {"kind": "opt_in", "estimator": "ipw", "selection": 0.0},
+    {"kind": "opt_in", "estimator": "aipw", "take_up": 0.5, "selection": -1.0},
+    {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "did"},
+    {"kind": "regional_launch", "launch_day": 3, "pools": 2, "choose": "random",
+     "estimator": "pre_post"},
 ]
 
 
@@ -121,7 +127,8 @@ def test_analysis_returns_a_full_estimate(market, table):
     assert estimate.ci_low <= estimate.point <= estimate.ci_high
     assert estimate.n_units > 0
     assert math.isfinite(estimate.standard_error)
-    assert (estimate.diagnostic is not None) == (not kind.is_recommendable)
+    # Only a randomized design that is not recommendable is a diagnostic (test of interference).
+    assert (estimate.diagnostic is not None) == (kind.is_randomized and not kind.is_recommendable)
 
 
 @pytest.mark.parametrize("table", VARIANTS, ids=_id)

@@ -90,6 +90,17 @@ def _rollout_world(rng: np.random.Generator, n_users: int = 24):
     return OutcomePanel.from_arrays(fulfilled=per_tick, pool_of_user=pools), schedule
 
 
+def _launch_world(rng: np.random.Generator, n_users: int = 48):
+    from spillgauge.designs.regional_launch import draw_regional_launch_schedule
+
+    pools = np.arange(n_users) % 8
+    schedule = draw_regional_launch_schedule(pools, np.arange(8.0), 48, pools=3,
+                                             choose="largest", launch_tick=24, rng=rng)
+    per_tick = rng.poisson(0.5 + 0.5 * schedule.unit_tick_treated()[pools], (n_users, 48))
+    return OutcomePanel.from_arrays(fulfilled=per_tick, pool_of_user=pools, tick_hours=24), \
+        schedule
+
+
 CASES = {
     "difference_in_means": (estimators.difference_in_means, _user_world),
     "regression_adjusted_difference": (estimators.regression_adjusted_difference, _user_world),
@@ -99,6 +110,14 @@ CASES = {
     "hajek_exposure": (estimators.hajek_exposure, _exposure_world),
     "switchback_difference": (estimators.switchback_difference, _switchback_world),
     "difference_in_differences": (estimators.difference_in_differences, _rollout_world),
+    "propensity_score_matching": (estimators.propensity_score_matching, _user_world),
+    "inverse_probability_weighting": (estimators.inverse_probability_weighting, _user_world),
+    "augmented_inverse_probability_weighting": (
+        estimators.augmented_inverse_probability_weighting, _user_world),
+    "pre_post_difference": (estimators.pre_post_difference, _launch_world),
+    "launch_difference_in_differences": (estimators.launch_difference_in_differences,
+                                         _launch_world),
+    "synthetic_control": (estimators.synthetic_control, _launch_world),
 }
 
 

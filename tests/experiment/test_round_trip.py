@@ -23,7 +23,17 @@ def replication(scenario):
 
 
 def test_every_registered_kind_is_covered(scenario):
-    assert {d.kind for d in scenario.designs} == set(KINDS)
+    # Launches (opt-in, regional launch) are not assigned: assign_design refuses them.
+    assert {d.kind for d in scenario.designs} == {k for k, v in KINDS.items()
+                                                  if v.is_randomized}
+
+
+def test_a_launch_is_not_assigned(scenario):
+    from spillgauge.designs.registry import make_design_spec
+    from spillgauge.errors import ScenarioError
+
+    with pytest.raises(ScenarioError, match=r"--design.*randomized design"):
+        assign_design(scenario, make_design_spec("opt_in", selection_on="rate"), seed=SEED)
 
 
 @pytest.mark.parametrize("index", range(10))

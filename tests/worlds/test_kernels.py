@@ -132,18 +132,41 @@ def test_posterior_rate_draws_keep_the_prior_spread():
 
 
 def test_communities_are_cached_on_disk_and_recomputed_when_damaged(tmp_path, monkeypatch):
+    import hashlib
+
     from spillgauge.market import build as market_module
 
     monkeypatch.setenv("SPILLGAUGE_CACHE", str(tmp_path))
     adjacency = small_world_adjacency(600, 6, 0.1, rng=np.random.default_rng(2))
+    # A cache entry left by the Louvain version (its key: graph, resolution, seed, "v1")
+    # holding a labelling that Leiden would not give: it must be ignored.
+    digest = hashlib.sha256()
+    for part in (adjacency.indptr, adjacency.indices):
+        digest.update(np.ascontiguousarray(part, dtype=np.int64).tobytes())
+    digest.update(f"{1.0!r}/{3}/v1".encode())
+    np.save(tmp_path / f"communities-{digest.hexdigest()[:32]}.npy", np.zeros(600, np.int64))
     first = market_module._cached_communities(adjacency, resolution=1.0, seed=3)
-    files = list(tmp_path.glob("communities-*.npy"))
+    assert first.max() > 0
+    files = list(tmp_path.glob("communities-leiden-*.npz"))
     assert len(files) == 1
     again = market_module._cached_communities(adjacency, resolution=1.0, seed=3)
     np.testing.assert_array_equal(first, again)
-    files[0].write_bytes(b"not a numpy file")
-    repaired = market_module._cached_communities(adjacency, resolution=1.0, seed=3)
-    np.testing.assert_array_equal(first, repaired)
+    # Damaged in three ways: not a file numpy can read, truncated, and well-formed but with
+    # labels that do not match the digest stored beside them. Each is recomputed.
+    good = files[0].read_bytes()
+    for damaged in (b"not a numpy file", good[: len(good) // 2]):
+        files[0].write_bytes(damaged)
+        np.testing.assert_array_equal(
+            market_module._cached_communities(adjacency, resolution=1.0, seed=3), first)
+    with np.load(files[0]) as entry:
+        parts = {name: entry[name] for name in entry.files}
+    parts["labels"] = np.zeros(600, np.int64)
+    np.savez(files[0], **parts)
+    np.testing.assert_array_equal(
+        market_module._cached_communities(adjacency, resolution=1.0, seed=3), first)
     other = market_module._cached_communities(adjacency, resolution=2.0, seed=3)
-    assert len(list(tmp_path.glob("communities-*.npy"))) == 2
+    assert len(list(tmp_path.glob("communities-leiden-*.npz"))) == 2
     assert other.max() >= first.max()
+    monkeypatch.setenv("SPILLGAUGE_CACHE", "off")
+    np.testing.assert_array_equal(
+        market_module._cached_communities(adjacency, resolution=1.0, seed=3), first)

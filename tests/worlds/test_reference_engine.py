@@ -22,6 +22,7 @@ from spillgauge.designs import (
 )
 from spillgauge.market.build import build_market
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.seeding import POOL_SHOCKS, side_stream
 from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from tests.conftest import make_scenario
 
@@ -41,7 +42,38 @@ def _reference_shocks(calendar, seed):
     return [math.exp(v - s * s / 2) for v in x]
 
 
-def reference_world(market, schedule, events, shocks):
+def _reference_pool_shocks(pools, n_pools, days, seed):
+    """docs/model.md "Pool shocks": own AR(1) x_kd as above with (shock_sd, shock_autocorrelation),
+    factors f_jd = factor_sd (e_j0 + ... + e_jd), loadings l_kj, and
+    m_kd = exp(x_kd - s^2/2 + sum_j l_kj f_jd - (d + 1) factor_sd^2 sum_j l_kj^2 / 2).
+    The normals come from the demand stream's pool-shock side stream, in the documented order."""
+    s, rho, q, n_f = pools.shock_sd, pools.shock_autocorrelation, pools.factor_sd, pools.factor_count
+    if s == 0 and q == 0:
+        return [[1.0] * days for _ in range(n_pools)]
+    rng = side_stream(np.random.default_rng(seed), POOL_SHOCKS)
+    own = [[0.0] * days for _ in range(n_pools)]
+    if s > 0:
+        e = rng.standard_normal((n_pools, days)).tolist()
+        for k in range(n_pools):
+            x = s * e[k][0]
+            own[k][0] = x - s * s / 2
+            for d in range(1, days):
+                x = rho * x + s * math.sqrt(1 - rho * rho) * e[k][d]
+                own[k][d] = x - s * s / 2
+    if q > 0:
+        load = rng.standard_normal((n_pools, n_f)).tolist()
+        steps = rng.standard_normal((n_f, days)).tolist()
+        for k in range(n_pools):
+            for d in range(days):
+                value = 0.0
+                for j in range(n_f):
+                    value += load[k][j] * q * sum(steps[j][: d + 1])
+                value -= (d + 1) * q * q * sum(v * v for v in load[k]) / 2
+                own[k][d] += value
+    return [[math.exp(v) for v in row] for row in own]
+
+
+def reference_world(market, schedule, events, shocks, pool_shocks=None):
     """Simulate one world tick by tick and order by order; return the panel's arrays."""
     sc = market.scenario
     cal, pools, effect = sc.calendar, sc.pools, sc.effect
@@ -66,7 +98,11 @@ def reference_world(market, schedule, events, shocks):
     unit = schedule.unit_of_user.tolist()
     # Thinning bound (docs/model.md "Common random numbers", step 1).
     peer = max(1.0, 1.0 + effect.peer_lift) if adj.nnz else 1.0
-    peak = (1 + cal.diurnal_amplitude) * max(1.0, 1.0 + effect.lift) * peer * max(shocks)
+    if pool_shocks is None:
+        pool_shocks = [[1.0] * days for _ in range(n_pools)]
+    g = cal.trend_per_week  # (1 + g) ** (hour / 168), largest at the horizon when g > 0
+    peak = ((1 + cal.diurnal_amplitude) * max(1.0, 1.0 + effect.lift) * peer * max(shocks)
+            * max(max(row) for row in pool_shocks) * max(1.0, (1 + g) ** (days * 24 / 168)))
     by_tick = [[] for _ in range(n_ticks)]
     for e in sorted(range(events.n_events), key=lambda e: events.hour[e]):  # arrival order
         by_tick[min(int(events.hour[e] // th), n_ticks - 1)].append(e)
@@ -94,7 +130,9 @@ def reference_world(market, schedule, events, shocks):
             diurnal = 1 + cal.diurnal_amplitude * math.sin(2 * math.pi * ((hour % 24) - 6) / 24)
             exposure = (sum(dose[unit[j]][t] for j in friends[i]) / len(friends[i])
                         if friends[i] else 0.0)
-            accept = (diurnal * shocks[day] / peak * (1 + effect.lift * dose[unit[i]][t])
+            trend = (1 + g) ** (hour / 168)
+            accept = (diurnal * shocks[day] * pool_shocks[k][day] * trend / peak
+                      * (1 + effect.lift * dose[unit[i]][t])
                       * (1 + effect.peer_lift * exposure))
             if not events.uniform[e] < accept:
                 continue
@@ -154,6 +192,14 @@ CASES = {
                "substitute_share": 1.0, "restock_every_hours": 12, "lead_time_hours": 6},
         graph={"model": "small_world", "mean_degree": 4, "rewire_share": 0.3},
         effect={"lift": 0.5, "peer_lift": 0.4, "carryover_half_life_hours": 4}),
+    "pool_shocks_factors_trend": _tight(
+        calendar={"days": 6, "daily_shock_sd": 0.2, "trend_per_week": 0.3},
+        pools={"count": 5, "shock_sd": 0.4, "shock_autocorrelation": 0.6, "factor_count": 2,
+               "factor_sd": 0.15, "lead_time_hours": 5}),
+    "falling_trend_factors_only": _tight(
+        calendar={"days": 5, "tick_hours": 4, "trend_per_week": -0.4},
+        pools={"count": 4, "factor_count": 3, "factor_sd": 0.2, "on_stockout": "substitute",
+               "substitute_share": 0.5}),
 }
 
 
@@ -184,10 +230,13 @@ def test_engine_equals_the_reference_loop(name):
     panels = simulate_worlds(market, schedules, rng=np.random.default_rng(seed))
     events = draw_candidates(market, rng=np.random.default_rng(seed))
     shocks = _reference_shocks(scenario.calendar, seed)
+    pool_shocks = _reference_pool_shocks(scenario.pools, market.n_pools, scenario.calendar.days,
+                                         seed)
     lost = substituted = 0
     has_carryover = False
     for schedule, panel in zip(schedules, panels):
-        expected, substitutes, dose = reference_world(market, schedule, events, shocks)
+        expected, substitutes, dose = reference_world(market, schedule, events, shocks,
+                                                           pool_shocks)
         # The loop path of the model of docs/model.md (thinning: Lewis & Shedler 1979) must
         # equal the vectorized path exactly (STYLE.md section 5).
         for field in FIELDS:

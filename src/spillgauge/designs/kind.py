@@ -45,6 +45,12 @@ class MarketView(Protocol):
     def pool_of_user(self) -> np.ndarray: ...
 
     @property
+    def history(self) -> np.ndarray: ...
+
+    @property
+    def rate_per_hour(self) -> np.ndarray: ...
+
+    @property
     def carryover_half_life_hours(self) -> float: ...
 
     def clusters(self, source: str = "pools", *, resolution: float = 1.0) -> np.ndarray: ...
@@ -68,9 +74,15 @@ class DesignKind:
         Keys always named when the design is described (others only when off their
         default).
     estimand : str
-        What the design's estimate targets (``"gte"`` for randomized designs).
+        What the design's estimate targets (``"gte"`` for randomized designs); its
+        truth in each replication comes from :meth:`truth`.
+    question : str
+        The estimand in words, for the report.
     is_recommendable : bool
-        Whether the recommendation may choose it (a diagnostic may not).
+        Whether the recommendation may choose it (a diagnostic or a launch may not).
+    is_randomized : bool
+        Whether the design randomizes (False for a launch: the report shows it apart,
+        in "if you do not randomize").
     is_user_level : bool
         Whether units are single users: the recommendation measures other designs'
         spillover against it.
@@ -88,7 +100,9 @@ class DesignKind:
     keys: ClassVar[tuple[DesignKey, ...]] = ()
     shown_keys: ClassVar[tuple[str, ...]] = ()
     estimand: ClassVar[str] = "gte"
+    question: ClassVar[str] = "the global treatment effect (GTE)"
     is_recommendable: ClassVar[bool] = True
+    is_randomized: ClassVar[bool] = True
     is_user_level: ClassVar[bool] = False
     keeps_switch_profile: ClassVar[bool] = False
     needs_user_days: ClassVar[bool] = False
@@ -118,6 +132,18 @@ class DesignKind:
     def draw(self, market: MarketView, spec: DesignSpec, *, rng: np.random.Generator
              ) -> AssignmentSchedule:
         """Draw one assignment schedule of the design in a market."""
+        raise NotImplementedError
+
+    def truth(self, spec: DesignSpec, schedule: AssignmentSchedule, panel: OutcomePanel,
+              control: OutcomePanel) -> tuple[float, float]:
+        """Return the truth of the design's estimand in one replication, and a side effect.
+
+        Only kinds whose ``estimand`` is not ``"gte"`` are asked (the GTE comes from
+        the two counterfactual worlds). ``panel`` is the design's own world (for a
+        launch, the launch as it would happen) and ``control`` the all-control
+        world, on the same random numbers. The side effect is the launch's effect
+        on the users it leaves out (NaN when there is none).
+        """
         raise NotImplementedError
 
     def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,

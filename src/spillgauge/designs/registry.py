@@ -13,6 +13,8 @@ from collections.abc import Mapping
 from spillgauge.designs.cluster_level import ClusterLevel
 from spillgauge.designs.interference import InterferenceTestDesign
 from spillgauge.designs.kind import DesignKind
+from spillgauge.designs.opt_in import OptIn
+from spillgauge.designs.regional_launch import RegionalLaunch
 from spillgauge.designs.rollout import Rollout
 from spillgauge.designs.switchback import Switchback
 from spillgauge.designs.switchback_minimax import SwitchbackMinimax
@@ -35,6 +37,8 @@ KINDS: Mapping[str, DesignKind] = {kind.name: kind for kind in (
     InterferenceTestDesign(),
     Rollout(),
     SwitchbackMinimax(),
+    OptIn(),
+    RegionalLaunch(),
 )}
 
 DESIGN_KINDS = tuple(KINDS)

@@ -17,6 +17,16 @@ from spillgauge.estimators.exposure import (
     horvitz_thompson_exposure,
 )
 from spillgauge.estimators.interference import InterferenceTest, interference_test
+from spillgauge.estimators.launch import (
+    launch_difference_in_differences,
+    pre_post_difference,
+    synthetic_control,
+)
+from spillgauge.estimators.propensity import (
+    augmented_inverse_probability_weighting,
+    inverse_probability_weighting,
+    propensity_score_matching,
+)
 from spillgauge.estimators.rollout import difference_in_differences
 from spillgauge.estimators.switchback import (
     switchback_difference,
@@ -43,4 +53,10 @@ __all__ = [
     "InterferenceTest",
     "switchback_optimal_points",
     "switchback_exposure_probabilities",
+    "propensity_score_matching",
+    "inverse_probability_weighting",
+    "augmented_inverse_probability_weighting",
+    "pre_post_difference",
+    "launch_difference_in_differences",
+    "synthetic_control",
 ]

@@ -171,7 +171,8 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
     Raises
     ------
     ScenarioError
-        For an unknown label, a seed out of range or a start that is not a midnight.
+        For an unknown label, a launch (not randomized), a seed out of range or a
+        start that is not a midnight.
     """
     from spillgauge.market.build import build_market
     from spillgauge.study.store import scenario_fingerprint
@@ -191,6 +192,10 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
     seed = int(seed)
     begin = parse_start(start)
     kind = kind_of(spec)
+    if not kind.is_randomized:
+        raise ScenarioError("--design", "a randomized design (a launch such as "
+                            f"{spec.kind!r} is not assigned: users or regions choose)",
+                            spec.label)
     kind.check(spec, scenario)
     market = build_market(scenario, seed) if market is None else market
     kind.prepare(market, spec)

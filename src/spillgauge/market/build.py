@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import os
 import tempfile
+import zipfile
 from collections import OrderedDict
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,6 +17,7 @@ from spillgauge.errors import ScenarioError
 from spillgauge.market.graph import (
     adjacency_from_edges,
     closed_neighbourhood_units,
+    community_algorithm,
     detect_communities,
     pool_block_adjacency,
     small_world_adjacency,
@@ -67,6 +69,16 @@ class Market:
         return self.population.pool_of_user
 
     @property
+    def history(self) -> np.ndarray:
+        """Each user's pre-period orders, shape ``(n_users,)``."""
+        return self.population.history
+
+    @property
+    def rate_per_hour(self) -> np.ndarray:
+        """Each user's base demand rate, orders per hour, shape ``(n_users,)``."""
+        return self.population.rate_per_hour
+
+    @property
     def n_ticks(self) -> int:
         """Number of ticks in the horizon."""
         return self.scenario.calendar.n_ticks
@@ -91,13 +103,13 @@ class Market:
         Parameters
         ----------
         source : {"pools", "graph", "pools+graph"}
-            ``"pools"``: each stock pool is a cluster. ``"graph"``: Louvain
+            ``"pools"``: each stock pool is a cluster. ``"graph"``: Leiden
             communities of the social graph at ``resolution``. ``"pools+graph"``:
             communities kept whole, each joined to the pool most of its members
             call home, so a cluster holds whole communities and (mostly) whole
             pools.
         resolution : float
-            Louvain resolution; larger values give more, smaller communities.
+            Modularity resolution; larger values give more, smaller communities.
         """
         if source not in CLUSTER_SOURCES:
             raise ScenarioError("design.clusters", "one of " + ", ".join(CLUSTER_SOURCES), source)
@@ -107,7 +119,7 @@ class Market:
                 labels = self.pool_of_user
             else:
                 communities = _cached_communities(self.adjacency, resolution=resolution,
-                                                  seed=self.seed % (2**32))
+                                                  seed=self.seed)
                 if source == "graph":
                     labels = communities
                 else:
@@ -168,38 +180,65 @@ def _cache_dir() -> Path | None:
     return Path(base) / "spillgauge"
 
 
+_COMMUNITIES = 2  # market stream key of community detection (0, 1: population, graph)
+
+
 def _cached_communities(adjacency: sparse.csr_array, *, resolution: float, seed: int
                         ) -> np.ndarray:
-    """Louvain communities, kept on disk keyed by the graph's contents, resolution and seed.
+    """Leiden communities, kept on disk keyed by the graph, resolution, seed and method.
 
-    Community detection is the slowest step of building a large market (about a
-    minute at 100,000 users); the cache lets ``check``, ``run`` and later
-    sweeps of the same graph skip it. A damaged or unreadable cache entry is
-    recomputed.
+    The random numbers come from the study seed's market stream. The key holds
+    :func:`~spillgauge.market.graph.community_algorithm` (method, iterations,
+    igraph version), so communities found another way (an older cache made by
+    Louvain, another igraph) are never reused. The file also records its key and
+    a digest of its labels; an entry that cannot be read, does not match its key
+    or its digest, or is not a labelling of these users is recomputed.
     """
     folder = _cache_dir()
     digest = hashlib.sha256()
     for part in (adjacency.indptr, adjacency.indices):
         digest.update(np.ascontiguousarray(part, dtype=np.int64).tobytes())
-    digest.update(f"{resolution!r}/{seed}/v1".encode())
-    path = folder / f"communities-{digest.hexdigest()[:32]}.npy" if folder else None
+    digest.update(f"{resolution!r}/{seed}/{community_algorithm()}".encode())
+    key = digest.hexdigest()
+    path = folder / f"communities-leiden-{key[:32]}.npz" if folder else None
     if path is not None and path.is_file():
-        try:
-            labels = np.load(path, allow_pickle=False)
-            if labels.shape == (adjacency.shape[0],) and labels.dtype.kind == "i":
-                return labels
-        except (OSError, ValueError):
-            pass
-    labels = detect_communities(adjacency, resolution=resolution, seed=seed)
+        labels = _read_communities(path, key, adjacency.shape[0])
+        if labels is not None:
+            return labels
+    rng = np.random.default_rng(stream(seed, None, MARKET, _COMMUNITIES))
+    labels = detect_communities(adjacency, resolution=resolution, rng=rng)
     if path is not None:
         try:
             folder.mkdir(parents=True, exist_ok=True)
-            handle, temporary = tempfile.mkstemp(dir=folder, suffix=".npy.tmp")
-            with os.fdopen(handle, "wb") as stream:
-                np.save(stream, labels, allow_pickle=False)
+            handle, temporary = tempfile.mkstemp(dir=folder, suffix=".npz.tmp")
+            with os.fdopen(handle, "wb") as out:
+                np.savez(out, labels=labels, key=np.array(key),
+                         labels_sha256=np.array(_labels_digest(labels)))
             os.replace(temporary, path)
         except OSError:
             pass  # a cache that cannot be written is only slower
+    return labels
+
+
+def _labels_digest(labels: np.ndarray) -> str:
+    return hashlib.sha256(np.ascontiguousarray(labels, dtype=np.int64).tobytes()).hexdigest()
+
+
+def _read_communities(path: Path, key: str, n_users: int) -> np.ndarray | None:
+    """Return the cached labels at ``path``, or None if the entry cannot be trusted."""
+    try:
+        with np.load(path, allow_pickle=False) as entry:
+            labels = entry["labels"]
+            stored_key = str(entry["key"])
+            stored_digest = str(entry["labels_sha256"])
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):
+        return None
+    if (stored_key != key or labels.shape != (n_users,) or labels.dtype != np.int64
+            or stored_digest != _labels_digest(labels)):
+        return None
+    if n_users and (labels[0] != 0 or np.any(np.diff(np.maximum.accumulate(labels)) > 1)
+                    or labels.min() < 0):
+        return None  # not numbered 0..k-1 by smallest member
     return labels
 
 

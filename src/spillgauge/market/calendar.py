@@ -14,9 +14,10 @@ import numpy as np
 import simpy
 
 from spillgauge.scenario import Calendar, Pools
+from spillgauge.seeding import check_rng
 
 __all__ = ["diurnal_multiplier", "day_of_tick", "start_stock_calendar", "stock_event_hours",
-           "segment_bounds", "draw_daily_shocks"]
+           "segment_bounds", "draw_daily_shocks", "trend_multiplier", "draw_pool_shocks"]
 
 _TWO_PI_24 = 2.0 * np.pi / 24.0
 
@@ -160,3 +161,77 @@ def draw_daily_shocks(calendar: Calendar, *, rng: np.random.Generator) -> np.nda
     for day in range(1, calendar.days):
         state[day] = rho * state[day - 1] + innovation * noise[day]
     return np.exp(state - sd * sd / 2.0)
+
+
+def trend_multiplier(hours: np.ndarray, trend_per_week: float) -> np.ndarray:
+    """Return the market-wide growth multiplier ``(1 + g) ** (hour / 168)`` at each time.
+
+    Parameters
+    ----------
+    hours : ndarray of float
+        Times in hours since the start of the horizon.
+    trend_per_week : float
+        ``calendar.trend_per_week`` (g); 0 gives a flat 1.
+
+    Examples
+    --------
+    >>> trend_multiplier(np.array([0.0, 168.0, 336.0]), 0.1).round(6).tolist()
+    [1.0, 1.1, 1.21]
+    """
+    hours = np.asarray(hours, dtype=float)
+    if trend_per_week == 0:
+        return np.ones_like(hours)
+    return np.power(1.0 + trend_per_week, hours / 168.0)
+
+
+def _ar1(noise: np.ndarray, sd: float, rho: float) -> np.ndarray:
+    """Stationary AR(1) paths along the last axis from standard normals."""
+    state = np.empty_like(noise)
+    state[..., 0] = sd * noise[..., 0]
+    innovation = sd * np.sqrt(1.0 - rho * rho)
+    for day in range(1, noise.shape[-1]):
+        state[..., day] = rho * state[..., day - 1] + innovation * noise[..., day]
+    return state
+
+
+def draw_pool_shocks(pools: Pools, n_pools: int, days: int, *, rng: np.random.Generator
+                     ) -> np.ndarray | None:
+    """Draw each pool's own daily demand multiplier, shape ``(n_pools, days)``.
+
+    The log multiplier of pool ``k`` on day ``d`` is the sum of
+
+    - its own shock ``x_kd - s^2 / 2``: ``x_k`` a stationary AR(1) process with SD
+      ``s = pools.shock_sd`` and autocorrelation ``pools.shock_autocorrelation``;
+    - its loading on shared factors ``lambda_k . f_d - v_kd / 2``: ``factor_count``
+      factors ``f_j``, each a Gaussian random walk whose daily steps have SD
+      ``pools.factor_sd`` (``f_jd ~ N(0, (d + 1) factor_sd^2)``), loadings
+      ``lambda_kj`` standard normal, drawn per replication, and
+      ``v_kd = (d + 1) factor_sd^2 |lambda_k|^2`` the variance of
+      ``lambda_k . f_d`` given the loadings.
+
+    Given the loadings each multiplier has mean 1. The factors give the pools
+    different trends (the interactive fixed-effects model of Abadie, Diamond &
+    Hainmueller 2010), so parallel trends fail. Draws, in this order: the AR(1)
+    normals ``(n_pools, days)``, the loadings ``(n_pools, factor_count)``, the
+    factor steps ``(factor_count, days)``; nothing is drawn, and ``None`` returned,
+    when both SDs are 0.
+
+    >>> from spillgauge.scenario import Pools
+    >>> draw_pool_shocks(Pools(), 3, 5, rng=np.random.default_rng(0)) is None
+    True
+    """
+    check_rng(rng)
+    if pools.shock_sd == 0 and pools.factor_sd == 0:
+        return None
+    log_multiplier = np.zeros((n_pools, days))
+    sd, rho = pools.shock_sd, pools.shock_autocorrelation
+    if sd > 0:
+        log_multiplier += _ar1(rng.standard_normal((n_pools, days)), sd, rho) - sd * sd / 2.0
+    if pools.factor_sd > 0:
+        loadings = rng.standard_normal((n_pools, pools.factor_count))
+        factors = np.cumsum(pools.factor_sd * rng.standard_normal((pools.factor_count, days)),
+                            axis=1)
+        variance = (np.arange(1, days + 1) * pools.factor_sd ** 2)[None, :] * \
+            (loadings ** 2).sum(axis=1)[:, None]
+        log_multiplier += loadings @ factors - variance / 2.0
+    return np.exp(log_multiplier)

@@ -1,10 +1,13 @@
 """The social graph: generators aligned with pools, edge lists, and communities.
 
 The hot path holds the graph as a symmetric ``scipy.sparse.csr_array``;
-networkx analyses it (community detection, clustering).
+igraph finds its communities (Leiden) and networkx analyses it otherwise
+(clustering coefficients, and Louvain as the reference in tests).
 """
 
 from __future__ import annotations
+
+import random
 
 import numpy as np
 from scipy import sparse
@@ -16,7 +19,10 @@ __all__ = [
     "small_world_adjacency",
     "pool_block_adjacency",
     "to_networkx",
+    "to_igraph",
     "detect_communities",
+    "community_algorithm",
+    "LEIDEN_ITERATIONS",
     "treated_neighbour_share",
     "closed_neighbourhood_units",
 ]
@@ -115,26 +121,127 @@ def to_networkx(adjacency: sparse.csr_array):
     return graph
 
 
-def detect_communities(adjacency: sparse.csr_array, *, resolution: float = 1.0,
-                       seed: int = 0) -> np.ndarray:
-    """Return a community label per user from Louvain modularity maximisation.
+LEIDEN_ITERATIONS = 4
+"""Leiden iterations per community detection (see ``docs/performance.md`` for the evidence)."""
 
-    Uses :func:`networkx.community.louvain_communities` (Blondel et al. 2008).
+
+def community_algorithm() -> str:
+    """Return the name, settings and igraph version of the community detection.
+
+    Cached communities are keyed by it, so a change of method, setting or
+    library version never reuses communities found another way.
+    """
+    import igraph
+
+    return f"leiden-modularity/iterations={LEIDEN_ITERATIONS}/igraph-{igraph.__version__}"
+
+
+def to_igraph(adjacency: sparse.csr_array):
+    """Return the graph as an undirected igraph ``Graph`` with vertices ``0..n_users-1``.
+
+    The edge list is the upper triangle of ``adjacency``, handed to igraph as one
+    list of pairs (converted by numpy and read by igraph's C layer; no Python loop).
+    igraph is imported here, not at module load.
+    """
+    import igraph
+
+    upper = sparse.triu(adjacency, k=1).tocoo()
+    edges = np.column_stack([upper.row, upper.col]).astype(np.int64, copy=False)
+    return igraph.Graph(n=adjacency.shape[0], edges=edges.tolist(), directed=False)
+
+
+class _GeneratorSource:
+    """igraph's random-number interface served from a numpy ``Generator``.
+
+    igraph asks for 32 random bits (``getrandbits(32)``) or a uniform float
+    (``random()``) one at a time; both are drawn from the Generator in blocks
+    and handed out in order, so the stream depends only on the Generator's seed.
+    """
+
+    _BLOCK = 1 << 16
+
+    def __init__(self, rng: np.random.Generator) -> None:
+        self._rng = check_rng(rng)
+        self._bits = iter(())
+        self._floats = iter(())
+
+    def getrandbits(self, k: int) -> int:
+        if k == 32:
+            for value in self._bits:
+                return value
+            self._bits = iter(self._rng.integers(0, 1 << 32, size=self._BLOCK,
+                                                 dtype=np.uint64).tolist())
+            return next(self._bits)
+        n_bytes = (k + 7) // 8
+        return int.from_bytes(self._rng.bytes(n_bytes), "little") >> (8 * n_bytes - k)
+
+    def random(self) -> float:
+        for value in self._floats:
+            return value
+        self._floats = iter(self._rng.random(self._BLOCK).tolist())
+        return next(self._floats)
+
+    def randint(self, low: int, high: int) -> int:
+        return int(self._rng.integers(low, high, endpoint=True))
+
+    def gauss(self, mu: float, sigma: float) -> float:
+        return float(self._rng.normal(mu, sigma))
+
+
+def detect_communities(adjacency: sparse.csr_array, *, resolution: float = 1.0,
+                       rng: np.random.Generator) -> np.ndarray:
+    """Return a community label per user from Leiden modularity maximisation.
+
+    Uses igraph's ``community_leiden`` with the modularity objective (Traag,
+    Waltman & van Eck 2019) at ``resolution`` (gamma in
+    ``Q = 1/(2m) sum_ij (A_ij - gamma k_i k_j / (2m)) delta(c_i, c_j)``, as in
+    networkx's ``louvain_communities``), for :data:`LEIDEN_ITERATIONS`
+    iterations. igraph's random numbers come from ``rng`` for this call only;
+    igraph's own default (Python's ``random`` module) is put back afterwards.
     Isolated users form their own communities. Labels are numbered by the
-    smallest user index in each community, so they do not depend on set order.
+    smallest user index in each community.
+
+    Parameters
+    ----------
+    adjacency : csr_array, shape (n_users, n_users)
+        Symmetric 0/1 graph.
+    resolution : float
+        Larger values give more, smaller communities.
+    rng : numpy.random.Generator
 
     Returns
     -------
     ndarray of int, shape (n_users,)
-    """
-    import networkx as nx
 
-    graph = to_networkx(adjacency)
-    communities = nx.community.louvain_communities(graph, resolution=resolution, seed=seed)
-    labels = np.empty(adjacency.shape[0], dtype=np.int64)
-    for label, members in enumerate(sorted(communities, key=min)):
-        labels[list(members)] = label
-    return labels
+    Examples
+    --------
+    >>> a = adjacency_from_edges(np.array([0, 0, 1, 3, 3, 4]), np.array([1, 2, 2, 4, 5, 5]), 7)
+    >>> detect_communities(a, rng=np.random.default_rng(0)).tolist()
+    [0, 0, 0, 1, 1, 1, 2]
+    """
+    import igraph
+
+    source = _GeneratorSource(rng)
+    graph = to_igraph(adjacency)
+    igraph.set_random_number_generator(source)
+    try:
+        clustering = graph.community_leiden(objective_function="modularity",
+                                            resolution=resolution,
+                                            n_iterations=LEIDEN_ITERATIONS)
+    finally:
+        igraph.set_random_number_generator(random)
+    membership = np.asarray(clustering.membership, dtype=np.int64)
+    return _number_by_first_member(membership)
+
+
+def _number_by_first_member(membership: np.ndarray) -> np.ndarray:
+    """Renumber labels ``0..k-1`` in the order of each label's smallest member."""
+    if membership.size == 0:
+        return membership.astype(np.int64)
+    _, first, inverse = np.unique(membership, return_index=True, return_inverse=True)
+    rank = np.empty(first.size, dtype=np.int64)
+    rank[np.argsort(first, kind="stable")] = np.arange(first.size)
+    return rank[inverse.ravel()]
 
 
 def treated_neighbour_share(adjacency: sparse.csr_array, dose: np.ndarray) -> np.ndarray:

@@ -20,48 +20,27 @@ from pathlib import Path
 
 import numpy as np
 
+from spillgauge.report._figure_base import (
+    _BAND,
+    _POOL_COLOURS,
+    _TRUTH,
+    _UNITS,
+    FIGURE_DPI,
+    FIGURE_SIZE_PX,
+    PALETTE,
+    STOCK_DAYS,
+    _axes,
+    _colour,
+    _new_figure,
+    _spread,
+)
+from spillgauge.report.launch_figures import launch_labels, plot_launches
+
 __all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "STOCK_DAYS", "figure_names",
            "plot_estimates", "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
 
-FIGURE_SIZE_PX = (1000, 600)
-FIGURE_DPI = 100
-# Okabe & Ito (2008): blue, vermillion, bluish green, reddish purple, orange, sky blue,
-# black (yellow left out: too pale on white).
-PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
-_TRUTH = "#333333"
-_BAND = "#BBBBBB"
-_UNITS = "fulfilled orders per user over the horizon"
-# Sample pools: four Okabe & Ito colours not read as designs in this figure.
-_POOL_COLOURS = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#CC79A7", "#0072B2")
-STOCK_DAYS = 7  # days of hourly stock shown in the stock figure
-
-
-def _colour(index: int) -> str:
-    return PALETTE[index % len(PALETTE)]
-
-
-def _new_figure():
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    width, height = FIGURE_SIZE_PX
-    fig = Figure(figsize=(width / FIGURE_DPI, height / FIGURE_DPI), dpi=FIGURE_DPI,
-                 layout="constrained")
-    FigureCanvasAgg(fig)
-    return fig
-
-
-def _axes(ax):
-    return ax if ax is not None else _new_figure().add_subplot()
-
-
-def _labels(study) -> list[str]:
-    return [spec.label for spec in study.scenario.designs]
-
-
-def _spread(n: int, width: float) -> np.ndarray:
-    """Return fixed offsets in [-width/2, width/2) that spread n points (golden-ratio steps)."""
-    return ((np.arange(n) * 0.6180339887) % 1.0 - 0.5) * width
+def _labels(study) -> list[str]:  # randomized designs (launches: launch_figures.py)
+    return [s.label for s in study.scenario.designs if study.designs[s.label].is_randomized]
 
 
 def plot_estimates(study, ax=None):
@@ -390,14 +369,14 @@ def figure_names(study) -> list[str]:
         names.append("stock")
     if any(len(p) for p in study.switch_profiles().values()):
         names.append("switchback")
-    return names
+    return names + (["launches"] if launch_labels(study) else [])
 
 
 def _draw(study, name: str):
     if name == "stock":
         return plot_stock(study)
     plot = {"estimates": plot_estimates, "bias_sd": plot_bias_sd,
-            "switchback": plot_switchback}[name]
+            "switchback": plot_switchback, "launches": plot_launches}[name]
     return plot(study).figure
 
 

@@ -55,7 +55,8 @@ CAPTIONS = {
 }
 _TITLES = {"estimates": "Drift: estimates against the true effect",
            "bias_sd": "Bias against SD", "stock": "Stock and lost orders in three worlds",
-           "switchback": "Switchbacks: the effect after a switch"}
+           "switchback": "Switchbacks: the effect after a switch",
+           "launches": "If you do not randomize: errors against each launch's truth"}
 # Design table: (summary key, header, format, key of its Monte Carlo SE or None).
 _COLUMNS = (("mean_estimate", "mean estimate", "{:.3f}", "mean_estimate_se"),
             ("bias", "bias", "{:+.3f}", "bias_se"),
@@ -189,6 +190,8 @@ def _designs(study, summary: dict) -> str:
     header = ["design (estimator)", "unit", *(c[1] for c in _COLUMNS), "trusted"]
     rows, classes = [], []
     for d in summary["designs"]:
+        if not d.get("is_randomized", True):
+            continue  # shown in "If you do not randomize"
         mark = ('<span class="trusted">\u2713 trusted</span>' if d["label"] in trusted else
                 '<span class="untrusted">\u2717 not trusted</span>')
         label = (_e(d["label"]) + (" <strong>(recommended)</strong>" if d["label"] == chosen
@@ -205,6 +208,22 @@ def _designs(study, summary: dict) -> str:
             "Type S is the share of significant estimates with the wrong sign, Type M their "
             "mean exaggeration of the effect.</p>")
     return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
+
+
+def _launches(summary: dict) -> str:
+    """The designs that do not randomize, each against its own truth, and what that costs."""
+    launches = [d for d in summary["designs"] if not d.get("is_randomized", True)]
+    if not launches:
+        return ""
+    header = ["design (estimator)", "answers", "truth", *(c[1] for c in _COLUMNS[:6]),
+              "effect on users left out"]
+    rows = [[_e(d["label"]) + f'<br><span class="se">{_e(d["estimator"])}</span>',
+             _e(d["question"]), _e(format_quantity(d.get("truth"), "{:.3f}")),
+             *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS[:6]),
+             _e(format_quantity(d.get("left_out_effect"), "{:+.3f}"))] for d in launches]
+    note = f"<p>{_e(summary.get('not_randomized', ''))}</p>"
+    return _section("launches", "If you do not randomize",
+                    _grid(header, rows, text_columns=2) + note)
 
 
 def _recommendation(study, summary: dict) -> str:
@@ -277,7 +296,8 @@ def render_html(study, figures: dict) -> str:
     title = f"{summary['scenario']}: which randomization unit?"
     nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS)
     body = "".join([_scenario(study, summary), _market(summary), _truth(summary),
-                    _designs(study, summary), _recommendation(study, summary), _figures(figures),
+                    _designs(study, summary), _launches(summary), _recommendation(study, summary),
+                    _figures(figures),
                     _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
     return ("<!DOCTYPE html>\n"
             '<html lang="en"><head><meta charset="utf-8">'

@@ -5,7 +5,7 @@ from __future__ import annotations
 from spillgauge.formatting import format_cell
 
 __all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows",
-           "interference_lines"]
+           "interference_lines", "launch_rows", "not_randomized_lines"]
 
 _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
             ("mean_estimate", "estimate", "{:.3f}"), ("bias", "bias", "{:+.3f}"),
@@ -69,12 +69,43 @@ def truth_text(name: str, seed: int, truth) -> str:
     return "\n".join(lines)
 
 
+_LAUNCH_COLUMNS = [("label", "design", "{}"), ("question", "answers", "{}"),
+                   ("truth", "truth", "{:.3f}"), ("mean_estimate", "estimate", "{:.3f}"),
+                   ("bias", "bias", "{:+.3f}"), ("rmse", "RMSE", "{:.3f}"),
+                   ("coverage", "coverage", "{:.0%}"), ("left_out_effect", "left out", "{:+.3f}")]
+
+
 def design_rows(summary: dict) -> list[list[str]]:
-    """Return the design table as formatted cells, header first."""
+    """Return the design table (randomized designs) as formatted cells, header first."""
     rows = [[header for _, header, _ in _COLUMNS]]
     for design in summary["designs"]:
-        rows.append([format_cell(template, design.get(key)) for key, _, template in _COLUMNS])
+        if design.get("is_randomized", True):
+            rows.append([format_cell(template, design.get(key))
+                         for key, _, template in _COLUMNS])
     return rows
+
+
+def launch_rows(summary: dict) -> list[list[str]]:
+    """Return the table of designs that do not randomize, header first (header only if none)."""
+    rows = [[header for _, header, _ in _LAUNCH_COLUMNS]]
+    for design in summary["designs"]:
+        if not design.get("is_randomized", True):
+            rows.append([format_cell(template, design.get(key))
+                         for key, _, template in _LAUNCH_COLUMNS])
+    return rows
+
+
+def not_randomized_lines(summary: dict, *, markdown: bool = False) -> list[str]:
+    """Return the "if you do not randomize" table and its note (nothing without launches)."""
+    rows = launch_rows(summary)
+    if len(rows) == 1:
+        return []
+    title = "If you do not randomize (each row against its own truth; never recommended)"
+    if markdown:
+        table = ["| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
+        table += ["| " + " | ".join(r) + " |" for r in rows[1:]]
+        return ["", f"## {title}", "", *table, "", summary.get("not_randomized", "")]
+    return ["", title + ":", *_table(rows), "", summary.get("not_randomized", "")]
 
 
 def _table(rows: list[list[str]]) -> list[str]:
@@ -97,8 +128,10 @@ def study_text(study) -> str:
              f"seed {summary['seed']}",
              f"true GTE {truth['gte']:.4f} orders per user"
              + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
-    lines += _table(design_rows(summary))
+    if len(design_rows(summary)) > 1:
+        lines += _table(design_rows(summary))
     lines += interference_lines(study)
+    lines += not_randomized_lines(summary)
     rec = summary["recommendation"]
     lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
               rec["reason"]]
@@ -134,6 +167,7 @@ def study_markdown(study) -> str:
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
     lines += [line.strip() for line in interference_lines(study)]
+    lines += not_randomized_lines(summary, markdown=True)
     rec = summary["recommendation"]
     lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
               + rec["reason"], "",

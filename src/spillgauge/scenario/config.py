@@ -43,6 +43,7 @@ class Calendar:
     diurnal_amplitude: float = 0.0
     daily_shock_sd: float = 0.0
     daily_shock_autocorrelation: float = 0.5
+    trend_per_week: float = 0.0
 
     def __post_init__(self) -> None:
         _check(self.days >= 1, "calendar.days", "an int >= 1", self.days)
@@ -55,6 +56,8 @@ class Calendar:
         _check(-1.0 < self.daily_shock_autocorrelation < 1.0,
                "calendar.daily_shock_autocorrelation", "in (-1, 1)",
                self.daily_shock_autocorrelation)
+        _check(-0.5 <= self.trend_per_week <= 1.0, "calendar.trend_per_week", "in [-0.5, 1]",
+               self.trend_per_week)
 
     @property
     def n_ticks(self) -> int:
@@ -97,10 +100,23 @@ class Pools:
     demand_spread: float = 0.0
     on_stockout: str = "lost"
     substitute_share: float = 0.0
+    shock_sd: float = 0.0
+    shock_autocorrelation: float = 0.0
+    factor_count: int = 0
+    factor_sd: float = 0.0
     file: str | None = None
 
     def __post_init__(self) -> None:
         _check(self.count >= 1, "pools.count", "an int >= 1", self.count)
+        _check(0.0 <= self.shock_sd <= 1.0, "pools.shock_sd", "in [0, 1]", self.shock_sd)
+        _check(-1.0 < self.shock_autocorrelation < 1.0, "pools.shock_autocorrelation",
+               "in (-1, 1)", self.shock_autocorrelation)
+        _check(0 <= self.factor_count <= 10, "pools.factor_count", "an int in [0, 10]",
+               self.factor_count)
+        _check(0.0 <= self.factor_sd <= 0.5, "pools.factor_sd", "in [0, 0.5]", self.factor_sd)
+        if self.factor_sd > 0:
+            _check(self.factor_count >= 1, "pools.factor_count",
+                   f">= 1 when pools.factor_sd = {self.factor_sd:g} > 0", self.factor_count)
         _check(self.restock_every_hours >= 1, "pools.restock_every_hours", "an int >= 1",
                self.restock_every_hours)
         _check(0 <= self.lead_time_hours < self.restock_every_hours, "pools.lead_time_hours",

@@ -44,11 +44,18 @@ class DesignRun:
     note : str
         The estimator's warning when the input was degenerate (e.g. every unit in
         one arm), else empty.
+    truth : float
+        The truth of the design's estimand in this replication when it is not the
+        GTE (a launch's ATT or effect on its launched pools); NaN otherwise.
+    left_out_effect : float
+        A launch's true effect on the users it left out (NaN otherwise).
     """
 
     estimate: Estimate
     n_randomized: int
     note: str = ""
+    truth: float = float("nan")
+    left_out_effect: float = float("nan")
 
     def to_record(self) -> dict:
         """Return the run as saved in ``replications.jsonl`` (NaN kept; the writer nulls it)."""
@@ -56,6 +63,9 @@ class DesignRun:
         record["n_randomized"] = self.n_randomized
         if self.note:
             record["note"] = self.note
+        if not np.isnan(self.truth):  # only launches: randomized designs' records are unchanged
+            record["truth"] = self.truth
+            record["left_out_effect"] = self.left_out_effect
         diagnostic = self.estimate.diagnostic
         if diagnostic is not None:
             record.update({k: float(getattr(diagnostic, k)) for k in _SAVED_DIAGNOSTIC})
@@ -77,7 +87,8 @@ class DesignRun:
         estimate = Estimate(**{name: values[saved] for saved, name in _SAVED_FIELDS},
                             method="", diagnostic=diagnostic)
         return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]),
-                   note=note)
+                   note=note, truth=values.get("truth", float("nan")),
+                   left_out_effect=values.get("left_out_effect", float("nan")))
 
 
 @dataclass(frozen=True, slots=True)
@@ -101,7 +112,8 @@ class ReplicationResult:
             record = run.to_record()
             rows.append({"replication": self.replication, "label": label,
                          **{saved: record[saved] for saved, _ in _SAVED_FIELDS},
-                         "gte": self.truth.gte})
+                         "gte": self.truth.gte,
+                         "truth": record.get("truth", self.truth.gte)})
         return rows
 
 
@@ -185,9 +197,14 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
                                        tick_hours=scenario.calendar.tick_hours)
         notes = [str(w.message) for w in caught
                  if issubclass(w.category, DegenerateEstimateWarning)]
+        kind = kind_of(spec)
+        own_truth = left_out = float("nan")
+        if kind.estimand != "gte":  # a launch: its own world against the all-control world
+            own_truth, left_out = kind.truth(spec, schedule, panel, panels[0])
         runs[spec.label] = DesignRun(estimate=estimate,
                                      n_randomized=schedule.n_units * schedule.n_periods,
-                                     note=notes[0] if notes else "")
+                                     note=notes[0] if notes else "", truth=own_truth,
+                                     left_out_effect=left_out)
     keep = replication == 0 if keep_traces is None else keep_traces
     traces = {}
     if keep:

@@ -17,6 +17,7 @@ from spillgauge.designs.registry import kind_of
 from spillgauge.files import json_safe, nan_from_null
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
+from spillgauge.statistics.launches import LaunchRow, not_randomizing_note
 from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
 from spillgauge.statistics.metrics import DesignMetrics, design_metrics
 from spillgauge.statistics.recommend import Candidate, Recommendation, recommend
@@ -45,6 +46,15 @@ class DesignSummary:
         For a test of interference.
     failure_note : str
         The most common reason replications gave no estimate (empty when none failed).
+    estimand : str
+        What the design's estimate targets (``"gte"``, ``"att"``, ``"launched_pools"``);
+        its metrics are against this estimand's truth in each replication.
+    truth : float
+        The mean over replications of the estimand's truth.
+    left_out_effect : float
+        For a launch: the mean true effect on the users it left out (NaN otherwise).
+    is_randomized : bool
+        False for a launch (shown apart, never recommended).
     """
 
     label: str
@@ -57,11 +67,20 @@ class DesignSummary:
     metrics: DesignMetrics
     interference: InterferenceSummary | None = None
     failure_note: str = ""
+    estimand: str = "gte"
+    truth: float = float("nan")
+    left_out_effect: float = float("nan")
+    is_randomized: bool = True
+    question: str = "the global treatment effect (GTE)"
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
         entry = {"label": self.label, "kind": self.kind, "estimator": self.estimator,
-                 "unit": self.unit, **json_safe(self.metrics.to_dict())}
+                 "unit": self.unit, "estimand": self.estimand, "question": self.question,
+                 "truth": json_safe(self.truth),
+                 "is_randomized": self.is_randomized, **json_safe(self.metrics.to_dict())}
+        if not self.is_randomized:
+            entry["left_out_effect"] = json_safe(self.left_out_effect)
         if self.interference is not None:
             entry["interference_test"] = json_safe(self.interference.to_dict())
         return entry
@@ -83,6 +102,8 @@ class StudyResult:
         Sorted by replication index.
     market_summary : dict
         The market described in plain data (what ``spillgauge check`` prints).
+    not_randomized_note : str
+        What not randomizing costs in this market (empty without launch designs).
     """
 
     scenario: Scenario
@@ -93,6 +114,7 @@ class StudyResult:
     recommendation: Recommendation
     replications: list[ReplicationResult] = field(repr=False)
     market_summary: dict = field(default_factory=dict, repr=False)
+    not_randomized_note: str = ""
 
     @property
     def metrics(self) -> dict[str, DesignMetrics]:
@@ -111,7 +133,7 @@ class StudyResult:
 
         rows = [row for rep in self.replications for row in rep.rows()]
         return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
-                                           "ci_high", "n_units", "gte"])
+                                           "ci_high", "n_units", "gte", "truth"])
 
     def switch_profiles(self) -> dict:
         """Return each switchback's mean effect per user-tick by ticks since a switch."""
@@ -132,14 +154,17 @@ class StudyResult:
 
     def summary(self) -> dict:
         """Return the content of ``summary.json``."""
-        return {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
-                "truth": json_safe(self.truth.to_dict()),
-                "designs": [d.to_dict() for d in self.designs.values()],
-                "recommendation": {"label": self.recommendation.label,
-                                   "reason": self.recommendation.reason,
-                                   "is_trustworthy": self.recommendation.is_trustworthy},
-                "market": self.market_summary,
-                "scenario_settings": scenario_to_dict(self.scenario)}
+        summary = {"scenario": self.scenario.name, "seed": self.seed, "reps": self.reps,
+                   "truth": json_safe(self.truth.to_dict()),
+                   "designs": [d.to_dict() for d in self.designs.values()],
+                   "recommendation": {"label": self.recommendation.label,
+                                      "reason": self.recommendation.reason,
+                                      "is_trustworthy": self.recommendation.is_trustworthy},
+                   "market": self.market_summary,
+                   "scenario_settings": scenario_to_dict(self.scenario)}
+        if self.not_randomized_note:
+            summary["not_randomized"] = self.not_randomized_note
+        return summary
 
 
 def _design_params(spec: DesignSpec) -> dict:
@@ -155,6 +180,12 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
     estimates = [r.runs[spec.label].estimate for r in results]
     column = {name: np.array([getattr(e, name) for e in estimates], dtype=float)
               for name in ("point", "standard_error", "ci_low", "ci_high")}
+    runs = [r.runs[spec.label] for r in results]
+    left_out = float("nan")
+    if kind.estimand != "gte":  # a launch is judged against its own estimand's truth
+        gte = np.array([run.truth for run in runs], dtype=float)
+        left_out = float(np.nanmean([run.left_out_effect for run in runs])) \
+            if np.isfinite([run.left_out_effect for run in runs]).any() else float("nan")
     metrics = design_metrics(column["point"], column["standard_error"], column["ci_low"],
                              column["ci_high"], gte, alpha=alpha, outcome_scale=outcome_scale)
     notes = Counter(r.runs[spec.label].note for r in results if r.runs[spec.label].note)
@@ -170,7 +201,10 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          is_user_level=kind.is_user_level,
                          is_recommendable=kind.is_recommendable, metrics=metrics,
                          interference=interference,
-                         failure_note=notes.most_common(1)[0][0] if notes else "")
+                         failure_note=notes.most_common(1)[0][0] if notes else "",
+                         estimand=kind.estimand, truth=float(np.mean(gte)),
+                         left_out_effect=left_out, is_randomized=kind.is_randomized,
+                         question=kind.question)
 
 
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
@@ -195,10 +229,18 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
     if candidates:
         advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
     else:
-        advice = Recommendation(label=None, reason="The scenario has only tests of "
-                                "interference: add user, cluster or switchback designs to "
+        advice = Recommendation(label=None, reason="The scenario has no randomized design "
+                                "that can be recommended (only tests of interference or "
+                                "launches): add user, cluster or switchback designs to "
                                 "get a recommended randomization unit.",
                                 is_trustworthy=False, trusted=(), ranking=())
+    launches = [LaunchRow(label=d.label, kind=d.kind, question=d.question, truth=d.truth,
+                          left_out_effect=d.left_out_effect, metrics=d.metrics)
+                 for d in designs.values() if not d.is_randomized]
+    chosen = advice.label
+    note = not_randomizing_note(launches, randomized_label=chosen,
+                                randomized_metrics=designs[chosen].metrics if chosen else None,
+                                alpha=alpha)
     return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
                        designs=designs, recommendation=advice, replications=results,
-                       market_summary=market_summary or {})
+                       market_summary=market_summary or {}, not_randomized_note=note)

@@ -26,12 +26,14 @@ from spillgauge.market.calendar import (
     day_of_tick,
     diurnal_multiplier,
     draw_daily_shocks,
+    draw_pool_shocks,
     segment_bounds,
     start_stock_calendar,
+    trend_multiplier,
 )
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
-from spillgauge.seeding import check_rng
+from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
 from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
@@ -98,7 +100,16 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     population = market.population
     horizon = float(calendar.horizon_hours)
     shocks = draw_daily_shocks(calendar, rng=rng)
+    pool_shocks = None
+    if pools.shock_sd > 0 or pools.factor_sd > 0:
+        pool_shocks = draw_pool_shocks(pools, population.n_pools, calendar.days,
+                                       rng=side_stream(rng, POOL_SHOCKS))
     peak = _peak_factor(market) * float(shocks.max())
+    if pool_shocks is not None:
+        peak *= float(pool_shocks.max())
+    trend = calendar.trend_per_week
+    if trend > 0:
+        peak *= float(trend_multiplier(np.array([horizon]), trend)[0])
     counts = rng.poisson(population.rate_per_hour * (peak * horizon))
     user = np.repeat(np.arange(population.n_users, dtype=np.int64), counts)
     hour = rng.random(user.size) * horizon
@@ -128,7 +139,12 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
         shift = 1 + np.floor(rng.random(user.size) * (population.n_pools - 1)).astype(np.int64)
         substitute_pool = (pool + shift) % population.n_pools
     day = day_of_tick(calendar)[tick]
-    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) * (shocks[day] / peak)
+    multiplier = shocks[day]
+    if pool_shocks is not None:
+        multiplier = multiplier * pool_shocks[pool, day]
+    if trend != 0:
+        multiplier = multiplier * trend_multiplier(hour, trend)
+    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) * (multiplier / peak)
     return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
                            base_accept=base_accept, uniform=uniform,
                            segment_bounds=bounds, segment_starts=segment_starts,

@@ -1,0 +1,101 @@
+"""A regional launch in whole markets: pre/post, DiD and synthetic control against the truth."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from spillgauge.market.build import build_market
+from spillgauge.study.run import run_study
+from tests.conftest import make_scenario
+
+ESTIMATORS = ("pre_post", "did", "synthetic_control")
+
+
+def _scenario(*, trend=0.0, factor_sd=0.0, choose="random", stock_cover=50.0):
+    pools = {"count": 30, "stock_cover": stock_cover}
+    if factor_sd > 0:
+        pools.update(factor_count=2, factor_sd=factor_sd)
+    return make_scenario(
+        users={"count": 6000, "orders_per_week": 3.0}, pools=pools,
+        calendar={"days": 28, "trend_per_week": trend}, effect={"lift": 0.2},
+        design=[{"kind": "regional_launch", "pools": 5, "launch_day": 14, "choose": choose,
+                 "estimator": e} for e in ESTIMATORS])
+
+
+def _errors(study, estimator):
+    label = f"launch-random-5-{estimator.replace('_', '-')}"
+    runs = [rep.runs[label] for rep in study.replications]
+    return np.array([r.estimate.point - r.truth for r in runs]), runs
+
+
+def _mean_trend(a_hours, b_hours, g):
+    """Mean of (1 + g)^(h / 168) over [a, b] hours (its integral / length, closed form)."""
+    k = math.log1p(g) / 168
+    return (math.exp(k * b_hours) - math.exp(k * a_hours)) / (k * (b_hours - a_hours))
+
+
+def test_trend_biases_pre_post_by_its_growth_and_leaves_did_and_synthetic_control_unbiased():
+    g = 0.2
+    study = run_study(_scenario(trend=g), reps=24, seed=2, workers=1)
+    market = build_market(study.scenario, study.seed)
+    # No interference, ample stock: a launched user's control orders over the 14 post days
+    # exceed its pre-period orders by r x 24 x 14 x (mean trend after - mean trend before);
+    # pre/post counts that growth as effect. Expected bias = 14 days x 24 h x mean rate of
+    # the launched users x (mean trend over days 14-28 - over days 0-14) (closed form of the
+    # geometric trend), averaged over replications' launched pools.
+    errors, runs = _errors(study, "pre_post")
+    growth = _mean_trend(14 * 24, 28 * 24, g) - _mean_trend(0, 14 * 24, g)
+    from spillgauge.designs.registry import kind_of
+    from spillgauge.seeding import ASSIGNMENT, design_key, stream
+
+    spec = study.scenario.design("launch-random-5-pre-post")
+    predicted = []
+    for rep in range(study.reps):
+        rng = np.random.default_rng(stream(study.seed, rep, ASSIGNMENT, design_key(spec.label)))
+        launched = kind_of(spec).draw(market, spec, rng=rng).user_is_treated(1)
+        predicted.append(14 * 24 * market.rate_per_hour[launched].mean() * growth)
+    predicted = float(np.mean(predicted))
+    assert predicted > 1.0
+    assert abs(errors.mean() - predicted) < 4 * errors.std(ddof=1) / math.sqrt(errors.size)
+    # Difference in differences and synthetic control difference the trend away (pools
+    # chosen at random: equal expected levels, so the multiplicative trend adds equal
+    # expected amounts): mean error within 4 MC SE of 0.
+    for estimator in ("did", "synthetic_control"):
+        errors, _ = _errors(study, estimator)
+        assert abs(errors.mean()) < 4 * errors.std(ddof=1) / math.sqrt(errors.size), estimator
+
+
+def test_pool_factors_hurt_did_much_more_than_synthetic_control():
+    # Pools loading on shared random-walk factors follow different trends, so parallel
+    # trends fail: DiD's error grows with factor_sd, while synthetic control, fitting the
+    # launched pools' pre-period path by other pools with similar loadings, loses much less
+    # (Abadie, Diamond & Hainmueller 2010, section 2.2, the interactive fixed-effects model).
+    rmse = {}
+    for factor_sd in (0.0, 0.1):
+        study = run_study(_scenario(factor_sd=factor_sd), reps=20, seed=4, workers=1)
+        for estimator in ("did", "synthetic_control"):
+            errors, _ = _errors(study, estimator)
+            rmse[estimator, factor_sd] = float(np.sqrt(np.mean(errors ** 2)))
+    assert rmse["did", 0.1] > 1.5 * rmse["did", 0.0]
+    assert rmse["synthetic_control", 0.1] < 0.75 * rmse["did", 0.1]
+    assert rmse["synthetic_control", 0.1] - rmse["synthetic_control", 0.0] < \
+        rmse["did", 0.1] - rmse["did", 0.0]
+
+
+def test_launch_summary_names_its_estimand_and_is_never_recommended():
+    scenario = make_scenario(
+        users={"count": 600}, pools={"count": 10}, calendar={"days": 10},
+        design=[{"kind": "user"},
+                {"kind": "regional_launch", "pools": 3, "launch_day": 5, "estimator": "did"}])
+    study = run_study(scenario, reps=3, seed=0, workers=1)
+    entry = {d["label"]: d for d in study.summary()["designs"]}
+    assert entry["user"]["estimand"] == "gte"
+    assert entry["user"]["truth"] == pytest.approx(study.truth.gte)
+    launch = entry["launch-largest-3-did"]
+    assert launch["estimand"] == "launched_pools" and launch["is_randomized"] is False
+    truths = [rep.runs["launch-largest-3-did"].truth for rep in study.replications]
+    assert launch["truth"] == pytest.approx(np.mean(truths))
+    assert study.recommendation.ranking == ("user",)  # the launch is never a candidate
