@@ -48,7 +48,7 @@ def _run(*args):
 @pytest.mark.parametrize("args, needle", [
     (["frobnicate"], "invalid choice"),
     (["truth", "no/such/file.toml"], "scenario must be an existing file"),
-    (["truth", "{tiny}", "--reps", "x"], "invalid int value"),
+    (["truth", "{tiny}", "--reps", "x"], "--reps: must be a whole number"),
     (["sweep", "{tiny}", "--vary", "pools.stock_cover=1:2"], "--vary must be"),
     (["sweep", "{tiny}", "--vary", "pools.no_such_key=1:2:3"], "numeric scenario key"),
     (["sweep", "{tiny}"], "--vary"),

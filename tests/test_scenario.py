@@ -97,7 +97,7 @@ def test_negative_rate_in_csv_is_named(tmp_path):
     users = tmp_path / "users.csv"
     users.write_text("user_id,pool_id,orders_per_week\nu1,p1,-3\n")
     scenario = parse_scenario({"name": "t", "users": {"file": str(users)}}, base_dir=tmp_path)
-    with pytest.raises(ScenarioError, match=r"users\.file:orders_per_week must be a finite"):
+    with pytest.raises(ScenarioError, match=r"users\.file:orders_per_week \(line 2, user_id .u1.\) must be a number in"):
         build_market(scenario, 0)
 
 

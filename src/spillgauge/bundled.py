@@ -33,9 +33,9 @@ def find_scenario(name_or_path: str | Path) -> Path:
     path = Path(name_or_path)
     if path.is_file():
         return path
-    bundled = scenarios_dir() / f"{path.name}.toml"
-    if path.suffix == "" and bundled.is_file():
-        return bundled
+    bundled = scenarios_dir() / f"{path.stem}.toml"
+    if path.suffix in ("", ".toml") and path.parent == Path(".") and bundled.is_file():
+        return bundled  # a bundled name, with or without .toml
     names = ", ".join(p.stem for p in bundled_scenarios())
     raise ScenarioError("scenario", f"an existing file or a bundled scenario ({names})",
                         str(name_or_path))
@@ -49,7 +49,7 @@ def new_scenario_text(name: str) -> str:
     ScenarioError
         When the name has characters other than letters, digits, '-', '_' and '.'.
     """
-    if not name or not all(c.isalnum() or c in "-_." for c in name):
-        raise ScenarioError("name", "letters, digits, '-', '_' or '.'", name)
+    if not name.strip(".") or not all(c.isalnum() or c in "-_." for c in name):
+        raise ScenarioError("name", "letters, digits, '-', '_' or '.', not only dots", name)
     template = (scenarios_dir() / "_template.toml.txt").read_text(encoding="utf-8")
     return template.replace("{name}", name)

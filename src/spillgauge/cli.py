@@ -3,15 +3,22 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
-import time
 from pathlib import Path
 
-from spillgauge.errors import ResultsError, ScenarioError, SpillgaugeError
+from spillgauge.console import (
+    REPS,
+    SEED,
+    WORKERS,
+    ProgressBar,
+    fail,
+    interrupted,
+    out_folder,
+)
+from spillgauge.errors import ScenarioError, SpillgaugeError
 
 __all__ = ["main", "build_parser"]
-
-_TICK = 0.2  # seconds between progress-bar redraws
 
 
 class _Parser(argparse.ArgumentParser):
@@ -19,37 +26,6 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str) -> None:  # noqa: D401 - argparse's hook
         self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
-
-
-class _ProgressBar:
-    """Replications done and time left, on stderr, only when it is a terminal."""
-
-    def __init__(self, label: str, *, enabled: bool) -> None:
-        self.label = label
-        self.enabled = enabled and sys.stderr.isatty()
-        self.start = time.monotonic()
-        self.first_done: int | None = None
-        self.last_draw = 0.0
-
-    def __call__(self, done: int, total: int) -> None:
-        if not self.enabled:
-            return
-        now = time.monotonic()
-        if self.first_done is None:
-            self.first_done, self.start = done, now
-        if done < total and now - self.last_draw < _TICK:
-            return
-        self.last_draw = now
-        width = 28
-        filled = int(width * done / max(total, 1))
-        run = done - self.first_done
-        left = (now - self.start) / run * (total - done) if run > 0 else float("nan")
-        eta = f"{left:5.0f} s left" if left == left else "  estimating"
-        sys.stderr.write(f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] "
-                         f"{done}/{total} replications, {eta}")
-        if done >= total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
 
 
 def _load(path: str):
@@ -61,10 +37,12 @@ def _load(path: str):
 
 def _cmd_check(args) -> int:
     from spillgauge.market.build import build_market
+    from spillgauge.study.resources import check_memory
     from spillgauge.report.text import market_text
     from spillgauge.study.market_summary import summarise_market
 
     scenario = _load(args.scenario)
+    check_memory(scenario, market_only=True)
     market = build_market(scenario, args.seed)
     print(market_text(scenario, summarise_market(market)))
     return 0
@@ -75,7 +53,8 @@ def _cmd_truth(args) -> int:
     from spillgauge.study.run import run_truth
 
     scenario = _load(args.scenario)
-    bar = _ProgressBar("truth", enabled=not args.quiet and not args.json)
+    bar = ProgressBar("truth", enabled=not args.quiet and not args.json,
+                       forced=args.progress)
     truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                       scheduler=args.scheduler, progress=bar)
     seed = scenario.study.seed if args.seed is None else args.seed
@@ -94,15 +73,14 @@ def _cmd_run(args) -> int:
     from spillgauge.study.run import run_study
 
     scenario = _load(args.scenario)
-    out = Path(args.out) if args.out else Path("results") / scenario.name
-    bar = _ProgressBar(scenario.name, enabled=not args.quiet)
+    out = out_folder(args.out, Path("results") / scenario.name)
+    bar = ProgressBar(scenario.name, enabled=not args.quiet, forced=args.progress)
     try:
         study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                           scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
     except KeyboardInterrupt:
-        sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
-                         "run the same command with --resume to continue\n")
-        return 130
+        bar.close()
+        return interrupted(out)
     written = write_report(study, out)
     print(study_text(study))
     print(f"\nresults: {out}/ ({', '.join(written)})")
@@ -113,19 +91,22 @@ def _add_common(p: argparse.ArgumentParser, *, reps: bool = True) -> None:
     p.add_argument("scenario", help="a scenario TOML file, or the name of a bundled scenario "
                    "(see `spillgauge list`)")
     if reps:
-        p.add_argument("--reps", type=int, metavar="N",
+        p.add_argument("--reps", type=REPS, metavar="N",
                        help="replications (default: the scenario's study.reps)")
-    p.add_argument("--seed", type=int, metavar="S",
+    p.add_argument("--seed", type=SEED, metavar="S",
                    help="study seed (default: the scenario's study.seed)")
 
 
 def _add_compute(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--workers", type=int, metavar="N", default=None,
+    p.add_argument("--workers", type=WORKERS, metavar="N", default=None,
                    help="local processes for the replications (default: every core)")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run replications on this Dask scheduler, e.g. tcp://10.0.0.5:8786 "
                    "(needs the 'dask' extra)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    shown = p.add_mutually_exclusive_group()
+    shown.add_argument("--quiet", action="store_true", help="no progress bar")
+    shown.add_argument("--progress", action="store_true",
+                       help="show the progress bar even when stderr is not a terminal")
 
 
 def _add_experiment(p: argparse.ArgumentParser) -> None:
@@ -163,10 +144,18 @@ def _cmd_new(args) -> int:
 
     name = Path(args.name).stem
     path = Path(args.name if args.name.endswith(".toml") else f"{args.name}.toml")
+    text = new_scenario_text(name)
+    if not path.parent.is_dir():
+        raise ScenarioError("NAME", f"a file in an existing folder (no folder {str(path.parent)!r})",
+                            args.name)
     if path.exists() and not args.force:
-        raise ScenarioError("new", "a file that does not exist yet (use --force to overwrite)",
+        raise ScenarioError("NAME", "a file that does not exist yet (use --force to overwrite)",
                             str(path))
-    path.write_text(new_scenario_text(name), encoding="utf-8")
+    try:
+        path.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise ScenarioError("NAME", f"a file that can be written ({exc.strerror})",
+                            str(path)) from None
     print(f"wrote {path}: edit it, then `spillgauge check {path}` and `spillgauge run {path}`")
     return 0
 
@@ -182,16 +171,16 @@ def _cmd_sweep(args) -> int:
         raise ScenarioError("--vary", "given once (curves) or twice (a grid)", len(axes))
     if len({a.key for a in axes}) != len(axes):
         raise ScenarioError("--vary", "two different keys", " and ".join(a.key for a in axes))
-    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-sweep"
-    bar = _ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet)
+    out = out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
+    bar = ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet,
+                       forced=args.progress)
     try:
         sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
                           workers=args.workers, scheduler=args.scheduler, out=out,
                           resume=args.resume, progress=bar)
     except KeyboardInterrupt:
-        sys.stderr.write(f"\ninterrupted: finished replications are saved in {out}; "
-                         "run the same command with --resume to continue\n")
-        return 130
+        bar.close()
+        return interrupted(out)
     written = [p.name for p in write_sweep(sweep, out)]
     figures = save_sweep_figures(sweep, out)
     write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
@@ -211,8 +200,9 @@ def _cmd_plan(args) -> int:
         raise ScenarioError("--scheduler", "left out: plan runs on local processes (--workers)",
                             args.scheduler)
     scenario = _load(args.scenario)
-    out = Path(args.out) if args.out else Path("results") / f"{scenario.name}-plan"
-    bar = _ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json)
+    out = out_folder(args.out, Path("results") / f"{scenario.name}-plan")
+    bar = ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json,
+                      forced=args.progress)
     plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
                       reps=args.reps, seed=args.seed, workers=args.workers, progress=bar)
     written = write_plan(plan, out)
@@ -368,8 +358,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="run the default scenario end to end",
                        description="Run the bundled default scenario (tight_pantry) and write "
                        "its results and report to results/tight_pantry.")
-    p.add_argument("--reps", type=int, metavar="N", help="replications (default 200)")
-    p.add_argument("--seed", type=int, metavar="S", help="study seed")
+    p.add_argument("--reps", type=REPS, metavar="N", help="replications (default 200)")
+    p.add_argument("--seed", type=SEED, metavar="S", help="study seed")
     p.add_argument("--out", metavar="DIR", help="results folder")
     _add_compute(p)
     p.set_defaults(func=_cmd_demo)
@@ -418,20 +408,31 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the ``spillgauge`` command; return its exit code."""
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    """Run the ``spillgauge`` command; return its exit code.
+
+    Every failure is one line on stderr: a bad input exits 2, an interrupt 130
+    (finished replications stay saved), anything unexpected 1 with the error's
+    type (``SPILLGAUGE_DEBUG=1`` shows the traceback).
+    """
     try:
-        code = args.func(args)
-    except ScenarioError as exc:
-        sys.stderr.write(f"spillgauge: error: {exc}\n")
-        return 2
-    except (ResultsError, SpillgaugeError) as exc:
-        sys.stderr.write(f"spillgauge: error: {exc}\n")
-        return 2
+        args = build_parser().parse_args(argv)
+        return args.func(args)
+    except SpillgaugeError as exc:
+        return fail(str(exc), 2)
+    except KeyboardInterrupt:
+        return interrupted(None)
     except BrokenPipeError:
         return 0
-    return code
+    except MemoryError:
+        return fail("out of memory; use fewer --workers, fewer users or a shorter horizon", 2)
+    except OSError as exc:
+        where = f": {exc.filename}" if exc.filename else ""
+        return fail(f"{exc.strerror or exc.__class__.__name__}{where}", 2)
+    except Exception as exc:  # noqa: BLE001 - a user sees one line, never a traceback
+        if os.environ.get("SPILLGAUGE_DEBUG"):
+            raise
+        return fail(f"internal error ({exc.__class__.__name__}: {str(exc)[:200]}); please "
+                     "report it, with the command (SPILLGAUGE_DEBUG=1 shows the traceback)", 1)
 
 
 if __name__ == "__main__":  # pragma: no cover

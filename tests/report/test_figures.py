@@ -80,11 +80,11 @@ def test_each_plot_makes_its_own_axes_when_none_is_given(study, plot):
 def test_plot_stock_draws_into_the_given_figure(study):
     fig = Figure()
     assert plot_stock(study, fig=fig) is fig
-    assert len(fig.axes) == 6  # 2 rows (stock, lost orders) x 3 worlds
-    assert all(len(ax.lines) == len(study.replications[0].traces["pools"]) for ax in fig.axes)
-    titles = [ax.get_title() for ax in fig.axes[:3]]
-    assert titles[0].startswith("all control") and titles[1].startswith("all treated")
-    assert titles[2] == "design world: user"  # the user-level design is preferred
+    assert len(fig.axes) == 2  # stock of one pool, lost orders of the sample pools
+    assert all(len(ax.lines) == 3 for ax in fig.axes)  # one line per world
+    names = [line.get_label() for line in fig.axes[1].lines]
+    assert names[0].startswith("all control") and names[1].startswith("all treated")
+    assert names[2] == "design world: user"  # the user-level design is preferred
 
 
 def test_estimates_plot_shows_every_replication_estimate(study):
@@ -135,15 +135,16 @@ def test_stock_plot_draws_the_sample_pools_traces(study):
     traces = study.replications[0].traces
     calendar = study.scenario.calendar
     shown = STOCK_DAYS * 24 // calendar.tick_hours
-    for col, world in enumerate(["all control", "all treated", "user"]):
-        stock_ax, lost_ax = fig.axes[col], fig.axes[3 + col]
-        for k in range(len(traces["pools"])):
-            np.testing.assert_array_equal(stock_ax.lines[k].get_ydata(),
-                                          traces["worlds"][world]["stock"][k][:shown])
-            # The running total ends at the pool's lost orders over the horizon.
-            assert lost_ax.lines[k].get_ydata()[-1] == sum(traces["worlds"][world]["lost"][k])
-            assert lost_ax.lines[k].get_xdata()[-1] == calendar.days
-    assert "days" not in fig.axes[0].get_ylabel() and "day" in fig.axes[0].get_xlabel()
+    stock_ax, lost_ax = fig.axes
+    # The pool drawn is the sample pool with most lost orders in the all-treated world.
+    k = int(np.argmax(np.sum(traces["worlds"]["all treated"]["lost"], axis=1)))
+    for i, world in enumerate(["all control", "all treated", "user"]):
+        np.testing.assert_array_equal(stock_ax.lines[i].get_ydata(),
+                                      traces["worlds"][world]["stock"][k][:shown])
+        # The running total ends at the sample pools' lost orders over the horizon.
+        assert lost_ax.lines[i].get_ydata()[-1] == np.sum(traces["worlds"][world]["lost"])
+        assert lost_ax.lines[i].get_xdata()[-1] == calendar.days
+    assert "days" not in stock_ax.get_ylabel() and "day" in stock_ax.get_xlabel()
 
 
 def test_switchback_plot_draws_the_profiles_in_hours(study):
@@ -153,15 +154,37 @@ def test_switchback_plot_draws_the_profiles_in_hours(study):
     spec = study.scenario.designs[2]
     line = next(line for line in ax.lines if line.get_label() == spec.label)
     calendar = study.scenario.calendar
-    np.testing.assert_array_equal(line.get_xdata(),
-                                  np.arange(len(profiles[spec.label])) * calendar.tick_hours)
-    np.testing.assert_allclose(line.get_ydata(), profiles[spec.label])
-    burn_in = [line for line in ax.lines if line.get_label().endswith("end of burn-in")]
+    per_thousand_per_hour = 1000.0 / calendar.tick_hours
+    n = len(profiles[spec.label])
+    assert n <= 48  # short blocks: one point per tick, at the tick's centre
+    np.testing.assert_allclose(line.get_xdata(), (np.arange(n) + 0.5) * calendar.tick_hours)
+    np.testing.assert_allclose(line.get_ydata(), profiles[spec.label] * per_thousand_per_hour)
+    burn_in = [line for line in ax.lines if "burn-in" in line.get_label()]
     assert len(burn_in) == 1 and np.allclose(burn_in[0].get_xdata(), spec.burn_in_hours)
     assert "hours since a switch" in ax.get_xlabel()
-    # The reference: the GTE spread evenly over the horizon's ticks.
+    # The reference: the GTE spread evenly over the horizon's ticks, per 1,000 users per hour.
     dashed = next(line for line in ax.lines if line.get_linestyle() == "--")
-    assert math.isclose(dashed.get_ydata()[0], study.truth.gte / calendar.n_ticks)
+    assert math.isclose(dashed.get_ydata()[0],
+                        study.truth.gte / calendar.n_ticks * per_thousand_per_hour)
+    # The title claims carryover only when the scenario has some.
+    assert ("carryover (half-life" in ax.get_title()) == (
+        study.scenario.effect.carryover_half_life_hours > 0)
+
+
+def test_switch_profile_band_is_the_standard_error_over_replications(study):
+    # SE of a mean over replications: SD (ddof=1) / sqrt(n), textbook definition.
+    bands = study.switch_profile_bands()
+    label = study.scenario.designs[2].label
+    rows = np.array([rep.traces["switch_profiles"][label] for rep in study.replications],
+                    dtype=float)
+    mean, se = bands[label]
+    np.testing.assert_allclose(mean, rows.mean(axis=0))
+    np.testing.assert_allclose(se, rows.std(axis=0, ddof=1) / np.sqrt(len(rows)))
+    # Bins of two ticks average the ticks within each replication first.
+    mean2, _ = study.switch_profile_bands(bin_ticks=2)[label]
+    n = rows.shape[1] // 2 * 2
+    np.testing.assert_allclose(mean2[: n // 2], rows[:, :n].reshape(len(rows), -1, 2)
+                               .mean(axis=2).mean(axis=0))
 
 
 def test_figures_without_data_are_left_out(bare_study, tmp_path):
@@ -184,3 +207,10 @@ def test_importing_the_report_does_not_import_matplotlib():
 
 def test_module_exports_exist():
     assert all(hasattr(figures, name) for name in figures.__all__)
+
+
+def test_plot_stock_draws_on_given_axes(study):
+    fig = Figure()
+    pair = fig.subplots(1, 2)
+    assert plot_stock(study, ax=pair) is fig
+    assert all(len(ax.lines) == 3 for ax in pair)

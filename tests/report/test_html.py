@@ -104,7 +104,10 @@ def test_page_parses_and_every_tag_is_closed(parsed):
 
 def test_every_section_is_there_once(parsed):
     sections = [a["id"] for tag, a in parsed.tags if tag == "section"]
-    assert sections == list(SECTION_IDS)
+    # "launches" only appears when the scenario has designs that do not randomize
+    assert sections == [s for s in SECTION_IDS if s != "launches"]
+    links = [a["href"] for tag, a in parsed.tags if tag == "a" and a.get("href", "").startswith("#")]
+    assert links == ["#" + s for s in sections]  # the menu names only sections on the page
     assert len(parsed.ids) == len(set(parsed.ids))  # ids are unique
 
 
@@ -205,3 +208,14 @@ def test_report_of_a_loaded_study_matches_the_run(report_dir, page):
     rendered = render_html(loaded, {})
     assert _parse(rendered).text("designs") == _parse(page).text("designs")
     assert _parse(rendered).text("recommendation") == _parse(page).text("recommendation")
+
+
+def test_summary_markdown_ends_its_table_with_a_blank_line(report_dir):
+    # GitHub Flavored Markdown spec, "Tables (extension)": a table is broken at the first
+    # empty line; a non-blank line right after the rows would be read as another row.
+    out, _ = report_dir
+    lines = (out / "summary.md").read_text().splitlines()
+    rows = [i for i, line in enumerate(lines) if line.startswith("|")]
+    assert rows == list(range(rows[0], rows[-1] + 1))  # one block of rows
+    assert lines[rows[-1] + 1] == ""
+    assert lines[rows[0] - 1] == ""

@@ -8,6 +8,7 @@ A population is either generated from the scenario's ``[users]`` and
 from __future__ import annotations
 
 import csv
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,6 +21,19 @@ __all__ = ["Population", "build_population", "read_csv_columns", "order_up_to_le
            "estimate_rates", "draw_rates"]
 
 HOURS_PER_WEEK = 168.0
+_MAX_ORDERS_PER_WEEK = 10_000.0    # bounds on CSV values keep every count far from int64 overflow
+_MAX_HISTORY_ORDERS = 1e7
+_MAX_STOCK = 1e12
+
+
+def _check_unique(columns: "CsvColumns", column: str, field: str) -> None:
+    """Refuse a repeated id, naming the id and both of its lines."""
+    seen: dict[str, int] = {}
+    for value, line in zip(columns[column], columns.lines):
+        if value in seen:
+            raise ScenarioError(f"{field}:{column} (lines {seen[value]} and {line})",
+                                "unique per row", value[:40])
+        seen[value] = line
 
 
 @dataclass(frozen=True, eq=False, slots=True)
@@ -60,9 +74,29 @@ class Population:
         return int(self.order_up_to.size)
 
 
+class CsvColumns(dict):
+    """Columns of a CSV file by header name, with the file line of each row in ``lines``."""
+
+    lines: list[int]
+
+
+_COLUMN_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_ .-]{0,39}")
+_PLAIN_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+
+
+def _shown_header(header: list[str]) -> str:
+    """Name the header's columns, or say it is not one: a file's contents are never echoed."""
+    if header and all(_COLUMN_NAME.fullmatch(h) for h in header) and len(header) <= 12:
+        return "columns found: " + ", ".join(header)
+    return f"the first line is not a header of column names ({len(header)} fields)"
+
+
 def read_csv_columns(path: str, *, required: tuple[str, ...], optional: tuple[str, ...] = (),
-                     field: str) -> dict[str, list[str]]:
+                     field: str) -> CsvColumns:
     """Read a CSV file into columns, checking the header.
+
+    The file is UTF-8, with or without the byte-order mark that spreadsheet
+    programs write. Errors name the file's line, never echo its contents.
 
     Raises
     ------
@@ -70,27 +104,40 @@ def read_csv_columns(path: str, *, required: tuple[str, ...], optional: tuple[st
         Naming ``field`` and the missing column, or the unreadable file.
     """
     try:
-        with open(path, newline="", encoding="utf-8") as handle:
+        with open(path, newline="", encoding="utf-8-sig") as handle:
             reader = csv.reader(handle)
             header = [h.strip() for h in next(reader, [])]
-            rows = [row for row in reader if row]
+            rows, lines = [], []
+            for row in reader:
+                if row:
+                    rows.append(row)
+                    lines.append(reader.line_num)
     except (OSError, UnicodeDecodeError) as exc:
-        raise ScenarioError(field, f"a readable CSV file ({exc.__class__.__name__})", path) from None
+        raise ScenarioError(field, f"a readable UTF-8 CSV file ({exc.__class__.__name__})",
+                            path) from None
+    except csv.Error as exc:
+        raise ScenarioError(f"{field} (line {reader.line_num})",
+                            f"a well-formed CSV file ({exc})", path) from None
     for column in required:
         if column not in header:
-            raise ScenarioError(f"{field}:{column}", "a column of the CSV file (columns found: "
-                                + (", ".join(header) or "none") + ")", path)
+            raise ScenarioError(f"{field}:{column}", f"a column of the CSV file "
+                                f"({_shown_header(header)})", path)
     wanted = [c for c in (*required, *optional) if c in header]
     unknown = [c for c in header if c not in (*required, *optional)]
     if unknown:
-        raise ScenarioError(f"{field}:{unknown[0]}", "a known column (one of "
-                            + ", ".join((*required, *optional)) + ")", unknown[0])
+        known = ", ".join((*required, *optional))
+        if _COLUMN_NAME.fullmatch(unknown[0]):
+            raise ScenarioError(f"{field}:{unknown[0]}", f"a known column (one of {known})",
+                                unknown[0])
+        raise ScenarioError(f"{field} (line 1)", f"a header of known columns (one of {known}; "
+                            f"{_shown_header(header)})", path)
     index = {c: header.index(c) for c in wanted}
-    columns: dict[str, list[str]] = {c: [] for c in wanted}
-    for line, row in enumerate(rows, start=2):
+    columns = CsvColumns({c: [] for c in wanted})
+    columns.lines = lines
+    for line, row in zip(lines, rows):
         if len(row) != len(header):
-            raise ScenarioError(f"{field}:line {line}", f"{len(header)} comma-separated values",
-                                ",".join(row))
+            raise ScenarioError(f"{field} (line {line})", f"{len(header)} comma-separated "
+                                f"values like the header", f"{len(row)} values")
         for c, i in index.items():
             columns[c].append(row[i].strip())
     if not rows:
@@ -98,15 +145,18 @@ def read_csv_columns(path: str, *, required: tuple[str, ...], optional: tuple[st
     return columns
 
 
-def _numbers(values: list[str], field: str, *, minimum: float = 0.0) -> np.ndarray:
+def _numbers(columns: CsvColumns, column: str, field: str, *, ids: list[str] | None = None,
+             minimum: float = 0.0, maximum: float = 1e12) -> np.ndarray:
+    """Return one CSV column as floats; a bad cell is named by its line and user id."""
+    values = columns[column]
     out = np.empty(len(values))
     for i, text in enumerate(values):
-        try:
-            out[i] = float(text)
-        except ValueError:
-            raise ScenarioError(field, "a number", text) from None
-        if not np.isfinite(out[i]) or out[i] < minimum:
-            raise ScenarioError(field, f"a finite number >= {minimum:g}", text)
+        value = float(text) if _PLAIN_NUMBER.fullmatch(text) else float("nan")
+        if not (minimum <= value <= maximum):
+            where = f"line {columns.lines[i]}" + (f", user_id {ids[i][:40]!r}" if ids else "")
+            raise ScenarioError(f"{field}:{column} ({where})",
+                                f"a number in [{minimum:g}, {maximum:g}]", text[:40])
+        out[i] = value
     return out
 
 
@@ -188,12 +238,14 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
         columns = read_csv_columns(pools.file, required=("pool_id",), optional=("order_up_to",),
                                    field="pools.file")
         pool_ids = np.array(columns["pool_id"])
-        if np.unique(pool_ids).size != pool_ids.size:
-            raise ScenarioError("pools.file:pool_id", "unique per row", pool_ids[0])
+        _check_unique(columns, "pool_id", "pools.file")
         if "order_up_to" in columns:
-            levels = _numbers(columns["order_up_to"], "pools.file:order_up_to")
-            if np.any(levels != np.round(levels)):
-                raise ScenarioError("pools.file:order_up_to", "whole numbers", levels.tolist())
+            levels = _numbers(columns, "order_up_to", "pools.file", maximum=_MAX_STOCK)
+            fractional = np.flatnonzero(levels != np.round(levels))
+            if fractional.size:
+                k = int(fractional[0])
+                raise ScenarioError(f"pools.file:order_up_to (line {columns.lines[k]})",
+                                    "a whole number", columns["order_up_to"][k][:40])
             order_up_to = levels.astype(np.int64)
     if users.file is not None:
         columns = read_csv_columns(users.file, required=("user_id", "pool_id"),
@@ -204,24 +256,29 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
                                 "history_orders to estimate rates from the pre-period)",
                                 users.file)
         user_ids = np.array(columns["user_id"])
-        if np.unique(user_ids).size != user_ids.size:
-            raise ScenarioError("users.file:user_id", "unique per row", user_ids[0])
+        _check_unique(columns, "user_id", "users.file")
+        ids = columns["user_id"]
         home = np.array(columns["pool_id"])
         if pool_ids is None:
             pool_ids = np.unique(home)
         lookup = {pid: k for k, pid in enumerate(pool_ids.tolist())}
-        missing = [p for p in home.tolist() if p not in lookup]
+        missing = [k for k, p in enumerate(home.tolist()) if p not in lookup]
         if missing:
-            raise ScenarioError("users.file:pool_id", "a pool_id listed in pools.file", missing[0])
+            k = missing[0]
+            raise ScenarioError(f"users.file:pool_id (line {columns.lines[k]}, user_id "
+                                f"{ids[k][:40]!r})", "a pool_id listed in pools.file",
+                                home[k][:40])
         pool_of_user = np.array([lookup[p] for p in home.tolist()], dtype=np.int64)
         if "orders_per_week" in columns:
-            rate = _numbers(columns["orders_per_week"], "users.file:orders_per_week") / \
-                HOURS_PER_WEEK
-            history = (_numbers(columns["history_orders"], "users.file:history_orders")
+            rate = _numbers(columns, "orders_per_week", "users.file", ids=ids,
+                            maximum=_MAX_ORDERS_PER_WEEK) / HOURS_PER_WEEK
+            history = (_numbers(columns, "history_orders", "users.file", ids=ids,
+                                maximum=_MAX_HISTORY_ORDERS)
                        if "history_orders" in columns else
                        rng.poisson(rate * users.history_days * 24.0).astype(float))
         else:
-            history = _numbers(columns["history_orders"], "users.file:history_orders")
+            history = _numbers(columns, "history_orders", "users.file", ids=ids,
+                               maximum=_MAX_HISTORY_ORDERS)
             if users.history_days < 1:
                 raise ScenarioError("users.history_days", "the length of the pre-period "
                                     "(>= 1) when rates are estimated from history_orders",

@@ -1,5 +1,8 @@
 """Figures of a study: drift of each design, bias against noise, stock paths, switchbacks.
 
+The stock and switchback figures live in :mod:`spillgauge.report.world_figures`
+and are re-exported here.
+
 Every plot draws what the study already holds (estimates, metrics, traces,
 switchback profiles); nothing here computes a statistic. Each ``plot_*``
 function draws on the axes (or figure) it is given, so a notebook can place it
@@ -20,24 +23,20 @@ from pathlib import Path
 
 import numpy as np
 
-from spillgauge.report._figure_base import (
-    _BAND,
-    _POOL_COLOURS,
-    _TRUTH,
-    _UNITS,
-    FIGURE_DPI,
-    FIGURE_SIZE_PX,
-    PALETTE,
-    STOCK_DAYS,
-    _axes,
-    _colour,
-    _new_figure,
-    _spread,
-)
+from spillgauge.report._canvas import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
+from spillgauge.report._canvas import TRUTH_COLOUR as _TRUTH
+from spillgauge.report._canvas import axes_or_new as _axes
+from spillgauge.report._canvas import colour as _colour
+from spillgauge.report._canvas import spread as _spread
 from spillgauge.report.launch_figures import launch_labels, plot_launches
+from spillgauge.report.world_figures import STOCK_DAYS, has_traces, plot_stock, plot_switchback
 
 __all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "STOCK_DAYS", "figure_names",
            "plot_estimates", "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
+
+_BAND = "#BBBBBB"
+_UNITS = "fulfilled orders per user over the horizon"
+
 
 def _labels(study) -> list[str]:  # randomized designs (launches: launch_figures.py)
     return [s.label for s in study.scenario.designs if study.designs[s.label].is_randomized]
@@ -160,11 +159,13 @@ def plot_bias_sd(study, ax=None):
     -------
     matplotlib.axes.Axes
         One labelled point per design with bars of +-2 Monte Carlo SE; filled when
-        the design is trusted, hollow when not, ringed when recommended.
+        the design is trusted, hollow when not, ringed when recommended; a test of
+        interference (a diagnostic) is a grey diamond.
     """
     ax = _axes(ax)
     labels = _labels(study)
     trusted = set(study.recommendation.trusted)
+    diagnostics = {label for label, d in study.designs.items() if not d.is_recommendable}
     points = []
     for i, label in enumerate(labels):
         m = study.metrics[label]
@@ -190,8 +191,12 @@ def plot_bias_sd(study, ax=None):
         yerr = 2 * m.sd_se if math.isfinite(m.sd_se) else None
         ax.errorbar(m.bias, m.sd, xerr=xerr, yerr=yerr, color=colour, lw=1, capsize=3,
                     zorder=3)
-        ax.scatter([m.bias], [m.sd], s=80, zorder=4, linewidths=2, edgecolors=colour,
-                   color=colour if label in trusted else "white")
+        if label in diagnostics:  # a test of interference: neither trusted nor not
+            ax.scatter([m.bias], [m.sd], s=80, zorder=4, marker="D", linewidths=2,
+                       edgecolors=colour, color="#dddddd")
+        else:
+            ax.scatter([m.bias], [m.sd], s=80, zorder=4, linewidths=2, edgecolors=colour,
+                       color=colour if label in trusted else "white")
         if label == study.recommendation.label:
             ax.scatter([m.bias], [m.sd], s=320, zorder=2, facecolors="none",
                        edgecolors=_TRUTH, linewidths=1.5)
@@ -203,169 +208,25 @@ def plot_bias_sd(study, ax=None):
     ax.scatter([], [], s=60, color="#777777", label="trusted")
     ax.scatter([], [], s=60, color="white", edgecolors="#777777", linewidths=2,
                label="not trusted")
+    if any(label in diagnostics for _, label, _ in points):
+        ax.scatter([], [], s=60, marker="D", color="#dddddd", edgecolors="#777777",
+                   linewidths=2, label="diagnostic")
     ax.scatter([], [], s=200, facecolors="none", edgecolors=_TRUTH, label="recommended")
     ax.set_xlabel(f"bias: mean of estimate - GTE ({_UNITS})")
     ax.set_ylabel("SD of the estimates (same units)")
     ax.set_title("Bias against noise: the nearer the origin, the more accurate "
                  "(bars: +-2 Monte Carlo SE)", fontsize=11)
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=5, fontsize=9,
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=6, fontsize=9,
               frameon=False)
     _place_labels(ax, [((m.bias, m.sd), label, _colour(i), label == study.recommendation.label)
                        for i, label, m in points])
     return ax
 
 
-def _traces(study) -> tuple[int, dict]:
-    """Return the first replication that kept its traces, and them (-1, {} when none did)."""
-    for rep in study.replications:
-        if rep.traces.get("worlds"):
-            return rep.replication, rep.traces
-    return -1, {}
-
-
-def _design_world(study, worlds: dict) -> str | None:
-    """Return the design whose world is drawn: the user-level design if any, else the first."""
-    labels = [spec.label for spec in study.scenario.designs if spec.label in worlds]
-    user_level = [label for label in labels if study.designs[label].is_user_level]
-    return (user_level or labels or [None])[0]
-
-
-def plot_stock(study, fig=None):
-    """Draw the sample pools' stock level and lost orders, world by world.
-
-    Columns: the all-control world, the all-treated world and one design's world
-    (the user-level design when the study has one, otherwise the first design).
-    The top row shows the stock hour by hour over the first days (at most
-    :data:`STOCK_DAYS`), where each restock cycle can be seen; the bottom row the
-    running total of lost orders over the whole horizon, whose slope is the
-    lost orders per day.
-
-    Parameters
-    ----------
-    study : StudyResult
-    fig : matplotlib.figure.Figure or SubFigure, optional
-        Figure to draw into (it must be empty); a new one of the report's size
-        when not given.
-
-    Returns
-    -------
-    matplotlib.figure.Figure
-        With two rows of axes (stock, lost orders), each row sharing its y axis.
-
-    Raises
-    ------
-    ValueError
-        When no replication of the study kept its traces.
-    """
-    replication, traces = _traces(study)
-    if not traces:
-        raise ValueError("no replication of this study kept its stock traces")
-    fig = fig if fig is not None else _new_figure()
-    worlds = traces["worlds"]
-    design = _design_world(study, worlds)
-    columns = [("all control", "all control: no one treated"),
-               ("all treated", "all treated: everyone treated")]
-    if design is not None:
-        columns.append((design, f"design world: {design}"))
-    axes = fig.subplots(2, len(columns), sharey="row", squeeze=False)
-    calendar = study.scenario.calendar
-    shown_days = min(calendar.days, STOCK_DAYS)
-    pools = traces["pools"]
-    is_any_lost = False
-    for col, (world, title) in enumerate(columns):
-        stock = np.asarray(worlds[world]["stock"], dtype=float)
-        lost = np.asarray(worlds[world]["lost"], dtype=float)
-        is_any_lost = is_any_lost or bool(lost.any())
-        days = np.arange(1, stock.shape[1] + 1) * calendar.tick_hours / 24.0  # tick ends
-        shown = days <= shown_days
-        for k, pool in enumerate(pools):
-            colour = _POOL_COLOURS[k % len(_POOL_COLOURS)]
-            axes[0, col].plot(days[shown], stock[k, shown], color=colour, lw=1.2,
-                              label=f"pool {pool}")
-            axes[1, col].plot(np.r_[0.0, days], np.r_[0.0, np.cumsum(lost[k])], color=colour,
-                              lw=1.5, label=f"pool {pool}")
-        axes[0, col].set_title(title, fontsize=10)
-        axes[0, col].set_xlim(0, shown_days)
-        axes[1, col].set_xlim(0, calendar.days)
-        axes[0, col].set_xlabel(f"day (first {shown_days} of {calendar.days})"
-                                if shown_days < calendar.days else "day of the horizon",
-                                fontsize=9)
-        axes[1, col].set_xlabel("day of the horizon", fontsize=9)
-        for row in (0, 1):
-            axes[row, col].grid(color="#EEEEEE")
-    axes[0, 0].set_ylim(bottom=0)
-    axes[1, 0].set_ylim(bottom=0)
-    if not is_any_lost:
-        axes[1, 0].set_ylim(0, 1)
-        for ax in axes[1]:
-            ax.text(0.5, 0.5, "no order lost in these pools", transform=ax.transAxes,
-                    ha="center", color="#555555")
-    axes[0, 0].set_ylabel("stock on the shelf (units)")
-    axes[1, 0].set_ylabel("lost orders so far (running total)")
-    axes[1, 0].legend(loc="upper left", fontsize=8, framealpha=0.9)
-    fig.suptitle(f"Stock and lost orders in {len(pools)} sample pools (replication "
-                 f"{replication}): a shelf at zero loses orders; steeper lower lines mean more "
-                 "lost sales", fontsize=11)
-    return fig
-
-
-def _tick_unit(tick_hours: int) -> str:
-    return "hour" if tick_hours == 1 else f"{tick_hours}-hour tick"
-
-
-def plot_switchback(study, ax=None):
-    """Draw each switchback's effect by hours since a switch.
-
-    Parameters
-    ----------
-    study : StudyResult
-    ax : matplotlib.axes.Axes, optional
-        Axes to draw on; a new figure of the report's size when not given.
-
-    Returns
-    -------
-    matplotlib.axes.Axes
-        One line per switchback design (treated minus control mean orders per user
-        and tick, from ``study.switch_profiles()``), its burn-in as a dotted line,
-        and the GTE spread evenly over the horizon's ticks as a reference.
-
-    Raises
-    ------
-    ValueError
-        When the study has no switchback design.
-    """
-    profiles = {label: p for label, p in study.switch_profiles().items() if len(p)}
-    if not profiles:
-        raise ValueError("the study has no switchback design")
-    ax = _axes(ax)
-    calendar = study.scenario.calendar
-    tick_hours = calendar.tick_hours
-    unit = _tick_unit(tick_hours)
-    ax.axhline(0.0, color=_TRUTH, lw=1.0)
-    ax.axhline(study.truth.gte / calendar.n_ticks, color=_TRUTH, lw=1.2, ls="--",
-               label=f"GTE spread evenly over the horizon's {calendar.n_ticks} ticks")
-    labels = _labels(study)
-    for label, profile in profiles.items():
-        i = labels.index(label) if label in labels else len(labels)
-        spec = study.scenario.design(label) if label in labels else None
-        hours = np.arange(len(profile)) * tick_hours
-        ax.plot(hours, profile, color=_colour(i), marker="o", ms=4, lw=1.5, label=label)
-        if spec is not None and spec.burn_in_hours:
-            ax.axvline(spec.burn_in_hours, color=_colour(i), ls=":", lw=1.5,
-                       label=f"{label}: end of burn-in")
-    ax.set_xlabel("hours since a switch (start of a block whose arm changed)")
-    ax.set_ylabel(f"treated - control fulfilled orders\nper user per {unit}")
-    ax.set_title("Effect by hours since a switch: carryover shows in the first hours, on top "
-                 "of the daily demand rhythm", fontsize=11)
-    ax.legend(fontsize=9, framealpha=0.9)
-    ax.grid(color="#EEEEEE")
-    return ax
-
-
 def figure_names(study) -> list[str]:
     """Return the names of the figures this study can draw (file names without ``.png``)."""
     names = ["estimates", "bias_sd"]
-    if _traces(study)[1]:
+    if has_traces(study):
         names.append("stock")
     if any(len(p) for p in study.switch_profiles().values()):
         names.append("switchback")

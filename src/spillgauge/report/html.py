@@ -13,11 +13,13 @@ import html
 from pathlib import Path
 
 from spillgauge.formatting import format_quantity
+from spillgauge.scenario.config import settings_in_use
+from spillgauge.statistics.trust import few_replications_note
 
-__all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "render_html"]
+__all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "STYLE", "render_html"]
 
-SECTION_IDS = ("scenario", "market", "truth", "designs", "recommendation", "figures",
-               "caution")
+SECTION_IDS = ("recommendation", "designs", "launches", "truth", "figures", "market",
+               "scenario", "caution")  # in page order: the answer first, the settings last
 CAUTION = ("Results follow from the model's assumptions; a simulated recommendation is an "
            "input to, not a substitute for, the team's own review of an experiment that "
            "touches real users.")
@@ -35,23 +37,27 @@ CAPTIONS = {
         "join points of equal \u221a(bias\u00b2 + SD\u00b2): the inner the arc, the more "
         "accurate the design. The table's RMSE is measured against each replication's own "
         "GTE, so it can sit below the arc when the estimates move with the GTE. Filled "
-        "points are trusted, hollow ones are not; the ring marks the recommendation."),
+        "points are trusted, hollow ones are not; the ring marks the recommendation. A grey "
+        "diamond is a test of interference: a diagnostic, never a unit to choose."),
     "stock": (
-        "Stock and lost orders in the busiest sample pools of one replication, in the world "
-        "where no one is treated, the world where everyone is, and one design's world. "
-        "Top: stock at the end of each tick over the first days; each jump is a restock, "
-        "each stretch at zero a stock-out. Bottom: lost orders so far over the horizon. "
-        "Where the design's world loses more orders than the all-control world, its "
-        "control users buy from shelves that treated users emptied (stock-out spillover), "
-        "which inflates a comparison of treated and control users."),
+        "Stock and lost orders in three worlds of one replication: the world where no one "
+        "is treated (grey), the world where everyone is (orange) and one design's world "
+        "(dashed blue). Left: the stock of one sample pool hour by hour over the first days; "
+        "each jump is a restock, each stretch at zero a stock-out. Right: lost orders so far "
+        "over the horizon, summed over the sample pools. Where the design's world loses more "
+        "orders than the all-control world, its control users buy from shelves that treated "
+        "users emptied (stock-out spillover), which inflates a comparison of treated and "
+        "control users."),
     "switchback": (
-        "The effect by hours since a switch, for each switchback design: treated minus "
-        "control fulfilled orders per user and tick, over blocks whose arm changed, "
-        "averaged over blocks and replications. Blocks start at the same clock hours, so "
-        "the daily demand rhythm shapes every line. On top of it, a slow rise in the first "
-        "hours is carryover from the previous arm (what a burn-in, the dotted line, leaves "
-        "out), and a fall late in the block is the treated units' stock running out first. "
-        "The dashed line is the GTE spread evenly over the horizon's ticks."),
+        "How long after a switch the effect settles, to choose a burn-in. Each line is one "
+        "switchback design: treated minus control fulfilled orders per 1,000 users per hour, "
+        "by hours since a switch (the start of a block whose arm changed), averaged over blocks and "
+        "replications; the band is \u00b12 Monte Carlo SE. The dashed line is the GTE's "
+        "level (the true effect spread evenly over the horizon). Blocks start at the same "
+        "clock hours, so the daily demand rhythm shapes every line. When the scenario has "
+        "carryover, the grey span marks the hours until it fades to 10%: a burn-in (dotted "
+        "line) that reaches past it drops the hours the previous arm still blurs; a fall late "
+        "in a block is the treated units' stock running out first."),
 }
 _TITLES = {"estimates": "Drift: estimates against the true effect",
            "bias_sd": "Bias against SD", "stock": "Stock and lost orders in three worlds",
@@ -81,12 +87,20 @@ th{background:#f2f2f2}td.text,th.text{text-align:left}tbody tr:nth-child(even){b
 .trusted,.untrusted{font-weight:600;white-space:nowrap}.trusted{color:#005a8c}
 .untrusted{color:#b34700}
 tr.chosen td{background:#e6f1f8}.settings{display:flex;flex-wrap:wrap;gap:0 1.6rem}
-.verdict{font-size:1.15rem;font-weight:600}.box{border-left:4px solid #0072B2;
-background:#f4f8fb;padding:.6rem 1rem}.box.warn{border-color:#D55E00;background:#fcf3ee}
+.verdict{font-size:1.15rem;font-weight:600;margin:.2rem 0 .5rem}.box{border-left:6px solid #0072B2;
+background:#f4f8fb;padding:.6rem 1rem;border-radius:0 4px 4px 0}
+.box.ok{border-color:#009E73;background:#eef8f4}
+.box.warn{border:2px solid #D55E00;border-left-width:6px;background:#fdf0e8}
+.box.warn .verdict{color:#8f3300}.icon{font-size:1.3em;margin-right:.3rem}
+.diagnostic{color:#555;font-style:italic;white-space:nowrap}
+.lead{font-size:1.02rem}
 figure{margin:1.2rem 0 2rem}figure img{max-width:100%;height:auto;border:1px solid #e2e2e2}
 figcaption{color:#333;font-size:.92rem;margin-top:.4rem}
 #caution p{font-style:italic;background:#f7f7f7;padding:.6rem 1rem;border-radius:4px}
 """
+
+
+STYLE = _STYLE  # shared with the sweep's page
 
 
 def _e(value: object) -> str:
@@ -134,18 +148,19 @@ def _scenario(study, summary: dict) -> str:
     if study.scenario.description:
         parts.append(f"<p>{_e(' '.join(study.scenario.description.split()))}</p>")
     designs = settings.pop("design", [])
-    tables = [f"<div><h3>{_e(name)}</h3>{_pairs(list(table.items()))}</div>"
-              for name, table in settings.items() if isinstance(table, dict)]
+    tables = [f"<div><h3>{_e(name)}</h3>{_pairs(list(settings_in_use(name, table).items()))}"
+              "</div>" for name, table in settings.items() if isinstance(table, dict)]
     others = [(k, v) for k, v in settings.items()
               if not isinstance(v, dict) and k not in ("name", "description")]
     if others:
         tables.append(f"<div><h3>other</h3>{_pairs(others)}</div>")
     parts.append(f'<div class="settings">{"".join(tables)}</div>')
     if designs:
-        keys = list(dict.fromkeys(k for d in designs for k in d))
+        keys = list(dict.fromkeys(k for d in designs for k in d
+                                  if any(e.get(k) not in (None, "") for e in designs)))
         parts.append("<h3>designs</h3>" + _grid(
             keys, [[_e(_plain(d.get(k, ""))) for k in keys] for d in designs], text_columns=2))
-    return _section("scenario", "Scenario", "".join(parts))
+    return _section("scenario", "Scenario settings", "".join(parts))
 
 
 def _market(summary: dict) -> str:
@@ -192,8 +207,13 @@ def _designs(study, summary: dict) -> str:
     for d in summary["designs"]:
         if not d.get("is_randomized", True):
             continue  # shown in "If you do not randomize"
-        mark = ('<span class="trusted">\u2713 trusted</span>' if d["label"] in trusted else
-                '<span class="untrusted">\u2717 not trusted</span>')
+        design = study.designs.get(d["label"])
+        if design is not None and not design.is_recommendable:
+            mark = '<span class="diagnostic">diagnostic</span>'  # a test, never a unit to choose
+        elif d["label"] in trusted:
+            mark = '<span class="trusted">\u2713 trusted</span>'
+        else:
+            mark = '<span class="untrusted">\u2717 not trusted</span>'
         label = (_e(d["label"]) + (" <strong>(recommended)</strong>" if d["label"] == chosen
                                    else "") + f'<br><span class="se">{_e(d["estimator"])}</span>')
         rows.append([label, _e(d["unit"]),
@@ -206,7 +226,8 @@ def _designs(study, summary: dict) -> str:
             "confidence interval covers the GTE nearly as often as promised and its bias is "
             "small against its noise. "
             "Type S is the share of significant estimates with the wrong sign, Type M their "
-            "mean exaggeration of the effect.</p>")
+            "mean exaggeration of the effect. A test of interference is a diagnostic: it "
+            "says whether units interfere, and is never a unit to randomize by.</p>")
     return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
 
 
@@ -227,18 +248,35 @@ def _launches(summary: dict) -> str:
 
 
 def _recommendation(study, summary: dict) -> str:
+    """The answer, first on the page: the verdict, its reason, the truth it was judged on."""
     rec = summary["recommendation"]
     if rec["label"] is None:
-        verdict = "No design can be trusted in this market."
-        box = "box warn"
+        verdict, is_warning = "No design can be trusted in this market.", True
     else:
         verdict = f"Recommended design: {rec['label']}."
-        box = "box" if rec["is_trustworthy"] else "box warn"
-    content = (f'<div class="{box}"><p class="verdict">{_e(verdict)}</p>'
-               f"<p>{_e(rec['reason'])}</p></div>")
+        is_warning = not rec["is_trustworthy"]
+    if is_warning:
+        opening = ('<div class="box warn" role="alert"><p class="verdict">'
+                   '<span class="icon" aria-hidden="true">\u26a0</span>Warning: ')
+    else:
+        opening = '<div class="box ok"><p class="verdict">'
+    t = summary["truth"]
+    se = t.get("gte_se")
+    gte = (f"True GTE {_e(format_quantity(t.get('gte')))} fulfilled orders per user over the "
+           "horizon" + (f" (Monte Carlo SE {_e(format_quantity(se))})" if se is not None else "")
+           + f", over {summary['reps']:,} replications.")
+    content = (f"{opening}{_e(verdict)}</p><p class=\"lead\">{_e(rec['reason'])}</p>"
+               f"<p>{gte}</p></div>")
+    note = few_replications_note(summary["reps"], study.scenario.study.alpha)
+    if note:
+        content += f'<p class="box warn">{_e(note)}</p>'
+
     from spillgauge.report.text import interference_lines
 
-    content += "".join(f"<p>{_e(line.strip())}</p>" for line in interference_lines(study))
+    lines = [line.strip() for line in interference_lines(study)]
+    if lines:
+        content += ("<h3>Diagnostic: test of interference</h3>"
+                    + "".join(f"<p>{_e(line)}</p>" for line in lines))
     return _section("recommendation", "Recommendation", content)
 
 
@@ -254,15 +292,6 @@ def _figures(figures: dict) -> str:
     if not parts:
         parts.append("<p>No figures were drawn for this study.</p>")
     return _section("figures", "Figures", "".join(parts))
-
-
-def _glance(summary: dict) -> str:
-    rec = summary["recommendation"]
-    verdict = (f"Recommended: {rec['label']}" if rec["label"] is not None
-               else "No design can be trusted")
-    return (f'<p class="box">{_e(verdict)}; true GTE '
-            f"{_e(format_quantity(summary['truth'].get('gte')))} fulfilled orders per user. "
-            '<a href="#recommendation">Why</a></p>')
 
 
 def render_html(study, figures: dict) -> str:
@@ -294,15 +323,18 @@ def render_html(study, figures: dict) -> str:
     """
     summary = study.summary()
     title = f"{summary['scenario']}: which randomization unit?"
-    nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS)
-    body = "".join([_scenario(study, summary), _market(summary), _truth(summary),
-                    _designs(study, summary), _launches(summary), _recommendation(study, summary),
-                    _figures(figures),
-                    _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
+    parts = {"recommendation": _recommendation(study, summary),
+             "designs": _designs(study, summary), "launches": _launches(summary),
+             "truth": _truth(summary),
+             "figures": _figures(figures), "market": _market(summary),
+             "scenario": _scenario(study, summary),
+             "caution": _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")}
+    body = "".join(parts[name] for name in SECTION_IDS)
+    nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS if parts[s])
     return ("<!DOCTYPE html>\n"
             '<html lang="en"><head><meta charset="utf-8">'
             '<meta name="viewport" content="width=device-width, initial-scale=1">'
             f"<title>{_e(title)}</title><style>{_STYLE}</style></head><body>"
             f"<header><h1>{_e(title)}</h1><p class=\"meta\">spillgauge study report: "
             f"{summary['reps']:,} replications, seed {_e(summary['seed'])}</p>"
-            f"{_glance(summary)}<nav>{nav}</nav></header><main>{body}</main></body></html>\n")
+            f"<nav>{nav}</nav></header><main>{body}</main></body></html>\n")

@@ -8,7 +8,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from spillgauge.report._figure_base import _axes, _colour, _spread
+from spillgauge.report._canvas import axes_or_new as _axes
+from spillgauge.report._canvas import colour as _colour
+from spillgauge.report._canvas import spread as _spread
 
 __all__ = ["launch_labels", "plot_launches"]
 

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from spillgauge.formatting import format_value
 from spillgauge.report.figures import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
-from spillgauge.report.html import CAUTION
+from spillgauge.report.html import CAUTION, STYLE
 
 __all__ = ["plot_sweep_metric", "plot_recommendation_grid", "save_sweep_figures",
            "render_sweep_html"]
@@ -89,13 +89,18 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
         y = rows[metric].to_numpy(dtype=float)
         se = rows[f"{metric}_se"].to_numpy(dtype=float) if f"{metric}_se" in rows else None
         colour = _colour(i)
-        ax.errorbar(x, y, yerr=se, fmt="-", color=colour, capsize=3, linewidth=1.6,
-                    label=label)
+        is_diagnostic = "is_diagnostic" in rows and bool(rows["is_diagnostic"].any())
+        ax.errorbar(x, y, yerr=se, fmt="--" if is_diagnostic else "-", color=colour, capsize=3,
+                    linewidth=1.6, label=f"{label} (diagnostic)" if is_diagnostic else label)
         trusted = rows["trusted"].to_numpy(dtype=bool) if "trusted" in rows else \
             [True] * len(rows)
         for xi, yi, ok in zip(x, y, trusted):
-            ax.plot([xi], [yi], marker="o", markersize=6.5, color=colour,
-                    markerfacecolor=colour if ok else "white", markeredgewidth=1.5)
+            if is_diagnostic:  # a test of interference: neither trusted nor not
+                ax.plot([xi], [yi], marker="D", markersize=6, color=colour,
+                        markerfacecolor="#dddddd", markeredgewidth=1.5)
+            else:
+                ax.plot([xi], [yi], marker="o", markersize=6.5, color=colour,
+                        markerfacecolor=colour if ok else "white", markeredgewidth=1.5)
     if metric == "coverage":
         if alpha is None:
             alpha = float(sweep_frame["alpha"].iloc[0]) if "alpha" in sweep_frame else 0.05
@@ -114,7 +119,8 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
     ax.set_ylabel(_METRIC_NAMES.get(metric, metric))
     name = _METRIC_NAMES.get(metric, metric).split(" (")[0]
     ax.set_title(f"{name[0].upper() + name[1:]} by {key}\n"
-                 "bars: ±1 Monte Carlo SE; hollow marker: design not trusted", fontsize=10)
+                 "bars: ±1 Monte Carlo SE; hollow marker: design not trusted; "
+                 "grey diamond: diagnostic", fontsize=10)
     ax.grid(True, color="0.9", linewidth=0.8)
     ax.legend(fontsize=8, frameon=False, loc="best")
     return ax
@@ -200,22 +206,35 @@ def _save_png(fig, path: Path) -> None:
     write_atomic_with(path, lambda stream: fig.savefig(stream, format="png", dpi=FIGURE_DPI))
 
 
+def _trust_cell(row: dict) -> str:
+    if row.get("is_diagnostic"):
+        return '<span class="diagnostic">diagnostic</span>'
+    return ('<span class="trusted">\u2713 yes</span>' if row["trusted"] else
+            '<span class="untrusted">\u2717 no</span>')
+
+
 def _table(frame, keys: list[str]) -> str:
     head = [*keys, "design", "bias ± SE", "RMSE", "coverage", "trusted", "recommended"]
-    lines = ["<table>", "<tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in head) + "</tr>"]
+    lines = ['<div class="scroll"><table><thead>',
+             "<tr>" + "".join(f'<th{" class=text" if i <= len(keys) else ""}>{html.escape(h)}</th>'
+                              for i, h in enumerate(head)) + "</tr></thead><tbody>"]
     for row in frame.to_dict("records"):
-        cells = [*(format_value(row[k]) for k in keys), row["label"],
-                 f"{row['bias']:+.3g} ± {row['bias_se']:.2g}", f"{row['rmse']:.3g}",
-                 f"{row['coverage']:.1%}", "yes" if row["trusted"] else "no",
-                 "yes" if row["recommended"] else ""]
-        lines.append("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells) + "</tr>")
-    lines.append("</table>")
+        cells = [*(html.escape(format_value(row[k])) for k in keys), html.escape(row["label"]),
+                 html.escape(f"{row['bias']:+.3g} ± {row['bias_se']:.2g}"),
+                 html.escape(f"{row['rmse']:.3g}"), html.escape(f"{row['coverage']:.1%}"),
+                 _trust_cell(row), "<strong>recommended</strong>" if row["recommended"] else ""]
+        attr = ' class="chosen"' if row["recommended"] else ""
+        lines.append(f"<tr{attr}>" + "".join(
+            f'<td{" class=text" if i <= len(keys) else ""}>{c}</td>' for i, c in enumerate(cells))
+            + "</tr>")
+    lines.append("</tbody></table></div>")
     return "\n".join(lines)
 
 
 def render_sweep_html(sweep, figures: list[str | Path]) -> str:
     """Return a self-contained HTML page of the sweep: answer, figures, table, caution.
 
+    The page shares the study report's style sheet; the answer comes first.
     Figures are embedded as base64 PNG images, so the page needs no other file;
     every text taken from the study is HTML-escaped.
     """
@@ -223,19 +242,22 @@ def render_sweep_html(sweep, figures: list[str | Path]) -> str:
     images = []
     for path in figures:
         data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
-        images.append(f'<img alt="{html.escape(Path(path).stem)}" '
-                      f'src="data:image/png;base64,{data}">')
+        name = html.escape(Path(path).stem)
+        images.append(f'<figure id="figure-{name}"><img alt="{name}" '
+                      f'src="data:image/png;base64,{data}"></figure>')
     title = f"Sweep of {' and '.join(keys)}: {sweep.scenario.name}"
     return "\n".join([
         "<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
-        f"<title>{html.escape(title)}</title>",
-        "<style>body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.4}"
-        "table{border-collapse:collapse;font-size:.9em}td,th{border:1px solid #ccc;"
-        "padding:.2em .5em;text-align:right}img{max-width:100%;display:block;margin:1em 0}"
-        ".caution{border-left:4px solid #c80;padding:.5em 1em;background:#fff7e6}</style>",
-        "</head><body>", f"<h1>{html.escape(title)}</h1>",
-        f"<p>{sweep.reps} replications per point, seed {sweep.seed} at every point "
-        "(common random numbers across points).</p>",
-        f'<p class="answer"><strong>{html.escape(sweep.answer())}</strong></p>',
-        *images, _table(sweep.frame(), keys),
-        f'<p class="caution">{html.escape(CAUTION)}</p>', "</body></html>"])
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{html.escape(title)}</title><style>{STYLE}</style>",
+        "</head><body><header>", f"<h1>{html.escape(title)}</h1>",
+        f'<p class="meta">spillgauge sweep: {sweep.reps} replications per point, seed '
+        f"{sweep.seed} at every point (common random numbers across points).</p></header>",
+        '<main><section id="answer"><h2>Answer</h2>',
+        f'<div class="box"><p class="lead answer">{html.escape(sweep.answer())}</p></div>'
+        "</section>",
+        '<section id="figures"><h2>Figures</h2>', *images, "</section>",
+        '<section id="points"><h2>Every point and design</h2>', _table(sweep.frame(), keys),
+        "</section>",
+        f'<section id="caution"><h2>Caution</h2><p>{html.escape(CAUTION)}</p></section>',
+        "</main></body></html>"])

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from spillgauge.statistics.trust import few_replications_note
 from spillgauge.formatting import format_cell
 
 __all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows",
@@ -135,6 +136,9 @@ def study_text(study) -> str:
     rec = summary["recommendation"]
     lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
               rec["reason"]]
+    note = few_replications_note(summary["reps"], study.scenario.study.alpha)
+    if note:
+        lines += ["", "note: " + note]
     return "\n".join(lines)
 
 
@@ -166,11 +170,14 @@ def study_markdown(study) -> str:
              f"**{truth['gte']:.4f}** fulfilled orders per user over the horizon.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
-    lines += [line.strip() for line in interference_lines(study)]
+    for line in interference_lines(study):  # a paragraph each, after a blank line ending the table
+        lines += ["", "Diagnostic, " + line.strip()]
     lines += not_randomized_lines(summary, markdown=True)
     rec = summary["recommendation"]
     lines += ["", f"**Recommendation: {rec['label'] or 'no design can be trusted'}.** "
               + rec["reason"], "",
+              *([f"_{note}_", ""] if (note := few_replications_note(
+                  summary["reps"], study.scenario.study.alpha)) else []),
               "_Results follow from the model's assumptions; a simulated recommendation is an "
               "input to, not a substitute for, the team's own review of an experiment that "
               "touches real users._"]

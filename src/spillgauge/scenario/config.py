@@ -8,13 +8,14 @@ reads them from TOML.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 from spillgauge.errors import ScenarioError
 from spillgauge.scenario.keys import check as _check
 
 __all__ = [
+    "GRAPH_MODEL_KEYS",
+    "settings_in_use",
     "Calendar",
     "Users",
     "Pools",
@@ -30,6 +31,25 @@ __all__ = [
 _STOCKOUT_RULES = ("lost", "substitute")
 CLUSTER_SOURCES = ("pools", "graph", "pools+graph")  # the clusterings a market offers
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
+# The [graph] keys each model reads (besides `model`); the others are ignored.
+GRAPH_MODEL_KEYS = {"none": (), "small_world": ("mean_degree", "rewire_share"),
+                    "pool_blocks": ("mean_degree", "within_pool_share"),
+                    "communities": ("mean_degree", "community_count", "within_community_share"),
+                    "edge_list": ("file",)}
+
+
+def settings_in_use(section: str, table: dict) -> dict:
+    """Return a section's settings without the keys its other choices make irrelevant.
+
+    >>> settings_in_use("graph", {"model": "none", "mean_degree": 10})
+    {'model': 'none'}
+    """
+    if section == "graph" and table.get("model") in GRAPH_MODEL_KEYS:
+        used = ("model", *GRAPH_MODEL_KEYS[table["model"]])
+        return {k: v for k, v in table.items() if k in used}
+    if section == "pools" and table.get("on_stockout") == "lost":
+        return {k: v for k, v in table.items() if k != "substitute_share"}
+    return {k: v for k, v in table.items() if v is not None}
 
 
 
@@ -46,7 +66,7 @@ class Calendar:
     trend_per_week: float = 0.0
 
     def __post_init__(self) -> None:
-        _check(self.days >= 1, "calendar.days", "an int >= 1", self.days)
+        _check(1 <= self.days <= 36_500, "calendar.days", "an int in [1, 36500]", self.days)
         _check(self.tick_hours >= 1 and 24 % self.tick_hours == 0, "calendar.tick_hours",
                "an int >= 1 that divides 24 (1, 2, 3, 4, 6, 8, 12 or 24)", self.tick_hours)
         _check(0.0 <= self.diurnal_amplitude < 1.0, "calendar.diurnal_amplitude",
@@ -81,12 +101,13 @@ class Users:
     file: str | None = None
 
     def __post_init__(self) -> None:
-        _check(self.count >= 1, "users.count", "an int >= 1", self.count)
-        _check(self.orders_per_week > 0 and math.isfinite(self.orders_per_week),
-               "users.orders_per_week", "a finite number > 0", self.orders_per_week)
-        _check(self.rate_shape > 0 and math.isfinite(self.rate_shape), "users.rate_shape",
-               "a finite number > 0", self.rate_shape)
-        _check(self.history_days >= 0, "users.history_days", "an int >= 0", self.history_days)
+        _check(1 <= self.count <= 10**10, "users.count", "an int in [1, 1e10]", self.count)
+        _check(0 < self.orders_per_week <= 10_000, "users.orders_per_week", "in (0, 10000]",
+               self.orders_per_week)
+        _check(0.001 <= self.rate_shape <= 1e6, "users.rate_shape", "in [0.001, 1e6]",
+               self.rate_shape)
+        _check(0 <= self.history_days <= 36_500, "users.history_days", "an int in [0, 36500]",
+               self.history_days)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -117,12 +138,12 @@ class Pools:
         if self.factor_sd > 0:
             _check(self.factor_count >= 1, "pools.factor_count",
                    f">= 1 when pools.factor_sd = {self.factor_sd:g} > 0", self.factor_count)
-        _check(self.restock_every_hours >= 1, "pools.restock_every_hours", "an int >= 1",
-               self.restock_every_hours)
+        _check(1 <= self.restock_every_hours <= 876_000, "pools.restock_every_hours",
+               "an int in [1, 876000]", self.restock_every_hours)
         _check(0 <= self.lead_time_hours < self.restock_every_hours, "pools.lead_time_hours",
                f"in [0, restock_every_hours={self.restock_every_hours})", self.lead_time_hours)
-        _check(self.stock_cover > 0 and math.isfinite(self.stock_cover), "pools.stock_cover",
-               "a finite number > 0", self.stock_cover)
+        _check(0 < self.stock_cover <= 1000, "pools.stock_cover", "in (0, 1000]",
+               self.stock_cover)
         _check(0 <= self.demand_spread <= 3, "pools.demand_spread", "in [0, 3]",
                self.demand_spread)
         _check(self.on_stockout in _STOCKOUT_RULES, "pools.on_stockout",
@@ -193,7 +214,7 @@ class Study:
     alpha: float = 0.05
 
     def __post_init__(self) -> None:
-        _check(self.reps >= 1, "study.reps", "an int >= 1", self.reps)
+        _check(1 <= self.reps <= 1_000_000, "study.reps", "an int in [1, 1000000]", self.reps)
         _check(0 <= self.seed < 2**63, "study.seed", "an int in [0, 2**63)", self.seed)
         _check(0 < self.alpha < 1, "study.alpha", "in (0, 1)", self.alpha)
 
@@ -260,8 +281,9 @@ class Scenario:
     def __post_init__(self) -> None:
         _check(isinstance(self.name, str) and self.name.strip() != "", "name",
                "a non-empty string", self.name)
-        _check(all(c.isalnum() or c in "-_." for c in self.name), "name",
-               "letters, digits, '-', '_' or '.' (it names the results folder)", self.name)
+        _check(all(c.isalnum() or c in "-_." for c in self.name) and self.name.strip(".") != "",
+               "name", "letters, digits, '-', '_' or '.', not only dots (it names the results "
+               "folder)", self.name)
         tick = self.calendar.tick_hours
         for key, hours in (("pools.restock_every_hours", self.pools.restock_every_hours),
                            ("pools.lead_time_hours", self.pools.lead_time_hours)):

@@ -9,7 +9,7 @@ from spillgauge.formatting import format_number
 from spillgauge.statistics.metrics import DesignMetrics
 
 __all__ = ["TrustVerdict", "assess_trust", "is_trusted", "COVERAGE_ALLOWANCE",
-           "MIN_USABLE_SHARE"]
+           "MIN_USABLE_SHARE", "replications_for_coverage", "few_replications_note"]
 
 COVERAGE_ALLOWANCE = 0.05  # points of coverage below nominal that are tolerated
 MIN_USABLE_SHARE = 0.95  # share of replications that must give an estimate and an interval
@@ -126,3 +126,37 @@ def is_trusted(metrics: DesignMetrics, *, alpha: float = 0.05) -> bool:
     True
     """
     return assess_trust(metrics, alpha=alpha).is_trusted
+
+
+def replications_for_coverage(alpha: float = 0.05) -> int:
+    """Return the replications at which coverage is known to within the trust rule's allowance.
+
+    The Monte Carlo SE of a coverage near its nominal ``1 - alpha`` is
+    ``sqrt(alpha (1 - alpha) / n)``, the binomial SE of a proportion (Morris,
+    White & Crowther 2019, "Using simulation studies to evaluate statistical
+    methods", Stat. Med. 38, their table of Monte Carlo SEs; cited from memory).
+    The rule tolerates ``max(COVERAGE_ALLOWANCE, 2 SE)`` points below
+    nominal, so below ``n = 4 alpha (1 - alpha) / COVERAGE_ALLOWANCE**2`` the
+    tolerance widens with Monte Carlo error, and verdicts are loose.
+
+    >>> replications_for_coverage(0.05)
+    76
+    """
+    return math.ceil(4 * alpha * (1 - alpha) / COVERAGE_ALLOWANCE ** 2 - 1e-9)
+
+
+def few_replications_note(n_reps: int, alpha: float = 0.05) -> str | None:
+    """Say when a study has too few replications for its trust verdicts to be firm.
+
+    >>> few_replications_note(40)
+    'With 40 replications, CI coverage is known only to about \u00b17 points (2 Monte Carlo SE), so trust verdicts are loose: run at least 76 replications for firm ones.'
+    >>> few_replications_note(200) is None
+    True
+    """
+    needed = replications_for_coverage(alpha)
+    if n_reps >= needed:
+        return None
+    margin = 2 * math.sqrt(alpha * (1 - alpha) / max(n_reps, 1))
+    return (f"With {n_reps} replications, CI coverage is known only to about "
+            f"\u00b1{100 * margin:.0f} points (2 Monte Carlo SE), so trust verdicts are loose: "
+            f"run at least {needed} replications for firm ones.")

@@ -7,14 +7,18 @@ so the results are the same bits; ``finished`` is called in completion order.
 from __future__ import annotations
 
 import os
+import signal
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
+from spillgauge.errors import ScenarioError
 from spillgauge.market.build import build_market
 from spillgauge.scenario import Scenario
 from spillgauge.study.replication import ReplicationResult, run_replication
 
 __all__ = ["default_workers", "run_replications"]
+
+_CONNECT_TIMEOUT_S = 5.0  # a scheduler that does not answer in this time is reported
 
 
 def default_workers() -> int:
@@ -23,6 +27,11 @@ def default_workers() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:  # pragma: no cover - platforms without affinity
         return max(1, os.cpu_count() or 1)
+
+
+def _ignore_interrupts() -> None:
+    """Leave Ctrl-C to the parent process, which stops the workers and reports once."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _run_task(scenario: Scenario, seed: int, replication: int,
@@ -52,25 +61,44 @@ def run_replications(scenario: Scenario, seed: int, todo: list[int], *, workers:
     import multiprocessing
 
     context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
-    pool = ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context)
+    pool = ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context,
+                               initializer=_ignore_interrupts)
     try:
         futures = [pool.submit(_run_task, scenario, seed, r, designs) for r in todo]
         for future in as_completed(futures):
             finished(future.result())
     except BaseException:
-        pool.shutdown(wait=False, cancel_futures=True)  # an interrupt stops queued work at once
+        # An interrupt (or an error) stops the work at once: queued replications are
+        # cancelled and running ones abandoned; finished ones were handed over already.
+        for process in list((getattr(pool, "_processes", None) or {}).values()):
+            process.terminate()
+        pool.shutdown(wait=False, cancel_futures=True)
         raise
     pool.shutdown()
 
 
-def _run_on_dask(address: str, scenario: Scenario, seed: int, todo: list[int],
-                 finished: Callable[[ReplicationResult], None], designs: tuple | None) -> None:
+def _connect(address: str):
+    """Return a Dask client connected to ``address``, or a ScenarioError naming it."""
+    timeout_s = _CONNECT_TIMEOUT_S
     try:
         from dask.distributed import Client
+    except ImportError:
+        raise ScenarioError("--scheduler", "used with Dask installed (pip install "
+                            "'spillgauge[dask]')", address) from None
+    try:
+        return Client(address, timeout=timeout_s)
+    except (OSError, ValueError, TypeError) as exc:  # refused, timed out, or not an address
+        reason = (f"could not connect within {timeout_s:g} s" if isinstance(exc, OSError) else
+                  f"not an address: {str(exc)[:80]}")
+        raise ScenarioError("--scheduler", f"the address of a running Dask scheduler, e.g. "
+                            f"tcp://127.0.0.1:8786 ({reason})", address) from None
+
+
+def _run_on_dask(address: str, scenario: Scenario, seed: int, todo: list[int],
+                 finished: Callable[[ReplicationResult], None], designs: tuple | None) -> None:
+    with _connect(address) as client:
         from dask.distributed import as_completed as dask_completed
-    except ImportError as exc:  # pragma: no cover - depends on the environment
-        raise RuntimeError("--scheduler needs Dask: pip install 'spillgauge[dask]'") from exc
-    with Client(address) as client:
+
         futures = [client.submit(_run_task, scenario, seed, r, designs, pure=False) for r in todo]
         for future in dask_completed(futures):
             finished(future.result())

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 
 from spillgauge.errors import MemoryLimitError
@@ -15,6 +16,7 @@ _BYTES_PER_USER_WORLD = 40      # per-user totals (placed, fulfilled) of each wo
 _BYTES_PER_USER_DAY_WORLD = 16  # fulfilled and demanded per user and day, and the count
 _BYTES_PER_USER = 120           # population, clusters, graph degree
 _BYTES_PER_EDGE = 24            # symmetric CSR adjacency (data + index, both directions)
+_BYTES_PER_EDGE_BUILD = 110     # building the graph (edge arrays, sort, dedupe): measured 106
 _BASE_BYTES = 200 * 2**20       # interpreter, numpy, scipy, networkx, simpy
 
 
@@ -30,11 +32,13 @@ def _orders_per_week(scenario: Scenario) -> float:
                                field="users.file")
     try:
         if "orders_per_week" in columns:
-            return max(float(sum(map(float, columns["orders_per_week"]))) /
-                       len(columns["orders_per_week"]), 0.0)
-        if "history_orders" in columns and users.history_days > 0:
-            total = sum(map(float, columns["history_orders"]))
-            return total / len(columns["history_orders"]) / users.history_days * 7
+            values = [float(v) for v in columns["orders_per_week"]]
+            if all(map(math.isfinite, values)):
+                return max(sum(values) / len(values), 0.0)
+        elif "history_orders" in columns and users.history_days > 0:
+            values = [float(v) for v in columns["history_orders"]]
+            if all(map(math.isfinite, values)):
+                return sum(values) / len(values) / users.history_days * 7
     except ValueError:
         pass  # the population builder names the bad value
     return users.orders_per_week
@@ -54,7 +58,7 @@ def _count_lines(path: str) -> int:
 
 
 def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
-                          workers: int = 1) -> int:
+                          workers: int = 1, market_only: bool = False) -> int:
     """Return an estimate of the peak resident memory of a run, in bytes.
 
     Each process holds the market and one replication at a time: its candidate
@@ -62,14 +66,18 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
     per-user totals (users x days when a design's kind declares
     ``needs_user_days``). ``n_worlds`` defaults to the two truth worlds plus one
     per design. The estimate errs high (it assumes the peak rate all day long).
+    ``market_only`` counts only building the market (``spillgauge check``, and
+    the local process of a run on a Dask cluster).
     """
     from spillgauge.designs.registry import kind_of
 
     n_users = scenario.users.count if scenario.users.file is None else \
         _count_lines(scenario.users.file)
+    edges = n_users * scenario.graph.mean_degree / 2 if scenario.graph.model != "none" else 0
+    if market_only:
+        return int(_BASE_BYTES + n_users * _BYTES_PER_USER + edges * _BYTES_PER_EDGE_BUILD)
     worlds = 2 + len(scenario.designs) if n_worlds is None else n_worlds
     candidates = _expected_candidates(scenario)
-    edges = n_users * scenario.graph.mean_degree / 2 if scenario.graph.model != "none" else 0
     per_process = (_BASE_BYTES + n_users * _BYTES_PER_USER + edges * _BYTES_PER_EDGE
                    + candidates * (_BYTES_PER_CANDIDATE + worlds * _BYTES_PER_CANDIDATE_WORLD)
                    + worlds * n_users * _BYTES_PER_USER_WORLD)
@@ -94,7 +102,7 @@ def available_memory_bytes() -> int | None:
 
 
 def check_memory(scenario: Scenario, *, workers: int = 1, n_worlds: int | None = None,
-                 available: int | None = None) -> int:
+                 available: int | None = None, market_only: bool = False) -> int:
     """Refuse a run whose estimated memory exceeds what the machine has; return the estimate.
 
     Raises
@@ -102,7 +110,8 @@ def check_memory(scenario: Scenario, *, workers: int = 1, n_worlds: int | None =
     MemoryLimitError
         With the estimate, what is available, and how to make the run fit.
     """
-    need = estimate_memory_bytes(scenario, n_worlds=n_worlds, workers=workers)
+    need = estimate_memory_bytes(scenario, n_worlds=n_worlds, workers=workers,
+                                 market_only=market_only)
     have = available_memory_bytes() if available is None else available
     if have is not None and need > have:
         gib = 2**30

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass, field
+import warnings
 
 import numpy as np
 
@@ -144,6 +145,47 @@ class StudyResult:
                 out.setdefault(label, []).append(values)
         return {label: np.nanmean(np.stack(rows), axis=0) if rows else np.array([])
                 for label, rows in out.items()}
+
+    def switch_profile_bands(self, bin_ticks: int = 1) -> dict:
+        """Return each switchback's effect by ticks since a switch with its Monte Carlo SE.
+
+        Parameters
+        ----------
+        bin_ticks : int
+            Consecutive ticks averaged into one bin (in each replication, before
+            the mean and SE over replications).
+
+        Returns
+        -------
+        dict of str to (mean, se) arrays
+            The mean over replications of treated minus control orders per
+            user-tick in each bin, and the SE of that mean (SD over replications
+            / sqrt(n); NaN where fewer than two replications hold the bin).
+        """
+        bin_ticks = max(1, int(bin_ticks))
+        out = {}
+        for rep in self.replications:
+            for label, profile in rep.traces.get("switch_profiles", {}).items():
+                values = np.array([nan_from_null(v) for v in profile], dtype=float)
+                padded = np.full(-(-values.size // bin_ticks) * bin_ticks, np.nan)
+                padded[:values.size] = values
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN bin stays NaN
+                    out.setdefault(label, []).append(
+                        np.nanmean(padded.reshape(-1, bin_ticks), axis=1))
+        bands = {}
+        for label, rows in out.items():
+            if not rows:
+                continue
+            stack = np.stack(rows)
+            n = np.sum(np.isfinite(stack), axis=0)
+            with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                mean = np.nanmean(stack, axis=0)
+                sd = np.nanstd(stack, axis=0, ddof=1)
+                se = np.where(n >= 2, sd / np.sqrt(n), np.nan)
+            bands[label] = (mean, se)
+        return bands
 
     def interference_test(self, label: str) -> InterferenceSummary:
         """Return a test-of-interference design's summary over the replications."""

@@ -35,9 +35,12 @@ def run_truth(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     """Run only the two counterfactual worlds of each replication and summarise the truth."""
     reps = scenario.study.reps if reps is None else int(reps)
     seed = scenario.study.seed if seed is None else int(seed)
+    scenario = replace(scenario, study=replace(scenario.study, reps=reps, seed=seed))
     if scheduler is None:
         check_memory(scenario, n_worlds=2,
                      workers=default_workers() if workers is None else max(1, workers))
+    else:
+        check_memory(scenario, market_only=True)  # this process still builds the market
     build_market(scenario, seed)
     truths = []
 
@@ -83,6 +86,8 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
     scenario = replace(scenario, study=replace(scenario.study, reps=reps, seed=seed))
     if scheduler is None:
         check_memory(scenario, workers=default_workers() if workers is None else max(1, workers))
+    else:
+        check_memory(scenario, market_only=True)  # this process still builds the market
     folder = ResultsFolder(out, scenario, seed) if out is not None else None
     done: dict[int, ReplicationResult] = {}
     if folder is not None:

@@ -6,7 +6,7 @@ import json
 import os
 from pathlib import Path
 
-from spillgauge.errors import ResultsError
+from spillgauge.errors import ResultsError, ScenarioError
 from spillgauge.files import dumps, write_atomic
 from spillgauge.study.replication import (
     ReplicationResult,
@@ -64,11 +64,24 @@ def _first_difference(a: object, b: object, prefix: str = "") -> str:
     return prefix[:-1] or "the settings"
 
 
-def _latest(records) -> list[ReplicationResult]:
-    """Rebuild saved replications, one per index (the last line wins), sorted."""
+def _latest(records, log: Path | None = None, labels: set | None = None
+            ) -> list[ReplicationResult]:
+    """Rebuild saved replications, one per index (the last line wins), sorted.
+
+    ``records`` yields ``(line number, record)``; a record that is not a
+    replication of this study (its design labels are not ``labels``) is refused
+    by its line.
+    """
     results = {}
-    for record in records:
-        result = result_from_record(record)
+    for number, record in records:
+        try:
+            result = result_from_record(record)
+            is_ours = result.replication >= 0 and (labels is None or set(result.runs) == labels)
+        except (KeyError, TypeError, ValueError, AttributeError):
+            is_ours = False
+        if not is_ours:
+            raise ResultsError(f"{log or _LOG} line {number} is not a replication record of "
+                               "this study; delete that line (or the folder) and rerun")
         results[result.replication] = result
     return [results[k] for k in sorted(results)]
 
@@ -84,6 +97,7 @@ class ResultsFolder:
     def __init__(self, path: str | Path, scenario: Scenario, seed: int) -> None:
         self.path = Path(path)
         self.fingerprint = scenario_fingerprint(scenario, seed)
+        self._labels = {spec.label for spec in scenario.designs}
 
     @property
     def log_path(self) -> Path:
@@ -103,6 +117,8 @@ class ResultsFolder:
             raise ResultsError(f"{study} cannot be read ({exc}); choose another --out folder") \
                 from None
         mine = json.loads(dumps(self.fingerprint))
+        if not isinstance(saved, dict):
+            raise ResultsError(f"{study} is not a study fingerprint; choose another --out folder")
         if saved != mine:
             if (saved.get("scenario"), saved.get("seed")) != (mine["scenario"], mine["seed"]):
                 what = (f"scenario {saved.get('scenario')!r} with seed {saved.get('seed')}, "
@@ -128,25 +144,28 @@ class ResultsFolder:
             write_atomic(self.log_path, "")
             return []
         lines = list(self._valid_lines())
+        records = _latest(((n, record) for n, _, record in lines), self.log_path, self._labels)
         # Rewrite the log without a torn last line, so new lines append cleanly.
-        write_atomic(self.log_path, "".join(line + "\n" for line, _ in lines))
-        return _latest(record for _, record in lines)
+        write_atomic(self.log_path, "".join(line + "\n" for _, line, _ in lines))
+        return records
 
     def _valid_lines(self):
-        """Yield ``(line, record)`` for every complete line of the log (a torn one is skipped)."""
+        """Yield ``(number, line, record)`` for every complete line of the log (a torn one is
+        skipped)."""
         if not self.log_path.exists():
             return
-        with open(self.log_path, encoding="utf-8") as stream:
-            for line in stream:
+        with open(self.log_path, encoding="utf-8", errors="replace") as stream:
+            for number, line in enumerate(stream, start=1):
                 line = line.rstrip("\n")
                 try:
-                    yield line, json.loads(line)
-                except json.JSONDecodeError:
+                    yield number, line, json.loads(line)
+                except (json.JSONDecodeError, RecursionError):
                     continue
 
     def read(self) -> list[ReplicationResult]:
         """Return the saved replications (a torn last line from a kill is skipped)."""
-        return _latest(record for _, record in self._valid_lines())
+        return _latest(((n, record) for n, _, record in self._valid_lines()), self.log_path,
+                       self._labels)
 
     def append(self, result: ReplicationResult) -> None:
         """Append one finished replication, flushed and fsynced."""
@@ -182,9 +201,14 @@ def load_study(path: str | Path):
     try:
         saved = json.loads(study_file.read_text(encoding="utf-8"))
         scenario = parse_scenario(saved["settings"])
-    except (OSError, json.JSONDecodeError, KeyError) as exc:
-        raise ResultsError(f"{study_file} cannot be read ({exc})") from None
-    folder = ResultsFolder(path, scenario, saved["seed"])
+        seed = int(saved["seed"])
+    except (OSError, json.JSONDecodeError, KeyError, TypeError, ValueError, RecursionError) as exc:
+        if isinstance(exc, ScenarioError):
+            raise ResultsError(f"{study_file} holds settings that are not a valid scenario "
+                               f"({exc})") from None
+        raise ResultsError(f"{study_file} cannot be read ({exc.__class__.__name__}: "
+                           f"{str(exc)[:80]})") from None
+    folder = ResultsFolder(path, scenario, seed)
     results = folder.read()
     if not results:
         raise ResultsError(f"{path} holds no finished replication yet")
@@ -193,10 +217,10 @@ def load_study(path: str | Path):
     if summary_file.is_file():
         try:
             market = json.loads(summary_file.read_text(encoding="utf-8")).get("market", {})
-        except json.JSONDecodeError:
+        except (json.JSONDecodeError, UnicodeDecodeError, AttributeError):
             market = {}
     import dataclasses
 
     scenario = dataclasses.replace(scenario, study=dataclasses.replace(
         scenario.study, reps=len(results)))
-    return summarise_study(scenario, saved["seed"], results, market)
+    return summarise_study(scenario, seed, results, market)

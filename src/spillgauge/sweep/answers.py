@@ -27,6 +27,10 @@ def _labels(rows: list[dict]) -> list[str]:
     return list(dict.fromkeys(row["label"] for row in rows))
 
 
+def _is_diagnostic(rows: list[dict], label: str) -> bool:
+    return any(bool(row.get("is_diagnostic")) for row in rows if row["label"] == label)
+
+
 def _recommended_at(rows: list[dict], where: dict) -> str | None:
     return next((row["label"] for row in rows if row["recommended"]
                  and all(row[k] == v for k, v in where.items())), None)
@@ -86,9 +90,17 @@ def answer_one_axis(rows: list[dict], key: str) -> str:
     values = list(dict.fromkeys(row[key] for row in rows))
     shown = [format_value(v) for v in values]
     clauses = [_trust_clause([r for r in rows if r["label"] == label], key)
-               for label in _labels(rows)]
+               for label in _labels(rows) if not _is_diagnostic(rows, label)]
+    diagnostics = [label for label in _labels(rows) if _is_diagnostic(rows, label)]
+    if not clauses:
+        clauses = ["no design other than a test of interference was swept"]
     first = "; ".join(clauses)
     sentences = [first[0].upper() + first[1:] + "."]
+    if diagnostics:
+        sentences.append(", ".join(diagnostics) + (" is a test" if len(diagnostics) == 1 else
+                                                   " are tests")
+                         + " of interference: a diagnostic, never judged trustworthy or "
+                         "recommended.")
     chosen = [_recommended_at(rows, {key: v}) for v in values]
     runs = _runs(chosen, shown)
     if len(runs) == 1 and len(values) > 1:

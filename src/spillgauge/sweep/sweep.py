@@ -36,7 +36,7 @@ from spillgauge.sweep.answers import (
 )
 from spillgauge.study.compose import describe_unit, estimator_name
 from spillgauge.designs.registry import KINDS, make_design_spec
-from spillgauge.statistics.trust import assess_trust
+from spillgauge.statistics.trust import assess_trust, few_replications_note
 from spillgauge.files import dumps, write_atomic
 from spillgauge.study.result import StudyResult
 from spillgauge.study.run import run_study
@@ -48,6 +48,7 @@ __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys",
            "write_sweep"]
 
 _SECTIONS = SECTIONS
+_MAX_POINTS = 100  # values along one key: more is a typo, not a study
 _NOT_SWEPT = {"study.reps", "study.seed"}  # arguments of the sweep itself
 # the numeric keys the design kinds declare, by name
 _DESIGN_FIELDS = {key.name: key.type for kind in KINDS.values() for key in kind.keys
@@ -153,11 +154,13 @@ def parse_vary(text: str) -> SweepAxis:
             raise ScenarioError("--vary", _SYNTAX, text)
         start, stop = _number(parts[0], text), _number(parts[1], text)
         count = _number(parts[2], text)
-        if count != int(count) or count < 1:
-            raise ScenarioError("--vary", _SYNTAX + " with N an int >= 1", text)
+        if count != int(count) or not 1 <= count <= _MAX_POINTS:
+            raise ScenarioError("--vary", _SYNTAX + f" with N an int in [1, {_MAX_POINTS}]", text)
         raw = [start] if count == 1 else np.linspace(start, stop, int(count)).tolist()
     else:
         raw = [_number(part, text) for part in spec.split(",")]
+        if len(raw) > _MAX_POINTS:
+            raise ScenarioError("--vary", f"at most {_MAX_POINTS} values", text)
     if kind is int:
         values = tuple(int(math.floor(v + 0.5)) for v in raw)
     else:
@@ -303,9 +306,11 @@ class SweepResult:
         Columns: ``point``, the swept keys, ``label``, ``kind``, ``estimator``,
         ``unit``, every :class:`~spillgauge.statistics.metrics.DesignMetrics` field
         (``bias``, ``bias_se``, ``rmse``, ``coverage``, ...), ``gte``, ``gte_se``,
-        ``alpha``, ``recommended`` and ``trusted`` (from
+        ``alpha``, ``recommended``, ``is_diagnostic`` (a test of interference: never
+        trusted, never recommended) and ``trusted`` (from
         :func:`~spillgauge.statistics.trust.assess_trust`), and ``distrust``: which check
-        failed (``"no_estimates"``, ``"coverage"``, ``"bias"``; empty when trusted).
+        failed (``"no_estimates"``, ``"coverage"``, ``"bias"``; ``"diagnostic"`` for a
+        test of interference; empty when trusted).
         """
         import pandas as pd
 
@@ -315,12 +320,15 @@ class SweepResult:
             for spec in study.scenario.designs:
                 m = study.metrics[spec.label]
                 verdict = assess_trust(m, alpha=alpha)
+                is_diagnostic = not KINDS[spec.kind].is_recommendable  # judged, never trusted
                 rows.append({"point": index, **point, "label": spec.label, "kind": spec.kind,
                              "estimator": estimator_name(spec), "unit": describe_unit(spec),
                              **m.to_dict(), "gte": study.truth.gte, "gte_se": study.truth.gte_se,
                              "alpha": alpha,
                              "recommended": study.recommendation.label == spec.label,
-                             "trusted": verdict.is_trusted, "distrust": verdict.problem or ""})
+                             "is_diagnostic": is_diagnostic,
+                             "trusted": verdict.is_trusted and not is_diagnostic,
+                             "distrust": "diagnostic" if is_diagnostic else verdict.problem or ""})
         return pd.DataFrame(rows)
 
     def answer(self) -> str:
@@ -333,8 +341,11 @@ class SweepResult:
         """
         rows = self.frame().to_dict("records")
         if len(self.axes) == 1:
-            return answer_one_axis(rows, self.axes[0].key)
-        return answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
+            text = answer_one_axis(rows, self.axes[0].key)
+        else:
+            text = answer_two_axes(rows, self.axes[0].key, self.axes[1].key)
+        note = few_replications_note(self.reps, self.scenario.study.alpha)
+        return text + (f" {note}" if note else "")
 
 
 def _grid(scenario: Scenario, axes: list[SweepAxis]) -> tuple[list[dict], list[Scenario]]:

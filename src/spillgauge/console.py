@@ -1,0 +1,104 @@
+"""What a command shows on the console: option types, the progress bar, one-line failures.
+
+Every failure a user meets is one line on stderr with an exit code (2 for a bad
+input, 130 for Ctrl-C); option values are checked as they are parsed, naming
+the option. Used by :mod:`spillgauge.cli` only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from pathlib import Path
+
+from spillgauge.errors import ScenarioError
+
+__all__ = ["REPS", "SEED", "WORKERS", "whole_number", "ProgressBar", "out_folder",
+           "interrupted", "fail"]
+
+_TICK = 0.2  # seconds between progress-bar redraws
+_SEED_LIMIT = 2**63  # study.seed's range, [0, 2**63)
+
+
+def whole_number(minimum: int, maximum: int | None = None, what: str = ""):
+    """Return an argparse type: a whole number in [minimum, maximum], refused by name."""
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be a whole number; got {text[:40]!r}") \
+                from None
+        if value < minimum or (maximum is not None and value > maximum):
+            allowed = what or (f">= {minimum}" if maximum is None else
+                               f"in [{minimum}, {maximum}]")
+            raise argparse.ArgumentTypeError(f"must be {allowed}; got {value}")
+        return value
+    parse.__name__ = "int"
+    return parse
+
+
+class ProgressBar:
+    """Replications done and time left (tqdm) on stderr: on a terminal, or when forced."""
+
+    def __init__(self, label: str, *, enabled: bool, forced: bool = False) -> None:
+        self.label = label
+        self.enabled = forced or (enabled and sys.stderr.isatty())
+        self.bar = None
+
+    def __call__(self, done: int, total: int) -> None:
+        if not self.enabled:
+            return
+        if self.bar is None:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, initial=done, desc=self.label, unit="rep",
+                            file=sys.stderr, mininterval=_TICK, dynamic_ncols=True)
+        self.bar.update(done - self.bar.n)
+        if done >= total:
+            self.close()
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+REPS = whole_number(1, 1_000_000, "a whole number in [1, 1000000]")
+SEED = whole_number(0, _SEED_LIMIT - 1, "a whole number in [0, 2**63)")
+WORKERS = whole_number(1, 1024, "a whole number of processes in [1, 1024]")
+
+
+def out_folder(given: str | None, default: Path) -> Path:
+    """Return the results folder, refusing by name one that cannot be a writable folder."""
+    out = Path(given) if given else default
+    option = "--out" if given else "the results folder"
+    if out.exists() and not out.is_dir():
+        raise ScenarioError(option, "a folder (this is a file)", str(out))
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ScenarioError(option, f"a folder that can be created ({exc.strerror})",
+                            str(out)) from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise ScenarioError(option, "a folder you can write to", str(out))
+    return out
+
+
+def interrupted(out: Path | None) -> int:
+    """Report Ctrl-C in one line (after a progress bar, on its own line); return 130."""
+    saved = (f"; finished replications are saved in {out}/: run the same command with "
+             "--resume to continue") if out is not None and out.is_dir() else ""
+    try:
+        sys.stderr.write(("\n" if sys.stderr.isatty() else "") + f"spillgauge: interrupted{saved}\n")
+    except (OSError, ValueError):
+        pass
+    return 130
+
+
+def fail(message: str, code: int) -> int:
+    try:
+        sys.stderr.write(f"spillgauge: error: {message}\n")
+    except (OSError, ValueError):
+        pass
+    return code
