@@ -21,6 +21,8 @@ def main() -> None:
     parser.add_argument("scenario")
     parser.add_argument("--reps", type=int, default=1)
     parser.add_argument("--worlds", type=int, default=3, help="worlds per replication")
+    parser.add_argument("--user-days", action="store_true",
+                        help="keep each user's orders per day (the study keeps totals only)")
     args = parser.parse_args()
     scenario = load_scenario(args.scenario)
     t0 = time.perf_counter()
@@ -39,7 +41,8 @@ def main() -> None:
         t0 = time.perf_counter()
         rng = np.random.default_rng([2, r])
         events = draw_candidates(market, rng=rng)
-        panels = simulate_worlds(market, schedules, rng=rng, events=events)
+        panels = simulate_worlds(market, schedules, rng=rng, events=events,
+                                 user_days=args.user_days)
         sim_s += time.perf_counter() - t0
         candidates += events.n_events
         attempts += sum(int(p.pool_demanded.sum()) for p in panels)

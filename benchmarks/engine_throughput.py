@@ -1,8 +1,9 @@
 """Benchmark: spillgauge's engine beside the two reference programs, in one run.
 
-For each size it runs, alternating and repeated, in fresh processes:
-``floor_numpy.py`` (plain vectorized reference), ``naive_simpy.py`` (one simpy
-process per user; skipped above ``--naive-max`` users), spillgauge's engine
+For each size it runs, alternating and repeated, in fresh processes: the two
+reference programs kept beside this script, ``floor_numpy.py`` (plain vectorized
+hour loop) and ``naive_simpy.py`` (one simpy process per user; skipped above
+``--naive-max`` users), spillgauge's engine
 with one world and with the three worlds of a replication, and the whole
 ``spillgauge truth`` command against ``floor_numpy.py --reps 2``. It prints
 medians and the ratios the project's targets are stated in.
@@ -23,7 +24,6 @@ import tempfile
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-ROOT = HERE.parent
 SCENARIO = """name = "reference_workload_{users}"
 description = "The reference workload of the shared benchmark programs."
 [calendar]
@@ -68,7 +68,8 @@ def main() -> None:
     parser.add_argument("--days", type=int, default=28)
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--naive-max", type=int, default=100000)
-    parser.add_argument("--bench-dir", default=str(ROOT.parent / "shared" / "bench"))
+    parser.add_argument("--bench-dir", default=str(HERE),
+                        help="folder holding floor_numpy.py and naive_simpy.py (default: here)")
     args = parser.parse_args()
     bench = Path(args.bench_dir)
     floor, naive = str(bench / "floor_numpy.py"), str(bench / "naive_simpy.py")

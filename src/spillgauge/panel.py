@@ -15,12 +15,18 @@ __all__ = ["OutcomePanel"]
 class OutcomePanel:
     """Outcomes of one world.
 
+    Per-user outcomes are always kept as totals over the horizon; the per-user
+    daily tables are kept only when the world was simulated with them
+    (``simulate_worlds(..., user_days=True)``), for the designs, plans and reports
+    that look at days.
+
     Parameters
     ----------
-    fulfilled : ndarray of int, shape (n_users, n_days)
-        Orders of each user fulfilled on each day (from any pool).
-    demanded : ndarray of int, shape (n_users, n_days)
-        Orders each user placed on each day (fulfilled or not).
+    fulfilled : ndarray of int, shape (n_users, n_days), or None
+        Orders of each user fulfilled on each day (from any pool); None when the
+        world tallied per-user totals only.
+    demanded : ndarray of int, shape (n_users, n_days), or None
+        Orders each user placed on each day (fulfilled or not); None with ``fulfilled``.
     pool_of_user : ndarray of int, shape (n_users,)
         Home stock pool of each user.
     history : ndarray of float, shape (n_users,)
@@ -32,10 +38,13 @@ class OutcomePanel:
         Stock level of each pool at the end of each tick.
     tick_hours : int
         Length of one tick in hours.
+    fulfilled_total, demanded_total : ndarray of int, shape (n_users,), optional
+        Each user's orders fulfilled and placed over the horizon; summed from the
+        daily tables when not given, required when those are None.
     """
 
-    fulfilled: np.ndarray
-    demanded: np.ndarray
+    fulfilled: np.ndarray | None
+    demanded: np.ndarray | None
     pool_of_user: np.ndarray
     history: np.ndarray
     pool_fulfilled: np.ndarray
@@ -43,11 +52,28 @@ class OutcomePanel:
     pool_lost: np.ndarray
     pool_stock: np.ndarray
     tick_hours: int = 1
+    fulfilled_total: np.ndarray | None = None
+    demanded_total: np.ndarray | None = None
 
     def __post_init__(self) -> None:
-        n_users, n_days = self.fulfilled.shape
-        if self.demanded.shape != (n_users, n_days):
-            raise ValueError("demanded must have the shape of fulfilled")
+        n_users = self.pool_of_user.shape[0]
+        if (self.fulfilled is None) != (self.demanded is None):
+            raise ValueError("fulfilled and demanded must both be given or both be None")
+        if self.fulfilled is not None:
+            n_days = self.fulfilled.shape[1]
+            if self.fulfilled.shape != (n_users, n_days):
+                raise ValueError("fulfilled must have shape (n_users, n_days)")
+            if self.demanded.shape != (n_users, n_days):
+                raise ValueError("demanded must have the shape of fulfilled")
+            for name, table in (("fulfilled_total", self.fulfilled),
+                                ("demanded_total", self.demanded)):
+                if getattr(self, name) is None:
+                    object.__setattr__(self, name, table.sum(axis=1, dtype=np.int64))
+        elif self.fulfilled_total is None or self.demanded_total is None:
+            raise ValueError("fulfilled_total and demanded_total are needed without daily tables")
+        for name in ("fulfilled_total", "demanded_total"):
+            if getattr(self, name).shape != (n_users,):
+                raise ValueError(f"{name} must have shape (n_users,)")
         if self.pool_of_user.shape != (n_users,) or self.history.shape != (n_users,):
             raise ValueError("pool_of_user and history must have shape (n_users,)")
         shape = self.pool_fulfilled.shape
@@ -55,18 +81,27 @@ class OutcomePanel:
             if getattr(self, name).shape != shape:
                 raise ValueError(f"{name} must have the shape of pool_fulfilled {shape}")
         for name in ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
-                     "pool_demanded", "pool_lost", "pool_stock"):
-            object.__setattr__(self, name, read_only_view(getattr(self, name)))
+                     "pool_demanded", "pool_lost", "pool_stock", "fulfilled_total",
+                     "demanded_total"):
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, read_only_view(getattr(self, name)))
 
     @property
     def n_users(self) -> int:
         """Number of users."""
-        return int(self.fulfilled.shape[0])
+        return int(self.pool_of_user.shape[0])
+
+    @property
+    def has_user_days(self) -> bool:
+        """Whether the per-user daily tables were kept."""
+        return self.fulfilled is not None
 
     @property
     def n_days(self) -> int:
         """Number of days."""
-        return int(self.fulfilled.shape[1])
+        if self.fulfilled is not None:
+            return int(self.fulfilled.shape[1])
+        return self.n_ticks * self.tick_hours // 24
 
     @property
     def n_pools(self) -> int:
@@ -80,11 +115,11 @@ class OutcomePanel:
 
     def user_fulfilled(self) -> np.ndarray:
         """Return each user's fulfilled orders over the horizon, shape ``(n_users,)``."""
-        return self.fulfilled.sum(axis=1, dtype=np.int64).astype(float)
+        return self.fulfilled_total.astype(float)
 
     def user_demanded(self) -> np.ndarray:
         """Return each user's placed orders over the horizon, shape ``(n_users,)``."""
-        return self.demanded.sum(axis=1, dtype=np.int64).astype(float)
+        return self.demanded_total.astype(float)
 
     def users_per_pool(self) -> np.ndarray:
         """Return the number of users whose home is each pool, shape ``(n_pools,)``."""
@@ -115,11 +150,17 @@ class OutcomePanel:
 
         def by_pool(values: np.ndarray) -> np.ndarray:
             out = np.zeros((n_pools, n_days), dtype=np.int64)
-            np.add.at(out, pool_of_user, values)
-            return out
+            if values.dtype.kind not in "biu":
+                np.add.at(out, pool_of_user, values)  # refuses non-integer orders, as before
+                return out
+            cell = (pool_of_user[:, None] * n_days + np.arange(n_days)).ravel()
+            sums = np.bincount(cell, weights=values.ravel(), minlength=n_pools * n_days)
+            return out + sums.astype(np.int64).reshape(n_pools, n_days)
 
-        pool_fulfilled = arrays.pop("pool_fulfilled", by_pool(fulfilled))
-        pool_demanded = arrays.pop("pool_demanded", by_pool(demanded))
+        pool_fulfilled = arrays.pop("pool_fulfilled", None)
+        pool_fulfilled = by_pool(fulfilled) if pool_fulfilled is None else pool_fulfilled
+        pool_demanded = arrays.pop("pool_demanded", None)
+        pool_demanded = by_pool(demanded) if pool_demanded is None else pool_demanded
         pool_lost = arrays.pop("pool_lost", np.asarray(pool_demanded) - np.asarray(pool_fulfilled))
         pool_stock = arrays.pop("pool_stock", np.zeros_like(np.asarray(pool_fulfilled)))
         return cls(fulfilled=fulfilled, demanded=demanded, pool_of_user=pool_of_user,

@@ -117,3 +117,16 @@ def test_resume_refuses_changed_data_files(tmp_path):
                               "design": [{"kind": "user"}]}, base_dir=tmp_path)
     with pytest.raises(ResultsError, match=r"users\.file differs"):
         run_study(changed, out=out, resume=True)
+
+
+def test_replication_is_the_same_with_or_without_daily_tables():
+    # Keeping each user's orders per day is a declared need, not a change of numbers: the
+    # study's estimates and truth are bit for bit the same either way.
+    from spillgauge.bundled import find_scenario
+    from spillgauge.scenario.reading import load_scenario
+    from spillgauge.study.replication import result_to_record, run_replication
+
+    scenario = load_scenario(find_scenario("tight_pantry"))
+    lean = run_replication(scenario, 3, 1)
+    full = run_replication(scenario, 3, 1, user_days=True)
+    assert result_to_record(lean) == result_to_record(full)

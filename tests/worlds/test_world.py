@@ -234,3 +234,26 @@ def test_substitution_serves_lost_orders_elsewhere():
     assert np.mean(fs) > np.mean(fl)
     assert np.all(panel.fulfilled <= panel.demanded)
     assert panel.pool_stock.min() >= 0
+
+
+def test_per_user_totals_without_daily_tables_are_the_same_numbers():
+    # Lean worlds: without the users x days tables a world keeps each user's totals, which
+    # must equal the sums of the daily tables of the same world (a plain sum is the
+    # reference), and every per-pool table is unchanged.
+    scenario = make_scenario(users={"count": 900}, pools={"count": 4, "stock_cover": 0.9},
+                             graph={"model": "pool_blocks", "mean_degree": 6},
+                             effect={"lift": 0.3, "peer_lift": 0.2}, calendar={"days": 7})
+    market = build_market(scenario, 8)
+    schedules = [_fixed(market, False), _fixed(market, True),
+                 draw_switchback_schedule(market.pool_of_user, 168, block_ticks=12,
+                                          rng=np.random.default_rng(1))]
+    full = simulate_worlds(market, schedules, rng=np.random.default_rng(3))
+    lean = simulate_worlds(market, schedules, rng=np.random.default_rng(3), user_days=False)
+    for a, b in zip(full, lean):
+        assert a.has_user_days and not b.has_user_days and b.fulfilled is None
+        np.testing.assert_array_equal(b.fulfilled_total, a.fulfilled.sum(axis=1))
+        np.testing.assert_array_equal(b.demanded_total, a.demanded.sum(axis=1))
+        np.testing.assert_array_equal(b.user_fulfilled(), a.user_fulfilled())
+        for name in ("pool_fulfilled", "pool_demanded", "pool_lost", "pool_stock"):
+            np.testing.assert_array_equal(getattr(b, name), getattr(a, name))
+        assert (b.n_users, b.n_days, b.n_ticks) == (a.n_users, a.n_days, a.n_ticks)

@@ -91,6 +91,11 @@ class DesignKind:
         spillover against it.
     keeps_switch_profile : bool
         Whether the report draws its effect by ticks since a switch.
+    needs_user_days : bool
+        Whether its analysis reads each user's orders per day
+        (``OutcomePanel.fulfilled`` / ``demanded``). Worlds keep those tables only
+        when a design, plan or report declares the need; per-user totals and the
+        per-pool tick tables are always there.
     """
 
     name: ClassVar[str] = ""
@@ -103,6 +108,7 @@ class DesignKind:
     is_randomized: ClassVar[bool] = True
     is_user_level: ClassVar[bool] = False
     keeps_switch_profile: ClassVar[bool] = False
+    needs_user_days: ClassVar[bool] = False
 
     def check(self, spec: DesignSpec, scenario: Scenario) -> None:
         """Raise :class:`~spillgauge.errors.ScenarioError` when the spec cannot run in the scenario.

@@ -78,6 +78,7 @@ class RegionalLaunch(DesignKind):
     )
     shown_keys = ("pools", "choose", "launch_day", "estimator")
     estimand = "launched_pools"
+    needs_user_days = True  # the truth sums each user's orders over the post-launch days
     question = "the effect on the launched pools after the launch"
     is_recommendable = False
     is_randomized = False

@@ -216,9 +216,9 @@ def _neyman_ratio_variance(totals: np.ndarray, sizes: np.ndarray, treated: np.nd
 
 
 def _sub_panel(panel: OutcomePanel, users: np.ndarray) -> OutcomePanel:
-    """Return the panel of a subset of users (per-pool tables rebuilt from them)."""
-    return OutcomePanel.from_arrays(fulfilled=panel.fulfilled[users],
-                                    demanded=panel.demanded[users],
+    """Return the panel of a subset of users: their totals (per-pool tables rebuilt from them)."""
+    return OutcomePanel.from_arrays(fulfilled=np.asarray(panel.fulfilled_total)[users],
+                                    demanded=np.asarray(panel.demanded_total)[users],
                                     pool_of_user=np.unique(panel.pool_of_user[users],
                                                            return_inverse=True)[1],
                                     history=panel.history[users], tick_hours=panel.tick_hours)

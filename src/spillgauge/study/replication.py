@@ -153,7 +153,8 @@ def _pool_traces(panel: OutcomePanel, pools: np.ndarray) -> dict:
 
 def run_replication(scenario: Scenario, seed: int, replication: int, *,
                     market: Market | None = None, keep_traces: bool | None = None,
-                    designs: tuple | None = None) -> ReplicationResult:
+                    designs: tuple | None = None, user_days: bool = False
+                    ) -> ReplicationResult:
     """Run one replication of a study.
 
     Parameters
@@ -168,6 +169,10 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
         Keep the small arrays the report draws; by default only for replication 0.
     designs : tuple of DesignSpec, optional
         Designs to run; by default the scenario's. ``()`` runs only the truth worlds.
+    user_days : bool, default False
+        Keep each user's orders per day in every world (for a caller that looks at
+        days); the worlds also keep them when a design's kind declares
+        ``needs_user_days``. The numbers are the same either way.
     """
     designs = scenario.designs if designs is None else tuple(designs)
     if designs:  # estimators (and scipy.stats) load only when a design is run
@@ -180,7 +185,8 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
         rng = np.random.default_rng(stream(seed, replication, ASSIGNMENT, design_key(spec.label)))
         schedules.append(draw_design_schedule(market, spec, rng=rng))
     demand_rng = np.random.default_rng(stream(seed, replication, DEMAND))
-    panels = simulate_worlds(market, schedules, rng=demand_rng)
+    user_days = user_days or any(kind_of(spec).needs_user_days for spec in designs)
+    panels = simulate_worlds(market, schedules, rng=demand_rng, user_days=user_days)
     truth = replication_truth(panels[0], panels[1])
     confidence = 1.0 - scenario.study.alpha
     runs = {}

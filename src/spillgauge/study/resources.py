@@ -12,7 +12,8 @@ __all__ = ["estimate_memory_bytes", "available_memory_bytes", "check_memory"]
 
 _BYTES_PER_CANDIDATE = 72       # event arrays of one replication (user, time, tick, pool, ...)
 _BYTES_PER_CANDIDATE_WORLD = 5  # per world: accepted / served flags and a float transient
-_BYTES_PER_USER_DAY_WORLD = 16  # fulfilled and demanded per user and day, and the bincount
+_BYTES_PER_USER_WORLD = 40      # per-user totals (placed, fulfilled) of each world and a count
+_BYTES_PER_USER_DAY_WORLD = 16  # fulfilled and demanded per user and day, and the count
 _BYTES_PER_USER = 120           # population, clusters, graph degree
 _BYTES_PER_EDGE = 24            # symmetric CSR adjacency (data + index, both directions)
 _BYTES_PER_EDGE_BUILD = 110     # building the graph (edge arrays, sort, dedupe): measured 106
@@ -62,11 +63,14 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
 
     Each process holds the market and one replication at a time: its candidate
     order events (shared by all worlds), per-world flags, and per-world panels of
-    users x days. ``n_worlds`` defaults to the two truth worlds plus one per
-    design. The estimate errs high (it assumes the peak rate all day long).
+    per-user totals (users x days when a design's kind declares
+    ``needs_user_days``). ``n_worlds`` defaults to the two truth worlds plus one
+    per design. The estimate errs high (it assumes the peak rate all day long).
     ``market_only`` counts only building the market (``spillgauge check``, and
     the local process of a run on a Dask cluster).
     """
+    from spillgauge.designs.registry import kind_of
+
     n_users = scenario.users.count if scenario.users.file is None else \
         _count_lines(scenario.users.file)
     edges = n_users * scenario.graph.mean_degree / 2 if scenario.graph.model != "none" else 0
@@ -76,7 +80,9 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
     candidates = _expected_candidates(scenario)
     per_process = (_BASE_BYTES + n_users * _BYTES_PER_USER + edges * _BYTES_PER_EDGE
                    + candidates * (_BYTES_PER_CANDIDATE + worlds * _BYTES_PER_CANDIDATE_WORLD)
-                   + worlds * n_users * scenario.calendar.days * _BYTES_PER_USER_DAY_WORLD)
+                   + worlds * n_users * _BYTES_PER_USER_WORLD)
+    if any(kind_of(spec).needs_user_days for spec in scenario.designs):
+        per_process += worlds * n_users * scenario.calendar.days * _BYTES_PER_USER_DAY_WORLD
     return int(per_process * max(1, workers))
 
 

@@ -34,11 +34,7 @@ from spillgauge.market.calendar import (
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
-from spillgauge.worlds.treatment import (
-    own_dose_of_events,
-    peer_exposure_of_events,
-    unit_dose,
-)
+from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
 
@@ -59,9 +55,6 @@ class CandidateEvents:
         unexposed user.
     uniform : ndarray of float, shape (n_events,)
         The thinning uniform of each event.
-    user_day, pool_tick : ndarray of int, shape (n_events,)
-        Flat indexes ``user * n_days + day`` and ``pool * n_ticks + tick``, computed
-        once for every world's tallies.
     segment_bounds : ndarray of int, shape (n_segments + 1,)
         First tick of each segment (between two stock events), then ``n_ticks``.
     segment_starts : ndarray of int, shape (n_segments + 1,)
@@ -79,8 +72,6 @@ class CandidateEvents:
     segment_starts: np.ndarray
     substitute_uniform: np.ndarray | None
     substitute_pool: np.ndarray | None
-    user_day: np.ndarray
-    pool_tick: np.ndarray
 
     @property
     def n_events(self) -> int:
@@ -125,9 +116,14 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     substitute = pools.on_stockout == "substitute" and population.n_pools > 1
     bounds = segment_bounds(pools, calendar, every_tick=substitute)
 
+    segment_of_tick = np.searchsorted(bounds, np.arange(calendar.n_ticks), side="right") - 1
+
     def locate(user: np.ndarray, hour: np.ndarray):
-        tick = np.minimum((hour // calendar.tick_hours).astype(np.int64), calendar.n_ticks - 1)
-        return tick, np.searchsorted(bounds, tick, side="right") - 1, population.pool_of_user[user]
+        # Hours are >= 0, so truncation is the floor: with one-hour ticks ``hour // 1``.
+        whole = hour.astype(np.int64) if calendar.tick_hours == 1 else \
+            (hour // calendar.tick_hours).astype(np.int64)
+        tick = np.minimum(whole, calendar.n_ticks - 1)
+        return tick, segment_of_tick[tick], population.pool_of_user[user]
 
     tick, segment, pool = locate(user, hour)
     order = np.argsort((segment * population.n_pools + pool).astype(float) + hour / horizon)
@@ -153,30 +149,7 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
                            base_accept=base_accept, uniform=uniform,
                            segment_bounds=bounds, segment_starts=segment_starts,
                            substitute_uniform=substitute_uniform,
-                           substitute_pool=substitute_pool,
-                           user_day=user * calendar.days + day,
-                           pool_tick=pool * calendar.n_ticks + tick)
-
-
-def _accepted(market: Market, events: CandidateEvents, schedule: AssignmentSchedule
-              ) -> np.ndarray:
-    """Return which candidate events become orders in a world, shape ``(n_events,)``."""
-    effect = market.scenario.effect
-    calendar = market.scenario.calendar
-    if schedule.n_users != market.n_users or schedule.n_ticks != calendar.n_ticks:
-        raise ValueError("the schedule does not match the market (users or ticks differ)")
-    probability = events.base_accept
-    if not schedule.is_treated.any():
-        return events.uniform < probability
-    dose = unit_dose(schedule, half_life_hours=effect.carryover_half_life_hours,
-                     tick_hours=calendar.tick_hours)
-    probability = probability * (1.0 + effect.lift * own_dose_of_events(
-        dose, schedule.unit_of_user, events.user, events.tick))
-    if effect.peer_lift != 0 and market.adjacency.nnz:
-        exposure = peer_exposure_of_events(market.adjacency, schedule.unit_of_user, dose,
-                                           events.user, events.tick)
-        probability = probability * (1.0 + effect.peer_lift * exposure)
-    return events.uniform < probability
+                           substitute_pool=substitute_pool)
 
 
 def _serve_in_order(accepted: np.ndarray, pools: np.ndarray, level: np.ndarray
@@ -199,27 +172,27 @@ def _serve_in_order(accepted: np.ndarray, pools: np.ndarray, level: np.ndarray
     n_worlds, n = accepted.shape
     if n == 0:
         return accepted.copy(), np.zeros_like(level)
+    # An order is served when its rank among its pool's orders (running count minus the
+    # count before the pool's first order) is within the pool's level: running <= threshold.
     running = np.cumsum(accepted, axis=1, dtype=np.int64)
     is_first = np.empty(n, dtype=bool)
     is_first[0] = True
     np.not_equal(pools[1:], pools[:-1], out=is_first[1:])
     first = np.flatnonzero(is_first)
-    group_of = np.cumsum(is_first) - 1
     before = np.where(first > 0, running[:, np.maximum(first - 1, 0)], 0)  # (n_worlds, groups)
-    rank = running - before[:, group_of]
-    served = accepted & (rank <= np.take_along_axis(level, np.broadcast_to(pools, (n_worlds, n)),
-                                                    axis=1))
-    sold = np.zeros_like(level)
-    last = np.append(first[1:], n) - 1
-    demand = running[:, last] - before
     group_pool = pools[first]
+    threshold = before + level[:, group_pool]
+    sizes = np.diff(np.append(first, n))
+    served = accepted & (running <= np.repeat(threshold, sizes, axis=1))
+    sold = np.zeros_like(level)
+    demand = running[:, first + sizes - 1] - before
     sold[:, group_pool] = np.minimum(demand, level[:, group_pool])
     return served, sold
 
 
 def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
-                    rng: np.random.Generator, events: CandidateEvents | None = None
-                    ) -> list[OutcomePanel]:
+                    rng: np.random.Generator, events: CandidateEvents | None = None,
+                    user_days: bool = True) -> list[OutcomePanel]:
     """Simulate one world per schedule on the same candidate order events.
 
     Parameters
@@ -232,6 +205,11 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     events : CandidateEvents, optional
         Candidates already drawn with :func:`draw_candidates` (then ``rng`` is
         not used).
+    user_days : bool, default True
+        Keep each user's orders per day (``OutcomePanel.fulfilled``, ``demanded``);
+        otherwise the panels hold per-user totals over the horizon only, which is
+        all most designs need and much cheaper at scale. The numbers are the
+        same either way.
 
     Returns
     -------
@@ -241,17 +219,18 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     check_rng(rng)
     if events is None:
         events = draw_candidates(market, rng=rng)
+    events = live_events(market, events)  # the events no world keeps change no number
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
     n_worlds, n_pools = len(schedules), population.n_pools
-    accepted = np.stack([_accepted(market, events, s) for s in schedules]) if n_worlds else \
-        np.zeros((0, events.n_events), dtype=bool)
+    accepted = np.stack([accepted_in_world(market, events, s) for s in schedules]) \
+        if n_worlds else np.zeros((0, events.n_events), dtype=bool)
     served = np.zeros_like(accepted)
-    substituted = np.zeros_like(accepted)
+    substitute = events.substitute_pool is not None
+    substituted = np.zeros_like(accepted) if substitute else None
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
     order_up_to = population.order_up_to
-    substitute = events.substitute_pool is not None
     bounds = events.segment_bounds
     n_segments = bounds.size - 1
     level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
@@ -290,11 +269,20 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
             _substitute(events, accepted, served, substituted, level, lo, hi, pools)
     if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
-    return [_panel(market, events, accepted[w], served[w] | substituted[w], substituted[w],
-                   level_at_start[:, w, :], bounds) for w in range(n_worlds)]
+    fulfilled = served if substituted is None else served | substituted
+    pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of the pool tallies
+    pool_counts = _count_orders(pool_tick, accepted, fulfilled, n_pools * calendar.n_ticks)
+    user_counts = None if user_days else _count_orders(events.user, accepted, fulfilled,
+                                                       population.n_users)
+    return [_panel(market, events, accepted[w], fulfilled[w],
+                   None if substituted is None else substituted[w],
+                   level_at_start[:, w, :], bounds, pool_tick=pool_tick,
+                   pool_counts=(pool_counts[0][w], pool_counts[1][w]),
+                   user_counts=None if user_days else (user_counts[0][w], user_counts[1][w]))
+            for w in range(n_worlds)]
 
 
-def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarray,
+def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
                 substituted: np.ndarray, level: np.ndarray, lo: int, hi: int, pools) -> None:
     """Send a share of one tick's lost orders to another pool, served from what it has left."""
     lost = accepted[:, lo:hi] & ~served[:, lo:hi]
@@ -310,26 +298,51 @@ def _substitute(events: CandidateEvents, accepted: np.ndarray, served: np.ndarra
     level -= sold
 
 
-def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
-           fulfilled: np.ndarray, substituted: np.ndarray, level_at_start: np.ndarray,
-           bounds: np.ndarray) -> OutcomePanel:
+def _count_orders(index: np.ndarray, accepted: np.ndarray, fulfilled: np.ndarray,
+                  n_bins: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
+
+    ``index`` gives each event's bin. Orders placed in every world are counted once;
+    a world adds its other placed orders, and its fulfilled orders are its placed
+    ones less its lost ones (fulfilled orders are placed orders), so each world
+    counts only the events where it differs from the rest or lost the sale.
+    """
+    n_worlds = accepted.shape[0]
+    placed = np.empty((n_worlds, n_bins), dtype=np.int64)
+    done = np.empty((n_worlds, n_bins), dtype=np.int64)
+    if n_worlds == 0:
+        return placed, done
+    everywhere = np.logical_and.reduce(accepted, axis=0)
+    common = np.bincount(index[everywhere], minlength=n_bins)
+    for w in range(n_worlds):
+        placed[w] = common + np.bincount(index[accepted[w] & ~everywhere], minlength=n_bins)
+        done[w] = placed[w] - np.bincount(index[accepted[w] & ~fulfilled[w]], minlength=n_bins)
+    return placed, done
+
+
+def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
+           fulfilled: np.ndarray, substituted: np.ndarray | None, level_at_start: np.ndarray,
+           bounds: np.ndarray, *, pool_tick: np.ndarray, pool_counts: tuple,
+           user_counts: tuple | None) -> OutcomePanel:
+    """Return a world's panel; ``*_counts`` are its (placed, fulfilled) per pool tick and user,
+    ``user_counts`` None to keep each user's orders per day instead."""
     calendar = market.scenario.calendar
     population = market.population
     n_users, n_pools, n_ticks = population.n_users, population.n_pools, calendar.n_ticks
     n_days = calendar.days
 
     def per_user_day(mask: np.ndarray) -> np.ndarray:
-        counts = np.bincount(events.user_day[mask], minlength=n_users * n_days)
+        user_day = events.user[mask] * n_days + day_of_tick(calendar)[events.tick[mask]]
+        counts = np.bincount(user_day, minlength=n_users * n_days)
         return counts.astype(np.int32).reshape(n_users, n_days)
 
     def per_pool_tick(index: np.ndarray) -> np.ndarray:
         return np.bincount(index, minlength=n_pools * n_ticks).reshape(n_pools, n_ticks)
 
-    pool_fulfilled = per_pool_tick(events.pool_tick[fulfilled])
-    pool_demanded = per_pool_tick(events.pool_tick[accepted])
-    if substituted.any():
+    pool_demanded, pool_fulfilled = (counts.reshape(n_pools, n_ticks) for counts in pool_counts)
+    if substituted is not None and substituted.any():
         served_home = fulfilled & ~substituted
-        sold = per_pool_tick(events.pool_tick[served_home])
+        sold = per_pool_tick(pool_tick[served_home])
         sold += per_pool_tick(events.substitute_pool[substituted] * n_ticks
                               + events.tick[substituted])
     else:
@@ -338,8 +351,12 @@ def _panel(market: Market, events: CandidateEvents, accepted: np.ndarray,
     for s in range(bounds.size - 1):
         a, b = bounds[s], bounds[s + 1]
         stock[:, a:b] = level_at_start[s][:, None] - np.cumsum(sold[:, a:b], axis=1)
-    return OutcomePanel(fulfilled=per_user_day(fulfilled), demanded=per_user_day(accepted),
-                        pool_of_user=population.pool_of_user, history=population.history,
+    if user_counts is None:
+        users = {"fulfilled": per_user_day(fulfilled), "demanded": per_user_day(accepted)}
+    else:
+        users = {"fulfilled": None, "demanded": None, "fulfilled_total": user_counts[1],
+                 "demanded_total": user_counts[0]}
+    return OutcomePanel(**users, pool_of_user=population.pool_of_user, history=population.history,
                         pool_fulfilled=pool_fulfilled, pool_demanded=pool_demanded,
                         pool_lost=pool_demanded - pool_fulfilled, pool_stock=stock,
                         tick_hours=calendar.tick_hours)
