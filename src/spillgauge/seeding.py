@@ -12,17 +12,19 @@ import zlib
 import numpy as np
 
 __all__ = [
-    "MARKET",
-    "DEMAND",
     "ASSIGNMENT",
-    "stream",
-    "design_key",
-    "check_rng",
+    "DEMAND",
+    "MARKET",
     "POOL_SHOCKS",
+    "RANDOMIZATION_TEST",
+    "check_rng",
+    "design_key",
     "side_stream",
+    "stream",
 ]
 
 MARKET, DEMAND, ASSIGNMENT = 0, 1, 2
+RANDOMIZATION_TEST = 3  # a design's re-draws for its randomization p-value (keyed by its label)
 _MARKET_REPLICATION = 2**32 - 1  # the market is built once per seed, outside the replications
 
 
@@ -37,7 +39,8 @@ def stream(study_seed: int, replication: int | None, purpose: int, *key: int
     replication : int or None
         Replication index; ``None`` for the market, which all replications share.
     purpose : int
-        One of :data:`MARKET`, :data:`DEMAND`, :data:`ASSIGNMENT`.
+        One of :data:`MARKET`, :data:`DEMAND`, :data:`ASSIGNMENT`,
+        :data:`RANDOMIZATION_TEST`.
     *key : int
         Further keys, e.g. :func:`design_key` of a design label.
 

@@ -38,6 +38,12 @@ VARIANTS = [{"kind": name} for name in KINDS] + [
     {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "did"},
     {"kind": "regional_launch", "launch_day": 3, "pools": 2, "choose": "random",
      "estimator": "pre_post"},
+] + [{"kind": name, "inference": "randomization", "permutations": 19}
+     for name, kind in KINDS.items() if any(k.name == "inference" for k in kind.keys)] + [
+    {"kind": "cluster", "exposure": "neighbourhood", "inference": "randomization",
+     "permutations": 19},
+    {"kind": "switchback", "per": "pool", "block_hours": 12, "burn_in_hours": 3,
+     "inference": "randomization", "permutations": 19},
 ]
 
 
@@ -119,7 +125,7 @@ def test_analysis_returns_a_full_estimate(market, table):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DegenerateEstimateWarning)
         estimate = kind.analyse(spec, panel, schedule, confidence=0.9,
-                                tick_hours=market.tick_hours)
+                                tick_hours=market.tick_hours, rng=np.random.default_rng(5))
     assert isinstance(estimate, Estimate)
     assert estimate.method == kind.estimator_name(spec)
     for name in ("point", "standard_error", "ci_low", "ci_high"):
@@ -127,6 +133,12 @@ def test_analysis_returns_a_full_estimate(market, table):
     assert estimate.ci_low <= estimate.point <= estimate.ci_high
     assert estimate.n_units > 0
     assert math.isfinite(estimate.standard_error)
+    # A randomization p-value is one of 1/20, 2/20, ..., 20/20 with 19 re-draws (Fisher 1935:
+    # (1 + #extreme) / (1 + R)), and only when the design asks for it.
+    if spec.params.get("inference") == "randomization":
+        assert round(estimate.randomization_p_value * 20, 9) in range(1, 21)
+    else:
+        assert math.isnan(estimate.randomization_p_value)
     # Only a randomized design that is not recommendable is a diagnostic (test of interference).
     assert (estimate.diagnostic is not None) == (kind.is_randomized and not kind.is_recommendable)
 
@@ -147,7 +159,7 @@ def test_no_orders_at_all_gives_zero_or_nan_never_an_exception(market, table):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DegenerateEstimateWarning)
         estimate = kind.analyse(spec, empty, schedule, confidence=0.95,
-                                tick_hours=market.tick_hours)
+                                tick_hours=market.tick_hours, rng=np.random.default_rng(5))
     assert estimate.point == 0 or math.isnan(estimate.point)
 
 

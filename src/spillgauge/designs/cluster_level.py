@@ -14,6 +14,7 @@ from spillgauge.designs.kind import (
     cluster_label,
     cluster_source_key,
     describe_clusters,
+    inference_keys,
     randomization_key,
     resolution_key,
     share_key,
@@ -23,7 +24,7 @@ from spillgauge.scenario.keys import DesignKey
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_cluster_schedule", "ClusterLevel"]
+__all__ = ["ClusterLevel", "draw_cluster_schedule"]
 
 
 def draw_cluster_schedule(cluster_of_user: np.ndarray, n_ticks: int, *, share: float = 0.5,
@@ -83,6 +84,7 @@ class ClusterLevel(DesignKind):
                   doc="`\"neighbourhood\"`: graph cluster randomization's exposure-mapping "
                       "estimator (users whose closed neighbourhood is wholly treated vs wholly "
                       "control; Ugander et al. 2013, Aronow & Samii 2017)"),
+        *inference_keys(),
     )
     shown_keys = ("clusters",)
 

@@ -22,7 +22,7 @@ from spillgauge.scenario.keys import check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_interference_schedule", "InterferenceTestDesign", "MIN_CLUSTERS"]
+__all__ = ["MIN_CLUSTERS", "InterferenceTestDesign", "draw_interference_schedule"]
 
 MIN_CLUSTERS = 4  # two per half
 
@@ -129,8 +129,8 @@ class InterferenceTestDesign(DesignKind):
              ) -> AssignmentSchedule:
         return draw_interference_schedule(self._labels(market, spec), market.n_ticks, rng=rng)
 
-    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                confidence: float, tick_hours: int) -> Estimate:
+    def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                 confidence: float, tick_hours: int) -> Estimate:
         from spillgauge.estimators.interference import interference_test
 
         test = interference_test(panel, schedule, confidence=confidence)

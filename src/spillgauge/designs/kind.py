@@ -12,6 +12,7 @@ incidences), never the market itself.
 
 from __future__ import annotations
 
+import dataclasses
 from typing import ClassVar, Protocol
 
 import numpy as np
@@ -23,13 +24,27 @@ from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.config import CLUSTER_SOURCES
 from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import RANDOMIZATIONS, AssignmentSchedule
+from spillgauge.seeding import check_rng
 
-__all__ = ["DesignKind", "MarketView", "cluster_source_key",
-           "resolution_key", "share_key", "randomization_key", "describe_clusters",
-           "cluster_label", "check_graph_clusters", "clusters_per_arm", "check_clusters_per_arm",
-           "MIN_CLUSTERS_PER_ARM"]
+__all__ = [
+    "INFERENCES",
+    "MIN_CLUSTERS_PER_ARM",
+    "DesignKind",
+    "MarketView",
+    "check_clusters_per_arm",
+    "check_graph_clusters",
+    "cluster_label",
+    "cluster_source_key",
+    "clusters_per_arm",
+    "describe_clusters",
+    "inference_keys",
+    "randomization_key",
+    "resolution_key",
+    "share_key",
+]
 
 MIN_CLUSTERS_PER_ARM = 2  # a cluster-robust variance needs two clusters in each arm
+INFERENCES = ("analytic", "randomization")
 
 
 class MarketView(Protocol):
@@ -149,13 +164,44 @@ class DesignKind:
         """
         raise NotImplementedError
 
-    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                confidence: float, tick_hours: int) -> Estimate:
-        """Analyse the design's world with its estimator and return the :class:`Estimate`."""
-        import spillgauge.estimators as estimators
+    def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                 confidence: float, tick_hours: int) -> Estimate:
+        """Return the design's estimate with its analytic interval (override when needed).
+
+        By default, the named estimator called with the panel and schedule.
+        """
+        from spillgauge import estimators
 
         function = getattr(estimators, self.estimator_name(spec))
         return function(panel, schedule, confidence=confidence)
+
+    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                confidence: float, tick_hours: int, rng: np.random.Generator | None
+                ) -> Estimate:
+        """Analyse the design's world and return the :class:`Estimate`.
+
+        The analytic estimate of :meth:`estimate`; when the spec asks for
+        ``inference = "randomization"``, also Fisher's randomization p-value on
+        ``Estimate.randomization_p_value`` from ``spec.permutations`` re-draws of
+        the schedule's own assignment under the sharp null, analysed the same way
+        (:func:`~spillgauge.estimators.randomization_p_value`). ``rng`` feeds
+        those re-draws (the replication's own randomization-test stream); None
+        asks for the analytic estimate alone (a plan, which reads only intervals).
+        """
+        estimate = self.estimate(spec, panel, schedule, confidence=confidence,
+                                 tick_hours=tick_hours)
+        if rng is None or spec.params.get("inference", "analytic") != "randomization":
+            return estimate
+        from spillgauge.estimators.randomization import randomization_p_value
+
+        check_rng(rng)
+
+        def analytic(p: OutcomePanel, s: AssignmentSchedule) -> Estimate:
+            return self.estimate(spec, p, s, confidence=confidence, tick_hours=tick_hours)
+
+        p_value = randomization_p_value(analytic, panel, schedule, draws=spec.permutations,
+                                        rng=rng)
+        return dataclasses.replace(estimate, randomization_p_value=p_value)
 
 
 # Keys and words shared by the kinds that randomize clusters.
@@ -189,6 +235,17 @@ def randomization_key() -> DesignKey:
                      choices=RANDOMIZATIONS,
                      doc="`\"complete\"` (exactly round(share x units) treated) or "
                          "`\"bernoulli\"` (each unit on its own draw)")
+
+
+def inference_keys() -> tuple[DesignKey, DesignKey]:
+    """Return the declarations of ``inference`` and ``permutations``, for every randomized kind."""
+    return (DesignKey(name="inference", type=str, default="analytic", choices=INFERENCES,
+                      doc="`\"analytic\"` (the estimator's interval and p-value) or "
+                          "`\"randomization\"` (also Fisher's p-value from re-draws of the "
+                          "design's own assignment; power then counts p <= alpha)"),
+            DesignKey(name="permutations", type=int, default=500, minimum=19, maximum=100000,
+                      doc="re-draws of the assignment for the randomization p-value "
+                          "(read only when inference = \"randomization\")"))
 
 
 def describe_clusters(source: str, *, plural: bool = False) -> str:

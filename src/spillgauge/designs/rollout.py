@@ -6,7 +6,7 @@ import warnings
 
 import numpy as np
 
-from spillgauge.designs.kind import DesignKind, MarketView
+from spillgauge.designs.kind import DesignKind, MarketView, inference_keys
 from spillgauge.errors import PeriodWeightWarning
 from spillgauge.estimators.rollout import two_way_fixed_effects_period_weights
 from spillgauge.scenario import DesignSpec, Scenario
@@ -14,7 +14,7 @@ from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_rollout_schedule", "Rollout", "warn_period_weights"]
+__all__ = ["Rollout", "draw_rollout_schedule", "warn_period_weights"]
 
 
 def draw_rollout_schedule(pool_of_user: np.ndarray, n_ticks: int, *, waves: int,
@@ -104,6 +104,7 @@ class Rollout(DesignKind):
                       "(Callaway & Sant'Anna 2021); `\"two_way_fixed_effects\"`: the TWFE "
                       "regression, whose period weights differ from the GTE's "
                       "(Goodman-Bacon 2021; a warning says by how much)"),
+        *inference_keys(),
     )
     shown_keys = ("waves",)
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from spillgauge.designs._draw import draw_treated_units
-from spillgauge.designs.kind import DesignKind, MarketView, share_key
+from spillgauge.designs.kind import DesignKind, MarketView, inference_keys, share_key
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec, Scenario
@@ -13,7 +13,7 @@ from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_switchback_schedule", "Switchback"]
+__all__ = ["Switchback", "draw_switchback_schedule"]
 
 
 def draw_switchback_schedule(unit_of_user: np.ndarray, n_ticks: int, *, block_ticks: int,
@@ -73,6 +73,7 @@ class Switchback(DesignKind):
         DesignKey(name="per", type=str, default="market", choices=("market", "pool"),
                   doc="`\"market\"` switches everyone together; `\"pool\"` switches each pool "
                       "on its own draw"),
+        *inference_keys(),
     )
     shown_keys = ("block_hours", "per")
     keeps_switch_profile = True
@@ -113,8 +114,8 @@ class Switchback(DesignKind):
                                         block_ticks=spec.block_hours // market.tick_hours,
                                         share=spec.share, rng=rng)
 
-    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                confidence: float, tick_hours: int) -> Estimate:
+    def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                 confidence: float, tick_hours: int) -> Estimate:
         from spillgauge.estimators.switchback import switchback_difference
 
         return switchback_difference(panel, schedule, confidence=confidence,

@@ -20,7 +20,7 @@ import math
 import numpy as np
 
 from spillgauge.designs._draw import draw_treated_units
-from spillgauge.designs.kind import DesignKind, MarketView
+from spillgauge.designs.kind import DesignKind, MarketView, inference_keys
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.estimators.switchback import switchback_optimal_points
 from spillgauge.panel import OutcomePanel
@@ -66,6 +66,7 @@ class SwitchbackMinimax(DesignKind):
         DesignKey(name="per", type=str, default="market", choices=("market", "pool"),
                   doc="`\"market\"` switches everyone together; `\"pool\"` switches each pool "
                       "on its own draw"),
+        *inference_keys(),
     )
     shown_keys = ("per",)
 
@@ -109,8 +110,8 @@ class SwitchbackMinimax(DesignKind):
                                   unit_kind="market" if n_units == 1 else "pool",
                                   randomization="bernoulli")
 
-    def analyse(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                confidence: float, tick_hours: int) -> Estimate:
+    def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                 confidence: float, tick_hours: int) -> Estimate:
         from spillgauge.estimators.switchback import switchback_difference
 
         lengths = schedule.period_lengths()

@@ -5,13 +5,19 @@ from __future__ import annotations
 import numpy as np
 
 from spillgauge.designs._draw import draw_treated_units
-from spillgauge.designs.kind import DesignKind, MarketView, randomization_key, share_key
+from spillgauge.designs.kind import (
+    DesignKind,
+    MarketView,
+    inference_keys,
+    randomization_key,
+    share_key,
+)
 from spillgauge.scenario import DesignSpec
 from spillgauge.scenario.keys import DesignKey
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_user_schedule", "UserLevel"]
+__all__ = ["UserLevel", "draw_user_schedule"]
 
 
 def draw_user_schedule(n_users: int, n_ticks: int, *, share: float = 0.5,
@@ -52,6 +58,7 @@ class UserLevel(DesignKind):
         randomization_key(),
         DesignKey(name="adjust", type=bool, default=False,
                   doc="regression adjustment on pre-period orders (CUPED)"),
+        *inference_keys(),
     )
     is_user_level = True
 

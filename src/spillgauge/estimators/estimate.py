@@ -64,6 +64,10 @@ class Estimate:
         Two-sided p-value of "no effect" (NaN when not computed).
     diagnostic : InterferenceDiagnostic, optional
         A test of interference's statistics.
+    randomization_p_value : float
+        Fisher's randomization p-value of "no effect on anyone", from re-draws of the
+        design's own assignment, when the design asks for ``inference =
+        "randomization"`` (NaN otherwise). ``p_value`` stays the analytic one.
     """
 
     point: float
@@ -76,3 +80,4 @@ class Estimate:
     degrees_of_freedom: float = float("nan")
     p_value: float = float("nan")
     diagnostic: InterferenceDiagnostic | None = None
+    randomization_p_value: float = float("nan")

@@ -14,21 +14,34 @@ import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning, ResultsError, ScenarioError
 from spillgauge.estimators.estimate import Estimate
-from spillgauge.experiment.assignment import Assignment, market_fingerprint
+from spillgauge.experiment.assignment import (
+    ASSIGNMENT_REPLICATION,
+    Assignment,
+    market_fingerprint,
+)
 from spillgauge.experiment.folder import read_assignment
 from spillgauge.experiment.orders import read_orders
 from spillgauge.experiment.simulate import ORDERS, POOL_ORDERS, TRUTH
 from spillgauge.files import json_safe
 from spillgauge.formatting import format_number, format_percent
 from spillgauge.panel import OutcomePanel
+from spillgauge.seeding import RANDOMIZATION_TEST, design_key, stream
 
-__all__ = ["ExperimentAnalysis", "analyse_panel", "analyze_experiment", "study_context",
-           "analysis_text", "analysis_record"]
+__all__ = [
+    "ExperimentAnalysis",
+    "analyse_panel",
+    "analysis_record",
+    "analysis_text",
+    "analyze_experiment",
+    "randomization_test_rng",
+    "study_context",
+]
 
 
 @dataclass(frozen=True, eq=False)
@@ -63,6 +76,16 @@ class ExperimentAnalysis:
     empty_days: list = field(default_factory=list)
 
 
+def randomization_test_rng(assignment: Assignment) -> np.random.Generator:
+    """Return the design's randomization-test stream of replication 0 of the assignment's seed.
+
+    The same stream a study with that seed gives the design, so the randomization
+    p-value of ``simulate`` -> ``analyze`` equals the study's replication 0.
+    """
+    return np.random.default_rng(stream(assignment.seed, ASSIGNMENT_REPLICATION,
+                                        RANDOMIZATION_TEST, design_key(assignment.spec.label)))
+
+
 def analyse_panel(assignment: Assignment, panel: OutcomePanel) -> tuple[Estimate, str]:
     """Return the design's estimate on a panel, and the estimator's warning (or "")."""
     spec = assignment.spec
@@ -70,7 +93,8 @@ def analyse_panel(assignment: Assignment, panel: OutcomePanel) -> tuple[Estimate
         warnings.simplefilter("always", DegenerateEstimateWarning)
         estimate = kind_of(spec).analyse(spec, panel, assignment.schedule,
                                          confidence=assignment.confidence,
-                                         tick_hours=assignment.tick_hours)
+                                         tick_hours=assignment.tick_hours,
+                                         rng=randomization_test_rng(assignment))
     notes = [str(w.message) for w in caught if issubclass(w.category, DegenerateEstimateWarning)]
     return estimate, notes[0] if notes else ""
 
@@ -167,6 +191,7 @@ def analysis_record(analysis: ExperimentAnalysis) -> dict:
               "estimate": estimate.point, "standard_error": estimate.standard_error,
               "ci_low": estimate.ci_low, "ci_high": estimate.ci_high,
               "confidence": assignment.confidence, "p_value": estimate.p_value,
+              "randomization_p_value": estimate.randomization_p_value,
               "n_units": estimate.n_units, "note": analysis.note,
               "days_without_orders": analysis.empty_days}
     if estimate.diagnostic is not None:
@@ -192,6 +217,10 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
              f"{estimate.n_units} units used by the estimator",
              "  p-value " + (format_number(estimate.p_value) if math.isfinite(estimate.p_value)
                              else "n/a (the estimator gives none)")]
+    if math.isfinite(estimate.randomization_p_value):
+        lines.append(f"  randomization p-value {format_number(estimate.randomization_p_value)} "
+                     f"(Fisher's test of no effect on anyone, {assignment.spec.permutations} "
+                     "re-draws of this design's assignment)")
     if estimate.diagnostic is not None:
         d = estimate.diagnostic
         lines.append(f"  test of interference: user half {format_number(d.user_arm_point)}, "

@@ -26,7 +26,7 @@ from spillgauge.statistics.truth import ReplicationTruth, replication_truth
 from spillgauge.study.compose import draw_design_schedule, estimate_design
 from spillgauge.worlds.engine import simulate_worlds
 
-__all__ = ["PrefixRun", "PlanReplication", "run_plan_replication", "run_plan_replications"]
+__all__ = ["PlanReplication", "PrefixRun", "run_plan_replication", "run_plan_replications"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -101,7 +101,8 @@ def run_plan_replication(scenario: Scenario, seed: int, replication: int, days: 
                     estimate = estimate_design(
                         spec, first_days_of_panel(panel, d),
                         first_ticks_of_schedule(schedule, d * ticks_per_day),
-                        confidence=confidence, tick_hours=tick_hours)
+                        confidence=confidence, tick_hours=tick_hours,
+                        rng=None)  # a plan reads intervals only: no randomization test
                 except ValueError as exc:  # a design that cannot be analysed this early
                     runs[spec.label][d] = PrefixRun(*(float("nan"),) * 5, n_units=0,
                                                     note=str(exc))

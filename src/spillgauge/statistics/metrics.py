@@ -198,7 +198,8 @@ TOLERANCE = 1e-9  # relative to the outcome's scale: differences below it are ro
 
 
 def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
-                   alpha: float = 0.05, outcome_scale: float | None = None) -> DesignMetrics:
+                   alpha: float = 0.05, outcome_scale: float | None = None,
+                   p_values=None) -> DesignMetrics:
     """Summarise one design's estimates over replications against the realised GTE.
 
     Parameters
@@ -217,6 +218,12 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         ``TOLERANCE * outcome_scale``, so floating-point rounding in a degenerate
         world (both arms identical) is not read as a miss. By default the largest
         absolute estimate, bound or GTE.
+    p_values : array_like, shape (n_replications,), optional
+        Each replication's randomization p-value, for a design that asks for
+        ``inference = "randomization"``: a replication is then significant when
+        its p-value is at most ``alpha`` (a NaN p-value is not significant), and
+        power, Type S and Type M count those. By default significance is read
+        from the CI.
 
     Returns
     -------
@@ -237,7 +244,8 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         - rmse = sqrt(mean(d^2)); SE sd(d^2) / (2 rmse sqrt(n)) (delta method)
         - coverage = share with ci_low <= gte_r <= ci_high; SE sqrt(p (1 - p) / n)
         - ci_width = mean(ci_high - ci_low); SE sd(width) / sqrt(n)
-        - power = share whose CI excludes 0; SE sqrt(p (1 - p) / n)
+        - power = share whose CI excludes 0 (or, given ``p_values``, whose
+          randomization p-value is at most alpha); SE sqrt(p (1 - p) / n)
         - type_s = among the ``n_significant`` replications whose CI excludes 0, the
           share whose estimate's sign differs from the sign of g_bar; SE
           sqrt(p (1 - p) / n_significant). NaN if none is significant or g_bar is
@@ -271,9 +279,11 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     """
     _check_alpha(alpha)
     est, se, low, high, g = _check_inputs(estimates, standard_errors, ci_low, ci_high, gte)
+    fisher = None if p_values is None else np.broadcast_to(np.asarray(p_values, float), est.shape)
     is_used = np.isfinite(est) & ~np.isnan(se) & ~np.isnan(low) & ~np.isnan(high) & ~np.isnan(g)
     n_dropped = int(est.size - is_used.sum())
     est, se, low, high, g = (a[is_used] for a in (est, se, low, high, g))
+    fisher = None if fisher is None else fisher[is_used]
     n = est.size
     usable_share, usable_share_se = _share(is_used) if is_used.size else (math.nan, math.nan)
     if n == 0:
@@ -309,7 +319,10 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         ratio, relative_bias_se = math.nan, math.nan
 
     is_covered = (low - tol <= g) & (g <= high + tol)
-    is_significant = (low > tol) | (high < -tol)
+    if fisher is None:
+        is_significant = (low > tol) | (high < -tol)
+    else:  # Fisher's randomization test at level alpha (NaN compares False)
+        is_significant = fisher <= alpha
     n_significant = int(is_significant.sum())
     coverage, coverage_se = _share(is_covered)
     power, power_se = _share(is_significant)

@@ -15,8 +15,13 @@ from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec
 from spillgauge.schedule import AssignmentSchedule
 
-__all__ = ["draw_design_schedule", "estimate_design", "estimator_name", "describe_unit",
-           "prepare_market"]
+__all__ = [
+    "describe_unit",
+    "draw_design_schedule",
+    "estimate_design",
+    "estimator_name",
+    "prepare_market",
+]
 
 
 def prepare_market(market: Market, designs) -> None:
@@ -42,10 +47,11 @@ def estimator_name(spec: DesignSpec) -> str:
 
 
 def estimate_design(spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                    confidence: float, tick_hours: int) -> Estimate:
-    """Analyse one design's world with its estimator."""
+                    confidence: float, tick_hours: int, rng: np.random.Generator | None
+                    ) -> Estimate:
+    """Analyse one design's world with its estimator (``rng``: its randomization-test stream)."""
     return kind_of(spec).analyse(spec, panel, schedule, confidence=confidence,
-                                 tick_hours=tick_hours)
+                                 tick_hours=tick_hours, rng=rng)
 
 
 def describe_unit(spec: DesignSpec) -> str:

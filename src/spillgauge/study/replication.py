@@ -15,12 +15,24 @@ from spillgauge.market.build import Market, build_market
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import Scenario
 from spillgauge.schedule import AssignmentSchedule
-from spillgauge.seeding import ASSIGNMENT, DEMAND, design_key, stream
+from spillgauge.seeding import (
+    ASSIGNMENT,
+    DEMAND,
+    RANDOMIZATION_TEST,
+    design_key,
+    stream,
+)
 from spillgauge.statistics.truth import ReplicationTruth, replication_truth
 from spillgauge.worlds.engine import simulate_worlds
 
-__all__ = ["DesignRun", "ReplicationResult", "run_replication", "result_to_record",
-           "result_from_record", "SAMPLE_POOLS"]
+__all__ = [
+    "SAMPLE_POOLS",
+    "DesignRun",
+    "ReplicationResult",
+    "result_from_record",
+    "result_to_record",
+    "run_replication",
+]
 
 SAMPLE_POOLS = 4  # pools whose stock paths are kept for the report
 
@@ -69,6 +81,8 @@ class DesignRun:
         diagnostic = self.estimate.diagnostic
         if diagnostic is not None:
             record.update({k: float(getattr(diagnostic, k)) for k in _SAVED_DIAGNOSTIC})
+        if not np.isnan(self.estimate.randomization_p_value):  # only designs that ask for it
+            record["randomization_p_value"] = self.estimate.randomization_p_value
         return record
 
     @classmethod
@@ -85,7 +99,9 @@ class DesignRun:
                 rejects=bool(values["rejects"]),
                 rejects_chebyshev=bool(values["rejects_chebyshev"]))
         estimate = Estimate(**{name: values[saved] for saved, name in _SAVED_FIELDS},
-                            method="", diagnostic=diagnostic)
+                            method="", diagnostic=diagnostic,
+                            randomization_p_value=values.get("randomization_p_value",
+                                                             float("nan")))
         return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]),
                    note=note, truth=values.get("truth", float("nan")),
                    left_out_effect=values.get("left_out_effect", float("nan")))
@@ -191,10 +207,13 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
     confidence = 1.0 - scenario.study.alpha
     runs = {}
     for spec, schedule, panel in zip(designs, schedules[2:], panels[2:]):
+        # its own stream: a design's re-draws leave every other stream's numbers unchanged
+        test_rng = np.random.default_rng(stream(seed, replication, RANDOMIZATION_TEST,
+                                                design_key(spec.label)))
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", DegenerateEstimateWarning)
             estimate = estimate_design(spec, panel, schedule, confidence=confidence,
-                                       tick_hours=scenario.calendar.tick_hours)
+                                       tick_hours=scenario.calendar.tick_hours, rng=test_rng)
         notes = [str(w.message) for w in caught
                  if issubclass(w.category, DegenerateEstimateWarning)]
         kind = kind_of(spec)

@@ -228,8 +228,12 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
         gte = np.array([run.truth for run in runs], dtype=float)
         left_out = float(np.nanmean([run.left_out_effect for run in runs])) \
             if np.isfinite([run.left_out_effect for run in runs]).any() else float("nan")
+    p_values = None  # power from the randomization test when the design asks for it
+    if spec.params.get("inference") == "randomization":
+        p_values = np.array([e.randomization_p_value for e in estimates], dtype=float)
     metrics = design_metrics(column["point"], column["standard_error"], column["ci_low"],
-                             column["ci_high"], gte, alpha=alpha, outcome_scale=outcome_scale)
+                             column["ci_high"], gte, alpha=alpha, outcome_scale=outcome_scale,
+                             p_values=p_values)
     notes = Counter(r.runs[spec.label].note for r in results if r.runs[spec.label].note)
     interference = None
     diagnostics = [e.diagnostic for e in estimates]
