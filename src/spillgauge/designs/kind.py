@@ -13,6 +13,7 @@ incidences), never the market itself.
 from __future__ import annotations
 
 import dataclasses
+import importlib
 from typing import ClassVar, Protocol
 
 import numpy as np
@@ -170,7 +171,8 @@ class DesignKind:
 
         By default, the named estimator called with the panel and schedule.
         """
-        from spillgauge import estimators
+        from spillgauge.estimators import __name__ as _package
+        estimators = importlib.import_module(_package)
 
         function = getattr(estimators, self.estimator_name(spec))
         return function(panel, schedule, confidence=confidence)
