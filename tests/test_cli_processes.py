@@ -94,3 +94,56 @@ def test_concurrent_runs_never_mix_two_studies(tiny, tmp_path):
         summary = json.loads((out / "summary.json").read_text())
         winner = [11, 12][[code for code, _ in results].index(0)]
         assert study["seed"] == winner == summary["seed"], (study["seed"], summary.get("seed"))
+
+
+def _children(pid: int) -> list[int]:
+    """Return the processes whose parent is ``pid`` (read from /proc)."""
+    found = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except (OSError, IndexError):
+            continue
+        if int(fields[1]) == pid:
+            found.append(int(stat.parent.name))
+    return found
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except (OSError, IndexError):
+        return False
+    return state != "Z"
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="reads /proc")
+@pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGTERM])
+def test_workers_die_with_a_killed_run(tmp_path, sig):
+    scenario = tmp_path / "slow.toml"
+    scenario.write_text(TINY.replace("count = 120", "count = 3000").replace("days = 3",
+                                                                          "days = 28"))
+    out = tmp_path / "out"
+    run = subprocess.Popen([sys.executable, "-m", "spillgauge", "run", str(scenario), "--reps",
+                            "400", "--workers", "2", "--quiet", "--out", str(out)],
+                           cwd=tmp_path, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    workers: list[int] = []
+    try:
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and run.poll() is None and len(workers) < 2:
+            workers = _children(run.pid)
+            time.sleep(0.1)
+        assert len(workers) == 2, "the run did not start its two workers"
+        os.kill(run.pid, sig)
+        run.wait(timeout=10)
+        deadline = time.monotonic() + 5
+        while time.monotonic() < deadline and any(map(_alive, workers)):
+            time.sleep(0.1)
+        assert not [pid for pid in workers if _alive(pid)], "orphaned workers"
+    finally:
+        for pid in {run.pid, *workers, *_children(run.pid)}:
+            try:
+                os.kill(pid, signal.SIGKILL)
+            except OSError:
+                pass
+        run.wait()
