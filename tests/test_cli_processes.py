@@ -147,3 +147,77 @@ def test_workers_die_with_a_killed_run(tmp_path, sig):
             except OSError:
                 pass
         run.wait()
+
+
+def _records(out: Path) -> list[dict]:
+    return [json.loads(line) for line in (out / "replications.jsonl").read_text().splitlines()]
+
+
+def _write_records(out: Path, records: list[dict]) -> None:
+    (out / "replications.jsonl").write_text("".join(json.dumps(r) + "\n" for r in records))
+
+
+def _resume_and_report_refuse(tiny, out, capsys, *, reps="3", seed="2"):
+    errors = []
+    for args in (["report", out], ["run", tiny, "--reps", reps, "--seed", seed, "--workers",
+                                   "1", "--out", out, "--resume"]):
+        code, err = _main(args, capsys)
+        assert code == 2 and len(err.splitlines()) == 1 and "Traceback" not in err, err
+        errors.append(err)
+    return errors
+
+
+@pytest.fixture
+def two_studies(tiny, tmp_path, capsys):
+    """Two finished 3-replication folders of the same scenario with seeds 2 and 5."""
+    mine, other = tmp_path / "mine", tmp_path / "other"
+    for out, seed in ((mine, "2"), (other, "5")):
+        code, err = _main(["run", tiny, "--reps", "3", "--seed", seed, "--workers", "1",
+                           "--out", out], capsys)
+        assert code == 0, err
+    return mine, other
+
+
+def test_a_record_of_another_study_is_refused_by_line(tiny, two_studies, capsys):
+    mine, other = two_studies
+    _write_records(mine, _records(mine)[:2] + _records(other)[2:])
+    for err in _resume_and_report_refuse(tiny, mine, capsys):
+        assert "line 3 belongs to another study" in err
+
+
+@pytest.mark.parametrize("tamper, message", [
+    (lambda rs: rs + [{**rs[0], "replication": 3}], "line 4 holds replication 3, beyond the 3"),
+    (lambda rs: rs + [rs[1]], "line 4 repeats replication 1 (first on line 2)"),
+])
+def test_a_stray_or_repeated_index_is_refused_by_line(tiny, two_studies, capsys, tamper,
+                                                     message):
+    mine, _ = two_studies
+    _write_records(mine, tamper(_records(mine)))
+    for err in _resume_and_report_refuse(tiny, mine, capsys, reps="5"):
+        assert message in err
+
+
+def test_records_without_study_json_are_never_adopted(tiny, two_studies, capsys):
+    mine, _ = two_studies
+    (mine / "study.json").unlink()
+    (mine / "summary.json").unlink()
+    for seed in ("2", "9"):
+        code, err = _main(["run", tiny, "--reps", "3", "--seed", seed, "--workers", "1",
+                           "--out", mine, "--resume"], capsys)
+        assert code == 2 and "holds results without a study.json" in err, err
+    assert len(_records(mine)) == 3  # nothing computed is lost
+
+
+def test_records_saved_before_they_carried_the_study_are_read_when_study_json_matches(
+        tiny, two_studies, capsys):
+    mine, _ = two_studies
+    before = (mine / "summary.json").read_text()
+    _write_records(mine, [{k: v for k, v in r.items() if k not in ("study", "reps")}
+                          for r in _records(mine)])
+    code, err = _main(["report", mine], capsys)
+    assert code == 0, err
+    assert json.loads((mine / "summary.json").read_text()) == json.loads(before)
+    code, err = _main(["run", tiny, "--reps", "4", "--workers", "1", "--out", mine,
+                       "--resume"], capsys)
+    assert code == 0, err
+    assert [r["replication"] for r in _records(mine)] == [0, 1, 2, 3]

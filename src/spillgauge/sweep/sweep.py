@@ -393,16 +393,18 @@ def run_sweep(scenario: Scenario, axes: list[SweepAxis], *, reps: int | None = N
     -------
     SweepResult
     """
+    grid = _grid(scenario, list(axes))  # every point is valid before the folder is made
     if out is not None:
         with folder_lock(out):  # a second sweep into the same folder is refused by name
-            return _run_sweep(scenario, axes, reps, seed, workers, scheduler, out, resume,
-                              progress)
-    return _run_sweep(scenario, axes, reps, seed, workers, scheduler, out, resume, progress)
+            return _run_sweep(scenario, axes, grid, reps, seed, workers, scheduler, out,
+                              resume, progress)
+    return _run_sweep(scenario, axes, grid, reps, seed, workers, scheduler, out, resume,
+                      progress)
 
 
-def _run_sweep(scenario, axes, reps, seed, workers, scheduler, out, resume, progress
+def _run_sweep(scenario, axes, grid, reps, seed, workers, scheduler, out, resume, progress
                ) -> SweepResult:
-    points, scenarios = _grid(scenario, list(axes))
+    points, scenarios = grid
     reps = scenario.study.reps if reps is None else int(reps)
     seed = scenario.study.seed if seed is None else int(seed)
     total = reps * len(points)
