@@ -221,3 +221,18 @@ def test_records_saved_before_they_carried_the_study_are_read_when_study_json_ma
                        "--resume"], capsys)
     assert code == 0, err
     assert [r["replication"] for r in _records(mine)] == [0, 1, 2, 3]
+
+
+def test_temporary_files_a_kill_left_are_removed_by_the_next_run(tiny, tmp_path, capsys):
+    out = tmp_path / "out"
+    out.mkdir()
+    # write_atomic's temporary names: a kill between creating and renaming leaves one empty
+    stale = [out / ".summary.json.k2j4x9.tmp", out / ".replications.jsonl.a1b2c3.tmp"]
+    for path in stale:
+        path.write_bytes(b"")
+    kept = out / "notes.tmp"  # not a name spillgauge writes: left alone
+    kept.write_text("mine")
+    code, err = _main(["run", tiny, "--reps", "1", "--workers", "1", "--out", out], capsys)
+    assert code == 0, err
+    assert not any(path.exists() for path in stale) and kept.read_text() == "mine"
+    assert not list(out.glob(".*.tmp"))

@@ -134,7 +134,7 @@ def folder_lock(folder: str | Path):
         return
     folder.mkdir(parents=True, exist_ok=True)
     # The lock file is never deleted: deleting it would let two runs lock two inodes.
-    stream = open(folder / LOCK_FILE, "a+", encoding="utf-8")
+    stream = open(folder / LOCK_FILE, "a+", encoding="utf-8")  # noqa: SIM115 - held across yield
     try:
         fcntl.flock(stream.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
     except OSError:
