@@ -199,3 +199,14 @@ def test_progress_is_forced_when_not_a_terminal(tiny, tmp_path):
                             cwd=tmp_path)
     assert plain.returncode == forced.returncode == 0
     assert plain.stderr == "" and "3/3" in forced.stderr
+
+
+@pytest.mark.parametrize("model", ["none", "small_world", "pool_blocks", "communities"])
+def test_graph_file_with_another_model_is_refused_by_name(tmp_path, capsys, model):
+    (tmp_path / "edges.csv").write_text("source,target\nu0,u1\n")
+    path = tmp_path / "g.toml"
+    path.write_text(TINY.replace("[study]", f'[graph]\nmodel = "{model}"\nfile = "edges.csv"\n'
+                                 "[study]"))
+    code, err = _main(["check", path], capsys)
+    assert code == 2 and len(err.splitlines()) == 1, err
+    assert "graph.file must be left out" in err and repr(model) in err

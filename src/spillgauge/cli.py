@@ -17,6 +17,7 @@ from spillgauge.console import (
     out_folder,
 )
 from spillgauge.errors import ScenarioError, SpillgaugeError
+from spillgauge.files import folder_lock
 
 __all__ = ["main", "build_parser"]
 
@@ -75,13 +76,15 @@ def _cmd_run(args) -> int:
     scenario = _load(args.scenario)
     out = out_folder(args.out, Path("results") / scenario.name)
     bar = ProgressBar(scenario.name, enabled=not args.quiet, forced=args.progress)
-    try:
-        study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
-                          scheduler=args.scheduler, out=out, resume=args.resume, progress=bar)
-    except KeyboardInterrupt:
-        bar.close()
-        return interrupted(out)
-    written = write_report(study, out)
+    with folder_lock(out):  # held until the report is written
+        try:
+            study = run_study(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
+                              scheduler=args.scheduler, out=out, resume=args.resume,
+                              progress=bar)
+        except KeyboardInterrupt:
+            bar.close()
+            return interrupted(out)
+        written = write_report(study, out)
     print(study_text(study))
     print(f"\nresults: {out}/ ({', '.join(written)})")
     return 0
@@ -125,7 +128,8 @@ def _cmd_report(args) -> int:
 
     out = Path(args.dir)
     study = load_study(out)
-    written = write_report(study, out)
+    with folder_lock(out):
+        written = write_report(study, out)
     print(study_text(study))
     print(f"\nre-rendered {out}/ ({', '.join(written)}) from {study.reps} saved replications")
     return 0
@@ -174,16 +178,17 @@ def _cmd_sweep(args) -> int:
     out = out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
     bar = ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet,
                        forced=args.progress)
-    try:
-        sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
-                          workers=args.workers, scheduler=args.scheduler, out=out,
-                          resume=args.resume, progress=bar)
-    except KeyboardInterrupt:
-        bar.close()
-        return interrupted(out)
-    written = [p.name for p in write_sweep(sweep, out)]
-    figures = save_sweep_figures(sweep, out)
-    write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
+    with folder_lock(out):  # held until every file is written
+        try:
+            sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
+                              workers=args.workers, scheduler=args.scheduler, out=out,
+                              resume=args.resume, progress=bar)
+        except KeyboardInterrupt:
+            bar.close()
+            return interrupted(out)
+        written = [p.name for p in write_sweep(sweep, out)]
+        figures = save_sweep_figures(sweep, out)
+        write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
     written += [p.name for p in figures] + ["sweep.html"]
     print(sweep.answer())
     print(f"\nresults: {out}/ ({', '.join(written)})")

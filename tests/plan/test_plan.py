@@ -178,3 +178,20 @@ def test_power_by_units_draws_tuned_tables_whose_unit_counts_differ():
     assert [t.get_text() for t in ax.get_legend().get_texts()][:1] == [
         "cluster-graph-r0.5: 20 units, 200 effective users"]
     assert tuned_unit_tables(rows[:1] + rows[3:]) == {}
+
+
+def test_plan_leaves_out_launches_and_the_interference_test():
+    # The plan sizes a randomized test of the GTE: a launch (judged against its own
+    # estimand) and the diagnostic test of interference have no GTE power to plan.
+    scenario = make_scenario(users={"count": 400, "history_days": 7}, design=[{"kind": "user"},
+                                     {"kind": "interference_test"},
+                                     {"kind": "opt_in", "estimator": "naive"}])
+    plan = plan_study(scenario, days=[4], reps=2, workers=1)
+    assert {row["label"] for row in plan.rows} == {"user"}
+
+
+def test_plan_without_a_randomized_design_names_the_designs():
+    scenario = make_scenario(users={"count": 400, "history_days": 7},
+                             design=[{"kind": "opt_in", "estimator": "naive"}])
+    with pytest.raises(ScenarioError, match="at least one randomized design"):
+        plan_study(scenario, days=[4], reps=2, workers=1)

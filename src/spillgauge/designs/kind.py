@@ -126,6 +126,13 @@ class DesignKind:
     keeps_switch_profile: ClassVar[bool] = False
     needs_user_days: ClassVar[bool] = False
 
+    def analysis_clusters(self, spec: DesignSpec, scenario: Scenario) -> int:
+        """Return how many clusters its analysis's CR2 variance sees (0: few enough to ignore).
+
+        The memory estimate counts that variance's dense per-arm Gram matrices.
+        """
+        return 0
+
     def check(self, spec: DesignSpec, scenario: Scenario) -> None:
         """Raise :class:`~spillgauge.errors.ScenarioError` when the spec cannot run in the scenario.
 

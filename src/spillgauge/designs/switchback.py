@@ -90,6 +90,10 @@ class Switchback(DesignKind):
         check(spec.block_hours * 2 <= horizon, f"{spec.at}.block_hours",
               f"at most half the horizon ({horizon // 2} hours)", spec.block_hours)
 
+    def analysis_clusters(self, spec: DesignSpec, scenario: Scenario) -> int:
+        units = scenario.pools.count if spec.per == "pool" else 1
+        return units * (scenario.calendar.horizon_hours // spec.block_hours)
+
     def default_label(self, spec: DesignSpec) -> str:
         label = f"switchback-{spec.block_hours}h"
         if spec.burn_in_hours:

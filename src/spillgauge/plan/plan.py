@@ -13,6 +13,7 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
+from spillgauge.designs.registry import kind_of
 from spillgauge.errors import ScenarioError
 from spillgauge.files import dumps, json_safe, write_atomic
 from spillgauge.market.build import build_market
@@ -169,8 +170,17 @@ def plan_study(scenario: Scenario, *, days: Iterable[int] | str | None = None,
         raise ScenarioError("--reps", "an int >= 2 (power needs replications)", reps)
     seed = scenario.study.seed if seed is None else int(seed)
     days = parse_days(days, scenario.calendar.days)
-    scenario = replace(scenario, study=replace(scenario.study, reps=reps, seed=seed,
-                                               alpha=float(alpha)))
+    # The plan sizes a randomized test: launches answer other questions than the GTE and
+    # the test of interference is a diagnostic, so neither is planned (dropping them
+    # leaves every other design's random numbers unchanged: streams are keyed by label).
+    planned = tuple(spec for spec in scenario.designs
+                    if kind_of(spec).is_randomized and kind_of(spec).is_recommendable)
+    if not planned:
+        raise ScenarioError("design", "at least one randomized design to plan (launches and "
+                            "the test of interference are not planned)",
+                            ", ".join(spec.label for spec in scenario.designs) or "none")
+    scenario = replace(scenario, designs=planned,
+                       study=replace(scenario.study, reps=reps, seed=seed, alpha=float(alpha)))
     market = build_market(scenario, seed)
     prepare_market(market, scenario.designs)
     results = run_plan_replications(scenario, seed, reps, days, market=market, workers=workers,

@@ -184,7 +184,10 @@ class Graph:
         if self.model == "edge_list":
             _check(self.file is not None, "graph.file",
                    "a CSV path when graph.model = 'edge_list'", self.file)
-        elif self.model == "small_world":
+        else:  # a file the model would not read is refused, not silently ignored
+            _check(self.file is None, "graph.file", "left out unless graph.model = 'edge_list' "
+                   f"(graph.model is {self.model!r})", self.file)
+        if self.model == "small_world":
             _check(self.mean_degree >= 2, "graph.mean_degree",
                    ">= 2 for a small-world graph", self.mean_degree)
 

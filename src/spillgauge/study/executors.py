@@ -8,6 +8,9 @@ from __future__ import annotations
 
 import os
 import signal
+import sys
+import threading
+import time
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
@@ -29,9 +32,40 @@ def default_workers() -> int:
         return max(1, os.cpu_count() or 1)
 
 
-def _ignore_interrupts() -> None:
-    """Leave Ctrl-C to the parent process, which stops the workers and reports once."""
+_PARENT_POLL_S = 0.5  # how often a worker checks that the run that started it is alive
+
+
+def _die_with_parent(parent: int) -> None:
+    """Make this worker exit when ``parent`` (the run) dies, even by SIGKILL.
+
+    On Linux the kernel sends SIGKILL at the parent's death (``PR_SET_PDEATHSIG``);
+    everywhere a daemon thread also polls ``os.getppid()``, which changes when
+    the worker is orphaned.
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+        except (OSError, AttributeError):  # pragma: no cover - no libc: polling only
+            pass
+    if os.getppid() != parent:  # the parent died before the line above took effect
+        os._exit(1)
+
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(_PARENT_POLL_S)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="spillgauge-parent-watch", daemon=True).start()
+
+
+def _start_worker(parent: int) -> None:
+    """Leave Ctrl-C to the parent process, which stops the workers and reports once; die
+    with the parent."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _die_with_parent(parent)
 
 
 def _run_task(scenario: Scenario, seed: int, replication: int,
@@ -62,7 +96,7 @@ def run_replications(scenario: Scenario, seed: int, todo: list[int], *, workers:
 
     context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
     pool = ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context,
-                               initializer=_ignore_interrupts)
+                               initializer=_start_worker, initargs=(os.getpid(),))
     try:
         futures = [pool.submit(_run_task, scenario, seed, r, designs) for r in todo]
         for future in as_completed(futures):

@@ -18,6 +18,12 @@ _BYTES_PER_USER = 120           # population, clusters, graph degree
 _BYTES_PER_EDGE = 24            # symmetric CSR adjacency (data + index, both directions)
 _BYTES_PER_EDGE_BUILD = 110     # building the graph (edge arrays, sort, dedupe): measured 106
 _BASE_BYTES = 200 * 2**20       # interpreter, numpy, scipy, networkx, simpy
+_BYTES_PER_POOL_TICK_WORLD = 32  # per world: four int64 (n_pools, n_ticks) tables (panel.py)
+_TRACED_POOLS = 4                # the first replication keeps per-tick traces of 4 pools,
+_BYTES_PER_TRACED_TICK = 3 * 8 + 28  # as 3 Python int lists (8-byte pointers; stock > 256)
+_BYTES_PER_REPLICATION = 4096    # a saved replication's truth and records, held to the end,
+_BYTES_PER_REPLICATION_DESIGN = 2048  # and one estimate per design
+_GRAM_ARRAYS = 4                 # live (G_a, G_a) float64 arrays in cr2_arm_difference
 
 
 def _orders_per_week(scenario: Scenario) -> float:
@@ -66,6 +72,10 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
     per-user totals (users x days when a design's kind declares
     ``needs_user_days``). ``n_worlds`` defaults to the two truth worlds plus one
     per design. The estimate errs high (it assumes the peak rate all day long).
+    Each world's per-pool tick tables, the first replication's traces, a
+    switchback's CR2 Gram matrices and every replication's saved records count
+    too: they grow with the horizon and with ``study.reps``. Measured at 2,000
+    users over 3,650 days (``benchmarks/_peak.py``): 35-45% high.
     ``market_only`` counts only building the market (``spillgauge check``, and
     the local process of a run on a Dask cluster).
     """
@@ -83,7 +93,28 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
                    + worlds * n_users * _BYTES_PER_USER_WORLD)
     if any(kind_of(spec).needs_user_days for spec in scenario.designs):
         per_process += worlds * n_users * scenario.calendar.days * _BYTES_PER_USER_DAY_WORLD
-    return int(per_process * max(1, workers))
+    ticks = scenario.calendar.n_ticks
+    per_process += worlds * scenario.pools.count * ticks * _BYTES_PER_POOL_TICK_WORLD
+    per_process += _gram_bytes(scenario)
+    # The parent holds every replication's records to the end, and the traces of the first.
+    held = (scenario.study.reps * (_BYTES_PER_REPLICATION + len(scenario.designs)
+                                   * _BYTES_PER_REPLICATION_DESIGN)
+            + worlds * _TRACED_POOLS * ticks * _BYTES_PER_TRACED_TICK)
+    return int(per_process * max(1, workers) + held)
+
+
+def _gram_bytes(scenario: Scenario) -> float:
+    """Return the CR2 variance's peak: dense Gram matrices of the larger arm's clusters.
+
+    With ``G`` clusters drawn Bernoulli(1/2) per arm, the larger arm rarely exceeds
+    ``G / 2 + sqrt(G)`` (two binomial SDs).
+    """
+    from spillgauge.designs.registry import kind_of
+
+    largest = max((kind_of(spec).analysis_clusters(spec, scenario) for spec in scenario.designs),
+                  default=0)
+    arm = largest / 2 + math.sqrt(largest)
+    return _GRAM_ARRAYS * 8 * arm ** 2
 
 
 def available_memory_bytes() -> int | None:

@@ -15,6 +15,7 @@ from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
+from spillgauge.files import folder_lock
 from spillgauge.market.build import build_market
 from spillgauge.scenario import Scenario
 from spillgauge.statistics.truth import TruthSummary, summarise_truth
@@ -88,7 +89,16 @@ def run_study(scenario: Scenario, *, reps: int | None = None, seed: int | None =
         check_memory(scenario, workers=default_workers() if workers is None else max(1, workers))
     else:
         check_memory(scenario, market_only=True)  # this process still builds the market
-    folder = ResultsFolder(out, scenario, seed) if out is not None else None
+    if out is None:
+        return _run_study(scenario, seed, reps, workers, scheduler, None, resume, progress)
+    with folder_lock(out):  # a second run into the same folder is refused by name
+        folder = ResultsFolder(out, scenario, seed)
+        return _run_study(scenario, seed, reps, workers, scheduler, folder, resume, progress)
+
+
+def _run_study(scenario: Scenario, seed: int, reps: int, workers: int | None,
+               scheduler: str | None, folder: ResultsFolder | None, resume: bool,
+               progress: Progress | None) -> StudyResult:
     done: dict[int, ReplicationResult] = {}
     if folder is not None:
         done = {r.replication: r for r in folder.open(resume=resume) if r.replication < reps}

@@ -16,7 +16,7 @@ from spillgauge.study.replication import (
 from spillgauge.scenario import Scenario
 from spillgauge.scenario.reading import scenario_to_dict
 
-__all__ = ["ResultsFolder", "load_study", "FORMAT_VERSION", "scenario_fingerprint"]
+__all__ = ["ResultsFolder", "load_study", "FORMAT_VERSION", "scenario_fingerprint", "study_id"]
 
 FORMAT_VERSION = 1
 _STUDY = "study.json"
@@ -64,25 +64,57 @@ def _first_difference(a: object, b: object, prefix: str = "") -> str:
     return prefix[:-1] or "the settings"
 
 
-def _latest(records, log: Path | None = None, labels: set | None = None
-            ) -> list[ReplicationResult]:
-    """Rebuild saved replications, one per index (the last line wins), sorted.
+def study_id(fingerprint: dict) -> str:
+    """Return a short digest of a study fingerprint (as ``study.json`` holds it).
 
-    ``records`` yields ``(line number, record)``; a record that is not a
-    replication of this study (its design labels are not ``labels``) is refused
-    by its line.
+    Every saved replication record carries it, so a record of another study is
+    recognised even when ``study.json`` was replaced.
     """
-    results = {}
+    import hashlib
+
+    canonical = json.dumps(json.loads(dumps(fingerprint)), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(canonical.encode("utf-8")).hexdigest()[:16]
+
+
+def _latest(records, log: Path | None = None, labels: set | None = None,
+            study: str | None = None) -> list[ReplicationResult]:
+    """Rebuild saved replications, one per index, sorted.
+
+    ``records`` yields ``(line number, record)``. A record is refused by its
+    line when it is not a replication of this study: its design labels are not
+    ``labels``, it carries another study's digest than ``study``, its index is
+    not below the replications its run asked for, or it repeats an index.
+    Records written before records carried the digest are read when
+    ``study.json`` matches.
+    """
+    where = log or _LOG
+    results, first_line = {}, {}
     for number, record in records:
         try:
             result = result_from_record(record)
             is_ours = result.replication >= 0 and (labels is None or set(result.runs) == labels)
+            saved_study, saved_reps = record.get("study"), record.get("reps")
         except (KeyError, TypeError, ValueError, AttributeError):
             is_ours = False
         if not is_ours:
-            raise ResultsError(f"{log or _LOG} line {number} is not a replication record of "
+            raise ResultsError(f"{where} line {number} is not a replication record of "
                                "this study; delete that line (or the folder) and rerun")
+        if study is not None and saved_study is not None and saved_study != study:
+            raise ResultsError(f"{where} line {number} belongs to another study (fingerprint "
+                               f"{str(saved_study)[:16]!r}, study.json gives {study!r}); "
+                               "delete that line (or the folder) and rerun")
+        if saved_reps is not None and not (isinstance(saved_reps, int)
+                                           and result.replication < saved_reps):
+            raise ResultsError(f"{where} line {number} holds replication {result.replication}, "
+                               f"beyond the {saved_reps} its run asked for; delete that line "
+                               "(or the folder) and rerun")
+        if result.replication in results:
+            raise ResultsError(f"{where} line {number} repeats replication "
+                               f"{result.replication} (first on line "
+                               f"{first_line[result.replication]}); delete that line (or the "
+                               "folder) and rerun")
         results[result.replication] = result
+        first_line[result.replication] = number
     return [results[k] for k in sorted(results)]
 
 
@@ -97,6 +129,8 @@ class ResultsFolder:
     def __init__(self, path: str | Path, scenario: Scenario, seed: int) -> None:
         self.path = Path(path)
         self.fingerprint = scenario_fingerprint(scenario, seed)
+        self.study_id = study_id(self.fingerprint)
+        self._reps = int(scenario.study.reps)
         self._labels = {spec.label for spec in scenario.designs}
 
     @property
@@ -107,7 +141,7 @@ class ResultsFolder:
     def _check_owner(self) -> bool:
         study = self.path / _STUDY
         if not study.exists():
-            if (self.path / "summary.json").exists():
+            if (self.path / "summary.json").exists() or self._log_has_lines():
                 raise ResultsError(f"{self.path} holds results without a study.json; "
                                    "choose another --out folder")
             return False
@@ -144,10 +178,17 @@ class ResultsFolder:
             write_atomic(self.log_path, "")
             return []
         lines = list(self._valid_lines())
-        records = _latest(((n, record) for n, _, record in lines), self.log_path, self._labels)
+        records = _latest(((n, record) for n, _, record in lines), self.log_path, self._labels,
+                          self.study_id)
         # Rewrite the log without a torn last line, so new lines append cleanly.
         write_atomic(self.log_path, "".join(line + "\n" for _, line, _ in lines))
         return records
+
+    def _log_has_lines(self) -> bool:
+        try:
+            return self.log_path.stat().st_size > 0
+        except OSError:
+            return False
 
     def _valid_lines(self):
         """Yield ``(number, line, record)`` for every complete line of the log (a torn one is
@@ -165,11 +206,12 @@ class ResultsFolder:
     def read(self) -> list[ReplicationResult]:
         """Return the saved replications (a torn last line from a kill is skipped)."""
         return _latest(((n, record) for n, _, record in self._valid_lines()), self.log_path,
-                       self._labels)
+                       self._labels, self.study_id)
 
     def append(self, result: ReplicationResult) -> None:
         """Append one finished replication, flushed and fsynced."""
-        line = dumps(result_to_record(result), compact=True)
+        record = {**result_to_record(result), "study": self.study_id, "reps": self._reps}
+        line = dumps(record, compact=True)
         with open(self.log_path, "a", encoding="utf-8") as stream:
             stream.write(line + "\n")
             stream.flush()
@@ -209,6 +251,7 @@ def load_study(path: str | Path):
         raise ResultsError(f"{study_file} cannot be read ({exc.__class__.__name__}: "
                            f"{str(exc)[:80]})") from None
     folder = ResultsFolder(path, scenario, seed)
+    folder.study_id = study_id(saved)  # records name the study as saved, not as re-read
     results = folder.read()
     if not results:
         raise ResultsError(f"{path} holds no finished replication yet")

@@ -37,7 +37,7 @@ from spillgauge.sweep.answers import (
 from spillgauge.study.compose import describe_unit, estimator_name
 from spillgauge.designs.registry import KINDS, make_design_spec
 from spillgauge.statistics.trust import assess_trust, few_replications_note
-from spillgauge.files import dumps, write_atomic
+from spillgauge.files import dumps, folder_lock, write_atomic
 from spillgauge.study.result import StudyResult
 from spillgauge.study.run import run_study
 from spillgauge.scenario import Scenario
@@ -393,7 +393,18 @@ def run_sweep(scenario: Scenario, axes: list[SweepAxis], *, reps: int | None = N
     -------
     SweepResult
     """
-    points, scenarios = _grid(scenario, list(axes))
+    grid = _grid(scenario, list(axes))  # every point is valid before the folder is made
+    if out is not None:
+        with folder_lock(out):  # a second sweep into the same folder is refused by name
+            return _run_sweep(scenario, axes, grid, reps, seed, workers, scheduler, out,
+                              resume, progress)
+    return _run_sweep(scenario, axes, grid, reps, seed, workers, scheduler, out, resume,
+                      progress)
+
+
+def _run_sweep(scenario, axes, grid, reps, seed, workers, scheduler, out, resume, progress
+               ) -> SweepResult:
+    points, scenarios = grid
     reps = scenario.study.reps if reps is None else int(reps)
     seed = scenario.study.seed if seed is None else int(seed)
     total = reps * len(points)
