@@ -33,3 +33,28 @@ def scenario_factory():
 @pytest.fixture
 def rng():
     return np.random.default_rng(20261202)
+
+
+# A market small enough for command-line tests that start real runs.
+TINY = """name = "tiny"
+[calendar]
+days = 3
+[users]
+count = 120
+[pools]
+count = 4
+[effect]
+lift = 0.3
+[study]
+reps = 2
+seed = 2
+[[design]]
+kind = "user"
+"""
+
+
+@pytest.fixture
+def tiny(tmp_path):
+    path = tmp_path / "tiny.toml"
+    path.write_text(TINY)
+    return path

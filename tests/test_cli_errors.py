@@ -13,29 +13,8 @@ import time
 import pytest
 
 from spillgauge.cli import main
+from tests.conftest import TINY
 
-TINY = """name = "tiny"
-[calendar]
-days = 3
-[users]
-count = 120
-[pools]
-count = 4
-[effect]
-lift = 0.3
-[study]
-reps = 2
-seed = 2
-[[design]]
-kind = "user"
-"""
-
-
-@pytest.fixture
-def tiny(tmp_path):
-    path = tmp_path / "tiny.toml"
-    path.write_text(TINY)
-    return path
 
 
 def _main(args, capsys):

@@ -14,24 +14,10 @@ from pathlib import Path
 import pytest
 
 from spillgauge.cli import main
+from tests.conftest import TINY
 
 pytest.importorskip("fcntl")
 
-TINY = """name = "tiny"
-[calendar]
-days = 3
-[users]
-count = 120
-[pools]
-count = 4
-[effect]
-lift = 0.3
-[study]
-reps = 2
-seed = 2
-[[design]]
-kind = "user"
-"""
 
 HOLD = ("import sys; from spillgauge.files import folder_lock\n"
         "with folder_lock(sys.argv[1]):\n"
@@ -44,13 +30,6 @@ def _main(args, capsys):
     except SystemExit as exc:
         code = exc.code
     return code, capsys.readouterr().err.strip()
-
-
-@pytest.fixture
-def tiny(tmp_path):
-    path = tmp_path / "tiny.toml"
-    path.write_text(TINY)
-    return path
 
 
 def test_a_held_folder_is_refused_naming_the_holder_until_the_holder_dies(tiny, tmp_path,

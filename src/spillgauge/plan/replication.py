@@ -9,7 +9,6 @@ world to its first days before the design's own analysis (the registry's
 
 from __future__ import annotations
 
-import os
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -20,11 +19,10 @@ from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.market.build import Market, build_market
 from spillgauge.plan.prefix import first_days_of_panel, first_ticks_of_schedule
 from spillgauge.scenario import Scenario
-from spillgauge.schedule import AssignmentSchedule
-from spillgauge.seeding import ASSIGNMENT, DEMAND, design_key, stream
 from spillgauge.statistics.truth import ReplicationTruth, replication_truth
-from spillgauge.study.compose import draw_design_schedule, estimate_design
-from spillgauge.worlds.engine import simulate_worlds
+from spillgauge.study.compose import estimate_design
+from spillgauge.study.executors import default_workers, run_on_processes
+from spillgauge.study.replication import simulate_replication_worlds
 
 __all__ = ["PlanReplication", "PrefixRun", "run_plan_replication", "run_plan_replications"]
 
@@ -77,14 +75,9 @@ def run_plan_replication(scenario: Scenario, seed: int, replication: int, days: 
                          *, market: Market | None = None) -> PlanReplication:
     """Run one replication and analyse each design at every duration in ``days``."""
     market = market if market is not None else build_market(scenario, seed)
-    n_users, n_ticks = market.n_users, scenario.calendar.n_ticks
-    schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),
-                 AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=True)]
-    for spec in scenario.designs:
-        rng = np.random.default_rng(stream(seed, replication, ASSIGNMENT, design_key(spec.label)))
-        schedules.append(draw_design_schedule(market, spec, rng=rng))
-    demand_rng = np.random.default_rng(stream(seed, replication, DEMAND))
-    panels = simulate_worlds(market, schedules, rng=demand_rng)
+    n_users = market.n_users
+    schedules, panels = simulate_replication_worlds(market, scenario.designs, seed, replication,
+                                                    user_days=True)  # prefixes cut days
     confidence = 1.0 - scenario.study.alpha
     tick_hours = scenario.calendar.tick_hours
     ticks_per_day = 24 // tick_hours
@@ -128,28 +121,20 @@ def run_plan_replications(scenario: Scenario, seed: int, reps: int, days: tuple[
                           progress: Callable[[int, int], None] | None = None
                           ) -> list[PlanReplication]:
     """Run ``reps`` replications serially or on local processes; return them in order."""
-    n_workers = max(1, len(os.sched_getaffinity(0))) if workers is None else max(1, workers)
+    n_workers = default_workers() if workers is None else max(1, workers)
     results: list[PlanReplication] = []
+
+    def finished(result: PlanReplication) -> None:
+        results.append(result)
+        if progress:
+            progress(len(results), reps)
+
     if progress:
         progress(0, reps)
     if n_workers == 1 or reps <= 1:
         for r in range(reps):
-            results.append(run_plan_replication(scenario, seed, r, days, market=market))
-            if progress:
-                progress(len(results), reps)
+            finished(run_plan_replication(scenario, seed, r, days, market=market))
     else:
-        import multiprocessing
-        from concurrent.futures import ProcessPoolExecutor, as_completed
-
-        context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
-        with ProcessPoolExecutor(max_workers=min(n_workers, reps), mp_context=context) as pool:
-            futures = [pool.submit(_run_task, scenario, seed, r, days) for r in range(reps)]
-            try:
-                for future in as_completed(futures):
-                    results.append(future.result())
-                    if progress:
-                        progress(len(results), reps)
-            except BaseException:
-                pool.shutdown(wait=False, cancel_futures=True)
-                raise
+        run_on_processes(_run_task, [(scenario, seed, r, days) for r in range(reps)],
+                         workers=n_workers, finished=finished)
     return sorted(results, key=lambda r: r.replication)

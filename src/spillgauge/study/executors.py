@@ -19,7 +19,7 @@ from spillgauge.market.build import build_market
 from spillgauge.scenario import Scenario
 from spillgauge.study.replication import ReplicationResult, run_replication
 
-__all__ = ["default_workers", "run_replications"]
+__all__ = ["default_workers", "run_replications", "run_on_processes"]
 
 _CONNECT_TIMEOUT_S = 5.0  # a scheduler that does not answer in this time is reported
 
@@ -92,18 +92,29 @@ def run_replications(scenario: Scenario, seed: int, todo: list[int], *, workers:
         for r in todo:
             finished(run_replication(scenario, seed, r, market=market, designs=designs))
         return
+    run_on_processes(_run_task, [(scenario, seed, r, designs) for r in todo],
+                     workers=n_workers, finished=finished)
+
+
+def run_on_processes(task: Callable, arguments: list[tuple], *, workers: int,
+                     finished: Callable) -> None:
+    """Run ``task(*args)`` for each tuple on ``workers`` local processes; hand each result on.
+
+    Workers ignore Ctrl-C (the parent stops them and reports once) and die with the
+    parent; an interrupt or an error cancels the queued tasks and ends the running ones.
+    """
     import multiprocessing
 
     context = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
-    pool = ProcessPoolExecutor(max_workers=min(n_workers, len(todo)), mp_context=context,
+    pool = ProcessPoolExecutor(max_workers=min(workers, len(arguments)), mp_context=context,
                                initializer=_start_worker, initargs=(os.getpid(),))
     try:
-        futures = [pool.submit(_run_task, scenario, seed, r, designs) for r in todo]
+        futures = [pool.submit(task, *args) for args in arguments]
         for future in as_completed(futures):
             finished(future.result())
     except BaseException:
-        # An interrupt (or an error) stops the work at once: queued replications are
-        # cancelled and running ones abandoned; finished ones were handed over already.
+        # An interrupt (or an error) stops the work at once: queued tasks are cancelled
+        # and running ones abandoned; finished ones were handed over already.
         for process in list((getattr(pool, "_processes", None) or {}).values()):
             process.terminate()
         pool.shutdown(wait=False, cancel_futures=True)

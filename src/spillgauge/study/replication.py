@@ -32,6 +32,7 @@ __all__ = [
     "result_from_record",
     "result_to_record",
     "run_replication",
+    "simulate_replication_worlds",
 ]
 
 SAMPLE_POOLS = 4  # pools whose stock paths are kept for the report
@@ -167,6 +168,26 @@ def _pool_traces(panel: OutcomePanel, pools: np.ndarray) -> dict:
             "demanded": panel.pool_demanded[pools].tolist()}
 
 
+def simulate_replication_worlds(market: Market, designs: tuple, seed: int, replication: int,
+                                *, user_days: bool) -> tuple[list, list]:
+    """Draw every design's schedule on its own stream and simulate the replication's worlds.
+
+    Returns the schedules and panels in the same order: all control, all treated,
+    then one per design. The study and the plan both run replications through here,
+    so the same (seed, replication) gives them the same worlds.
+    """
+    from spillgauge.study.compose import draw_design_schedule
+
+    n_users, n_ticks = market.n_users, market.n_ticks
+    schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),
+                 AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=True)]
+    for spec in designs:
+        rng = np.random.default_rng(stream(seed, replication, ASSIGNMENT, design_key(spec.label)))
+        schedules.append(draw_design_schedule(market, spec, rng=rng))
+    demand_rng = np.random.default_rng(stream(seed, replication, DEMAND))
+    return schedules, simulate_worlds(market, schedules, rng=demand_rng, user_days=user_days)
+
+
 def run_replication(scenario: Scenario, seed: int, replication: int, *,
                     market: Market | None = None, keep_traces: bool | None = None,
                     designs: tuple | None = None, user_days: bool = False
@@ -192,17 +213,11 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
     """
     designs = scenario.designs if designs is None else tuple(designs)
     if designs:  # estimators (and scipy.stats) load only when a design is run
-        from spillgauge.study.compose import draw_design_schedule, estimate_design
+        from spillgauge.study.compose import estimate_design
     market = market if market is not None else build_market(scenario, seed)
-    n_users, n_ticks = market.n_users, scenario.calendar.n_ticks
-    schedules = [AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=False),
-                 AssignmentSchedule.fixed(n_users=n_users, n_ticks=n_ticks, is_treated=True)]
-    for spec in designs:
-        rng = np.random.default_rng(stream(seed, replication, ASSIGNMENT, design_key(spec.label)))
-        schedules.append(draw_design_schedule(market, spec, rng=rng))
-    demand_rng = np.random.default_rng(stream(seed, replication, DEMAND))
     user_days = user_days or any(kind_of(spec).needs_user_days for spec in designs)
-    panels = simulate_worlds(market, schedules, rng=demand_rng, user_days=user_days)
+    schedules, panels = simulate_replication_worlds(market, designs, seed, replication,
+                                                    user_days=user_days)
     truth = replication_truth(panels[0], panels[1])
     confidence = 1.0 - scenario.study.alpha
     runs = {}
