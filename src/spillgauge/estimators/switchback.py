@@ -17,6 +17,7 @@ from __future__ import annotations
 import numbers
 
 import numpy as np
+from scipy import sparse
 
 from spillgauge.estimators._inference import (
     build_estimate,
@@ -27,10 +28,6 @@ from spillgauge.estimators._inference import (
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
-
-# working model of the block variance: share of a block-hour's variance shared by the whole
-# block (a day's market shock); calibrated on tests/calibration's switchback worlds
-BLOCK_SHARE = 1.0
 
 __all__ = [
     "switchback_difference",
@@ -178,11 +175,12 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     count = exists.sum(axis=0).astype(float)                           # c_j
     point = 0.0
     used = np.zeros(cell.shape, dtype=bool)
-    rates, totals = [], []
+    rates, totals, fallbacks = [], [], []
     for arm in (treated, ~treated):
         in_arm = cell & arm
         chosen = clean & arm
         fallback = ~chosen.any(axis=(0, 1))
+        fallbacks.append(fallback)
         chosen = chosen | (in_arm & fallback[None, None, :])
         users = (weights * chosen).sum(axis=(0, 1))
         orders = (values * chosen).sum(axis=(0, 1))
@@ -214,26 +212,49 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         with np.errstate(invalid="ignore", divide="ignore"):
             share = np.where(totals[k] > 0, count / totals[k], 0.0)
         residual = np.where(chosen, values - np.nan_to_num(rates[k])[None, None, :] * weights,
-                            0.0)
-        psi = (residual * share[None, None, :]).sum(axis=2)[blocks]
+                            0.0) * share[None, None, :]
+        early = (position < burn_in_ticks) & ~fallbacks[k]
+        psi = residual.sum(axis=2)
+        psi_early = residual[:, :, early].sum(axis=2)
+        first, second = _adjacent_pairs(blocks, chosen[:, :, early].any(axis=2))
         users_block = np.where(chosen, weights, 0.0)[blocks]
-        factor, expected, spread = _block_correction(
-            users_block, totals[k], share, np.nan_to_num(rates[k]))
-        if not expected > 0:
+        expected, trace, trace_square = _block_moments(
+            users_block, totals[k], share * np.maximum(np.nan_to_num(rates[k]), 0.0), early,
+            first, second)
+        if not trace > 1e-12 * expected:
             return degenerate_estimate(method, "every position of an arm rests on a single "
                                        "block, so the block-level variance is undefined",
                                        n_units=n_blocks, point=point)
-        variance += factor * float(np.sum(psi ** 2))
-        parts.append((factor * expected, factor ** 2 * spread))
+        factor = expected / trace
+        psi, psi_early = psi[blocks], psi_early[blocks]
+        variance += factor * float(np.sum(psi ** 2) + 2 * np.sum(psi[first] * psi_early[second]))
+        parts.append((expected, factor ** 2 * trace_square))
+    if not variance > 0:
+        return degenerate_estimate(method, "the block-level variance is not positive",
+                                   n_units=n_blocks, point=point)
     df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
     return build_estimate(point, variance, confidence=confidence, method=method,
                           n_units=n_blocks, df=df)
 
 
-def _block_correction(users_used: np.ndarray, arm_users: np.ndarray, share: np.ndarray,
-                      rate: np.ndarray, *, block_share: float = BLOCK_SHARE
-                      ) -> tuple[float, float, float]:
-    """Return one arm's small-sample factor and the moments behind its degrees of freedom.
+def _adjacent_pairs(blocks: np.ndarray, has_early: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return the arm's pairs of consecutive blocks of a unit whose second uses burn-in hours.
+
+    ``blocks`` marks the arm's blocks, ``has_early`` the blocks used at a burn-in
+    position (both shape ``(n_units, n_periods)``). The result indexes the arm's
+    blocks in row-major order (``blocks`` boolean indexing): block ``first[i]``
+    directly precedes block ``second[i]`` of the same unit.
+    """
+    index = np.full(blocks.shape, -1, dtype=np.int64)
+    index[blocks] = np.arange(int(blocks.sum()))
+    pair = blocks[:, :-1] & blocks[:, 1:] & has_early[:, 1:]
+    return index[:, :-1][pair], index[:, 1:][pair]
+
+
+def _block_moments(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarray,
+                   early: np.ndarray, first: np.ndarray, second: np.ndarray
+                   ) -> tuple[float, float, float]:
+    """Return one arm's model variance and the first two moments of its variance estimate.
 
     Parameters
     ----------
@@ -241,55 +262,62 @@ def _block_correction(users_used: np.ndarray, arm_users: np.ndarray, share: np.n
         ``N_b`` where block ``b`` of the arm is used at position ``j``, else 0.
     arm_users : ndarray, shape (L,)
         ``W_aj``, the users of the blocks used at each position.
-    share : ndarray, shape (L,)
-        ``lambda_j = c_j / W_aj``, the weight of a position's orders in the estimate.
-    rate : ndarray, shape (L,)
-        The arm's orders per user-tick at each position, ``r_aj``.
+    scale : ndarray, shape (L,)
+        ``s_j = lambda_j r_j``: a position's weight in the estimate
+        (``lambda_j = c_j / W_aj``) times the arm's orders per user-tick there.
+    early : ndarray of bool, shape (L,)
+        The burn-in positions, estimated from the blocks that did not switch.
+    first, second : ndarray of int, shape (n_pairs,)
+        Consecutive blocks of a unit (see :func:`_adjacent_pairs`).
 
     Returns
     -------
-    factor, trace, trace_square : float
-        ``kappa = v / tr(C)``, ``tr(C)`` and ``tr(C^2)`` (see Notes).
+    expected, trace, trace_square : float
+        ``v = sum_b a_b^2``, ``tr(G)`` and ``tr(G^2)`` (see Notes).
 
     Notes
     -----
     Working model (Bell & McCaffrey 2002; Pustejovsky & Tipton 2018): the orders
-    ``F_bj`` of block ``b`` at position ``j`` are ``N_b r_j (u_b + e_bj)`` with a block
-    effect ``u_b`` shared by the block's hours (a day's market shock) and
-    independent hourly noise ``e_bj`` (Poisson-like, variance ``1 / (N_b r_j)``); the
-    two parts weigh ``block_share`` and ``1 - block_share`` of one block-hour's
-    variance. ``C`` is the covariance of the linearization ``psi_b`` under the model
-    and ``v`` the arm's true share of the estimate's variance, so
-    ``kappa = v / tr(C)`` makes ``sum psi_b^2`` unbiased for it. A burn-in
-    position rests only on the arm's blocks that did not switch: its residuals
-    are taken about a mean of few blocks, and ``kappa`` grows accordingly. With
-    every block used at every position and equal blocks, ``kappa = B_a / (B_a - 1)``.
-    Satterthwaite's degrees of freedom of ``sum_a kappa_a sum psi_b^2`` are
-    ``(sum_a kappa_a tr C_a)^2 / sum_a kappa_a^2 tr(C_a^2)`` (``B - 2`` for two
-    equal arms without burn-in).
+    of block ``b`` at position ``j`` are ``F_bj = N_b r_j u_b`` with independent block
+    effects ``u_b`` of variance 1, common to both arms (a day's market shock). The
+    arm's part of the estimate is then ``sum_b a_b u_b``, ``a_b = sum_j s_j N_bj``,
+    of variance ``v = sum a_b^2``, and the linearization is ``psi = Q u`` with
+    ``Q = D - X Y'``, ``D = diag(a)``, ``X = N s``, ``Y = N / W`` (rank ``L``).
+    ``Q_E`` is the same over the burn-in positions. The variance estimate is
+    ``psi' psi + 2 psi' P psi_E = u' G u`` with ``P`` the pairs of consecutive
+    blocks and ``G = Q'Q + Q'P Q_E + Q_E' P' Q``; ``G`` is a sparse matrix
+    (``O(B_a)`` entries) plus a product of ``(B_a, 2L + 2E)`` factors, so its
+    traces take ``O(B_a L^2)`` time and ``O(B_a L)`` memory, never a
+    ``(B_a, B_a)`` array. ``v / tr(G)`` makes the estimate unbiased under the
+    model; ``tr(G^2)`` gives its variance ``2 tr(G^2)`` under normal ``u``.
     """
-    scale = share * np.maximum(rate, 0.0)                               # lambda_j r_j
-    weight = np.divide(scale, arm_users, out=np.zeros_like(share), where=arm_users > 0)
-    # hourly noise: Var(F_bj) = N_b r_j, independent across cells
-    noise_cov = (np.diag((users_used * share * scale).sum(axis=1))
-                 - (users_used * share * weight) @ users_used.T)
-    noise_var = float(np.sum(share * scale * arm_users))
-    # block effect: F_bj = N_b r_j u_b; psi = Q u with Q = D - N (N w)' summed over positions
-    inverse_users = np.divide(1.0, arm_users, out=np.zeros_like(share), where=arm_users > 0)
-    q = np.diag((users_used * scale).sum(axis=1)) - (users_used * scale) @ (
-        users_used * inverse_users).T
-    block_cov = q @ q.T
-    loading = (users_used * scale).sum(axis=1)
-    block_var = float(loading @ loading)
-    noise_norm = noise_var if noise_var > 0 else 1.0
-    block_norm = block_var if block_var > 0 else 1.0
-    covariance = ((1 - block_share) * noise_cov / noise_norm
-                  + block_share * block_cov / block_norm)
-    target = (1 - block_share) * noise_var / noise_norm + block_share * block_var / block_norm
-    trace = float(np.trace(covariance))
-    if not trace > 1e-12 * target:
-        return np.nan, 0.0, 0.0
-    return target / trace, trace, float(np.sum(covariance ** 2))
+    n_blocks = users_used.shape[0]
+    y = np.divide(users_used, arm_users, out=np.zeros_like(users_used), where=arm_users > 0)
+    x = users_used * scale
+    a = x.sum(axis=1)
+    x_early, y_early = x[:, early], y[:, early]
+    a_early = x_early.sum(axis=1)
+    # P' X and P X_E: row `second` of P'X is row `first` of X, and row `first` of P X_E
+    # is row `second` of X_E
+    px = np.zeros_like(x)
+    px[second] = x[first]
+    p_x_early = np.zeros_like(x_early)
+    p_x_early[first] = x_early[second]
+    cross = x.T @ p_x_early                                      # X' P X_E, (L, E)
+    left = np.hstack((-a[:, None] * x - a_early[:, None] * px + y @ (x.T @ x)
+                      + y_early @ cross.T,
+                      -a[:, None] * p_x_early + y @ cross, -y, -y_early))
+    right = np.hstack((y, y_early, a[:, None] * x + a_early[:, None] * px,
+                       a[:, None] * p_x_early))
+    pair_values = a[first] * a_early[second]
+    sparse_part = sparse.coo_array((pair_values, (first, second)),
+                                   shape=(n_blocks, n_blocks)).tocsr()
+    sparse_part = sparse_part + sparse_part.T + sparse.diags_array(a ** 2)
+    trace = float(np.sum(a ** 2) + np.sum(left * right))
+    small = right.T @ left
+    trace_square = float(np.sum(a ** 4) + 2 * np.sum(pair_values ** 2)
+                         + 2 * np.sum((sparse_part @ left) * right) + np.sum(small * small.T))
+    return float(np.sum(a ** 2)), trace, trace_square
 
 
 def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:
