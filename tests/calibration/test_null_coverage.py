@@ -88,20 +88,35 @@ def test_horvitz_thompson_cluster_covers_under_the_null(n_clusters):
                                        200 + n_clusters))
 
 
-# Known shortfall, measured (3000 replications): 93.3% and 92.0% at 12 and 18 h burn-in with
-# share 0.5, 92-93% at share 0.3. The blocks that did not switch come in runs that share the
-# AR(1) market shocks, which a block-level variance does not see. strict: a fix makes them pass.
-_SHORT = pytest.mark.xfail(strict=True, reason="switchback coverage 92-93%, see comment")
+# Conservative, measured (3000 replications): 97.2% at 18 h burn-in with share 0.5, 96.7% and
+# 97.3% at 12 and 18 h with share 0.3. The variance's mean is right (mean variance / squared
+# error 0.97-1.03) but Satterthwaite's degrees of freedom for a quadratic form with the
+# lag-1 products (not positive definite) are too few: under the working model itself (normal
+# block effects, no Poisson noise) coverage is 96.4% and 97.3% at 12 and 18 h. strict: a
+# better degrees-of-freedom approximation makes them pass.
+_WIDE = pytest.mark.xfail(strict=True, reason="switchback coverage 96.7-97.3%, see comment")
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize(("share", "burn_in_ticks"), [
-    (0.5, 0), (0.5, 6), pytest.param(0.5, 12, marks=_SHORT), pytest.param(0.5, 18, marks=_SHORT),
-    pytest.param(0.3, 0, marks=_SHORT), pytest.param(0.3, 6, marks=_SHORT),
-    pytest.param(0.3, 12, marks=_SHORT), pytest.param(0.3, 18, marks=_SHORT)])
+    (0.5, 0), (0.5, 6), (0.5, 12), pytest.param(0.5, 18, marks=_WIDE),
+    (0.3, 0), (0.3, 6), pytest.param(0.3, 12, marks=_WIDE), pytest.param(0.3, 18, marks=_WIDE)])
 def test_switchback_burn_in_covers_under_the_null(share, burn_in_ticks):
-    # 14 daily blocks with AR(1) daily shocks and a diurnal rhythm; sharp null.
+    # 14 daily blocks with AR(1) daily shocks and a diurnal rhythm; sharp null. The burn-in
+    # hours of an unswitched block share the previous block's arm, so the variance adds the
+    # lag-1 products of consecutive blocks' scores (the design's joint exposures: Aronow &
+    # Samii 2017; Bojinov, Simchi-Levi & Zhao 2023).
     assert_covers_95(*switchback_coverage(14, burn_in_ticks, share, 3000, burn_in_ticks))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("share", [0.5, 0.3])
+@pytest.mark.parametrize("burn_in_ticks", [0, 6, 12, 18])
+def test_switchback_burn_in_is_not_short_under_the_null(share, burn_in_ticks):
+    # One-sided binomtest: coverage at least 95% at every burn-in (before the lag-1 products
+    # it was 92.0-93.3% at 12-18 h).
+    hits, total = switchback_coverage(14, burn_in_ticks, share, 3000, burn_in_ticks)
+    assert stats.binomtest(hits, total, 0.95, alternative="less").pvalue > 0.001, hits / total
 
 
 def test_hajek_cluster_few_clusters_quick():
