@@ -282,7 +282,7 @@ def _previous_dense_block_covariance(users_used, arm_users, scale):
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_block_moments_equal_the_dense_matrices(seed):
-    from spillgauge.estimators.switchback import _block_moments
+    from spillgauge.estimators._switchback_inference import block_moments as _block_moments
 
     rng = np.random.default_rng(seed)
     users_used = rng.integers(1, 6, (11, 1)) * (rng.random((11, 7)) < 0.8).astype(float)
@@ -318,3 +318,42 @@ def test_equal_blocks_match_statsmodels_cluster_robust_variance():
     assert est.point == pytest.approx(32 * fit.params[1], rel=1e-12)
     assert est.standard_error ** 2 == pytest.approx(32 ** 2 * fit.bse[1] ** 2 * 4 / 3, rel=1e-12)
 
+
+
+def test_imhof_probability_agrees_with_adaptive_quadrature():
+    # Imhof (1961)'s integral by scipy.integrate.quad (adaptive) versus the fixed nodes used
+    import math
+
+    from scipy import integrate
+
+    from spillgauge.estimators._switchback_inference import probability_not_positive
+
+    rng = np.random.default_rng(0)
+    for _ in range(50):
+        values = rng.normal(size=int(rng.integers(2, 30))) * rng.exponential(size=1) ** 2
+        values[0] = 1.0 + abs(values[0])
+        values = values / np.abs(values).max()
+        if (values > 0).all():
+            continue
+
+        def integrand(t, values=values):
+            return (math.sin(0.5 * np.sum(np.arctan(values * t)))
+                    / (t * math.exp(0.25 * np.sum(np.log1p((values * t) ** 2)))))
+
+        reference = 0.5 - integrate.quad(integrand, 1e-300, np.inf, limit=400)[0] / math.pi
+        assert probability_not_positive(values) == pytest.approx(reference, abs=1e-6)
+
+
+def test_working_model_df_of_equal_blocks_is_the_exact_t():
+    # Equal arms of 5 equal blocks each, no burn-in: under independent normal block effects
+    # the studentized difference is exactly t with B - 2 = 8 df (Student 1908; the two-sample
+    # t with equal variances and sizes, where Welch's and the pooled variance coincide).
+    # The control blocks repeat the treated ones in another order, so both arms have the
+    # same rate at every position and the working model gives both arms one variance.
+    arms = np.array([1, 0, 1, 1, 0, 0, 1, 0, 1, 0], bool)
+    treated_blocks = np.random.default_rng(2).poisson(9.0, size=(5, 3))
+    blocks = np.empty((10, 3), dtype=np.int64)
+    blocks[arms], blocks[~arms] = treated_blocks, treated_blocks[[3, 0, 4, 1, 2]]
+    series = blocks.ravel()
+    est = switchback_difference(_one_user_panel(series), _market_schedule(arms, 3))
+    assert est.degrees_of_freedom == pytest.approx(8.0, rel=1e-6)

@@ -17,7 +17,6 @@ from __future__ import annotations
 import numbers
 
 import numpy as np
-from scipy import sparse
 
 from spillgauge.estimators._inference import (
     build_estimate,
@@ -25,9 +24,19 @@ from spillgauge.estimators._inference import (
     check_over_time,
     degenerate_estimate,
 )
+from spillgauge.estimators._switchback_inference import (
+    adjacent_pairs,
+    block_moments,
+    dense_block_matrix,
+    working_model_df,
+)
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
+
+# up to this many blocks the interval's t reference is the studentized estimate's exact
+# distribution under the working model (dense (B, B) arrays); beyond it, Satterthwaite's
+EXACT_DF_BLOCKS = 400
 
 __all__ = [
     "switchback_difference",
@@ -201,7 +210,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     point = float(np.sum(count * np.nan_to_num(difference)))
     block_used = used.any(axis=2)
     n_blocks = int(block_used.sum())
-    variance, parts = 0.0, []
+    variance, parts, forms = 0.0, [], []
     for k, arm in enumerate((schedule.is_treated, ~schedule.is_treated)):
         blocks = block_used & arm
         n_arm = int(blocks.sum())
@@ -216,11 +225,11 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         early = (position < burn_in_ticks) & ~fallbacks[k]
         psi = residual.sum(axis=2)
         psi_early = residual[:, :, early].sum(axis=2)
-        first, second = _adjacent_pairs(blocks, chosen[:, :, early].any(axis=2))
+        first, second = adjacent_pairs(blocks, chosen[:, :, early].any(axis=2))
         users_block = np.where(chosen, weights, 0.0)[blocks]
-        expected, trace, trace_square = _block_moments(
-            users_block, totals[k], share * np.maximum(np.nan_to_num(rates[k]), 0.0), early,
-            first, second)
+        scale = share * np.maximum(np.nan_to_num(rates[k]), 0.0)
+        expected, trace, trace_square = block_moments(users_block, totals[k], scale, early,
+                                                      first, second)
         if not trace > 1e-12 * expected:
             return degenerate_estimate(method, "every position of an arm rests on a single "
                                        "block, so the block-level variance is undefined",
@@ -229,95 +238,18 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         psi, psi_early = psi[blocks], psi_early[blocks]
         variance += factor * float(np.sum(psi ** 2) + 2 * np.sum(psi[first] * psi_early[second]))
         parts.append((expected, factor ** 2 * trace_square))
+        if n_blocks <= EXACT_DF_BLOCKS:
+            loading, matrix = dense_block_matrix(users_block, totals[k], scale, early, first,
+                                                 second)
+            forms.append(((1.0 if k == 0 else -1.0) * loading, factor * matrix))
     if not variance > 0:
         return degenerate_estimate(method, "the block-level variance is not positive",
                                    n_units=n_blocks, point=point)
     df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
+    if forms:
+        df = working_model_df(forms, confidence, fallback=df)
     return build_estimate(point, variance, confidence=confidence, method=method,
                           n_units=n_blocks, df=df)
-
-
-def _adjacent_pairs(blocks: np.ndarray, has_early: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return the arm's pairs of consecutive blocks of a unit whose second uses burn-in hours.
-
-    ``blocks`` marks the arm's blocks, ``has_early`` the blocks used at a burn-in
-    position (both shape ``(n_units, n_periods)``). The result indexes the arm's
-    blocks in row-major order (``blocks`` boolean indexing): block ``first[i]``
-    directly precedes block ``second[i]`` of the same unit.
-    """
-    index = np.full(blocks.shape, -1, dtype=np.int64)
-    index[blocks] = np.arange(int(blocks.sum()))
-    pair = blocks[:, :-1] & blocks[:, 1:] & has_early[:, 1:]
-    return index[:, :-1][pair], index[:, 1:][pair]
-
-
-def _block_moments(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarray,
-                   early: np.ndarray, first: np.ndarray, second: np.ndarray
-                   ) -> tuple[float, float, float]:
-    """Return one arm's model variance and the first two moments of its variance estimate.
-
-    Parameters
-    ----------
-    users_used : ndarray, shape (B_a, L)
-        ``N_b`` where block ``b`` of the arm is used at position ``j``, else 0.
-    arm_users : ndarray, shape (L,)
-        ``W_aj``, the users of the blocks used at each position.
-    scale : ndarray, shape (L,)
-        ``s_j = lambda_j r_j``: a position's weight in the estimate
-        (``lambda_j = c_j / W_aj``) times the arm's orders per user-tick there.
-    early : ndarray of bool, shape (L,)
-        The burn-in positions, estimated from the blocks that did not switch.
-    first, second : ndarray of int, shape (n_pairs,)
-        Consecutive blocks of a unit (see :func:`_adjacent_pairs`).
-
-    Returns
-    -------
-    expected, trace, trace_square : float
-        ``v = sum_b a_b^2``, ``tr(G)`` and ``tr(G^2)`` (see Notes).
-
-    Notes
-    -----
-    Working model (Bell & McCaffrey 2002; Pustejovsky & Tipton 2018): the orders
-    of block ``b`` at position ``j`` are ``F_bj = N_b r_j u_b`` with independent block
-    effects ``u_b`` of variance 1, common to both arms (a day's market shock). The
-    arm's part of the estimate is then ``sum_b a_b u_b``, ``a_b = sum_j s_j N_bj``,
-    of variance ``v = sum a_b^2``, and the linearization is ``psi = Q u`` with
-    ``Q = D - X Y'``, ``D = diag(a)``, ``X = N s``, ``Y = N / W`` (rank ``L``).
-    ``Q_E`` is the same over the burn-in positions. The variance estimate is
-    ``psi' psi + 2 psi' P psi_E = u' G u`` with ``P`` the pairs of consecutive
-    blocks and ``G = Q'Q + Q'P Q_E + Q_E' P' Q``; ``G`` is a sparse matrix
-    (``O(B_a)`` entries) plus a product of ``(B_a, 2L + 2E)`` factors, so its
-    traces take ``O(B_a L^2)`` time and ``O(B_a L)`` memory, never a
-    ``(B_a, B_a)`` array. ``v / tr(G)`` makes the estimate unbiased under the
-    model; ``tr(G^2)`` gives its variance ``2 tr(G^2)`` under normal ``u``.
-    """
-    n_blocks = users_used.shape[0]
-    y = np.divide(users_used, arm_users, out=np.zeros_like(users_used), where=arm_users > 0)
-    x = users_used * scale
-    a = x.sum(axis=1)
-    x_early, y_early = x[:, early], y[:, early]
-    a_early = x_early.sum(axis=1)
-    # P' X and P X_E: row `second` of P'X is row `first` of X, and row `first` of P X_E
-    # is row `second` of X_E
-    px = np.zeros_like(x)
-    px[second] = x[first]
-    p_x_early = np.zeros_like(x_early)
-    p_x_early[first] = x_early[second]
-    cross = x.T @ p_x_early                                      # X' P X_E, (L, E)
-    left = np.hstack((-a[:, None] * x - a_early[:, None] * px + y @ (x.T @ x)
-                      + y_early @ cross.T,
-                      -a[:, None] * p_x_early + y @ cross, -y, -y_early))
-    right = np.hstack((y, y_early, a[:, None] * x + a_early[:, None] * px,
-                       a[:, None] * p_x_early))
-    pair_values = a[first] * a_early[second]
-    sparse_part = sparse.coo_array((pair_values, (first, second)),
-                                   shape=(n_blocks, n_blocks)).tocsr()
-    sparse_part = sparse_part + sparse_part.T + sparse.diags_array(a ** 2)
-    trace = float(np.sum(a ** 2) + np.sum(left * right))
-    small = right.T @ left
-    trace_square = float(np.sum(a ** 4) + 2 * np.sum(pair_values ** 2)
-                         + 2 * np.sum((sparse_part @ left) * right) + np.sum(small * small.T))
-    return float(np.sum(a ** 2)), trace, trace_square
 
 
 def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:
