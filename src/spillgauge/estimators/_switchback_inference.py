@@ -143,7 +143,7 @@ def probability_not_positive(eigenvalues: np.ndarray) -> float:
     scaled = values[None, :] * t[:, None]
     theta = 0.5 * np.arctan(scaled).sum(axis=1)
     log_rho = 0.25 * np.log1p(scaled ** 2).sum(axis=1)
-    total = float(np.sum(weight * np.sin(theta) / (t * np.exp(log_rho))))
+    total = float(np.sum(weight * np.sin(theta) * np.exp(-log_rho - np.log(t))))
     return min(max(0.5 - total / math.pi, 0.0), 1.0)
 
 
