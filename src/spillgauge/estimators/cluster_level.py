@@ -2,7 +2,7 @@
 
 The units are the schedule's assignment units (``schedule.unit_of_user``); a
 unit is treated when ``schedule.is_treated[:, 0]`` says so. Each user's outcome
-is ``panel.user_fulfilled()``. Because these designs often have few clusters,
+is ``panel.user_outcome()``. Because these designs often have few clusters,
 every variance here is the CR2 (Bell & McCaffrey 2002) one, per arm, and every
 interval uses Student's t with Bell and McCaffrey's Satterthwaite-type degrees
 of freedom (Imbens & Kolesar 2016; Pustejovsky & Tipton 2018): ``G - 2`` for
@@ -38,7 +38,7 @@ def _cluster_totals(panel: OutcomePanel, schedule: AssignmentSchedule
                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return each unit's outcome total, its number of users and whether it is treated."""
     n_units = schedule.n_units
-    totals = np.bincount(schedule.unit_of_user, weights=panel.user_fulfilled(),
+    totals = np.bincount(schedule.unit_of_user, weights=panel.user_outcome(),
                          minlength=n_units)
     sizes = np.bincount(schedule.unit_of_user, minlength=n_units)
     return totals, sizes, schedule.is_treated[:, 0].copy()
@@ -51,7 +51,7 @@ def hajek_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world (``panel.user_fulfilled()`` per user).
+        Outcomes of the world (``panel.user_outcome()`` per user).
     schedule : AssignmentSchedule
         A static schedule whose units (clusters, pools) are randomized.
     confidence : float, default 0.95
@@ -154,7 +154,7 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world (``panel.user_fulfilled()`` per user).
+        Outcomes of the world (``panel.user_outcome()`` per user).
     schedule : AssignmentSchedule
         A static schedule with ``randomization`` ``"complete"`` (``m`` of ``G``
         clusters treated, ``p = m / G``) or ``"bernoulli"`` (each cluster with

@@ -5,7 +5,7 @@ graph neighbourhood is treated, and in *full-control exposure* when every one is
 in control (Ugander, Karrer, Backstrom & Kleinberg 2013). ``schedule.exposure_units``
 is a sparse ``(n_users, n_units)`` matrix whose row ``i`` marks those clusters,
 ``S_i``; ``k_i = |S_i|`` is its number of non-zero entries. Outcomes are
-``panel.user_fulfilled()``. Horvitz-Thompson and Hajek estimators weight each
+``panel.user_outcome()``. Horvitz-Thompson and Hajek estimators weight each
 exposed user by its inverse exposure probability (Aronow & Samii 2017).
 """
 
@@ -192,7 +192,7 @@ def _prepare(panel: OutcomePanel, design: _ExposureDesign, method: str) -> tuple
                       "or full-control exposure and are left out of the estimand",
                       DegenerateEstimateWarning, stacklevel=3)
     e1, e0 = design.exposures()
-    return panel.user_fulfilled(), kept, (e1 & kept, e0 & kept), (pi1, pi0)
+    return panel.user_outcome(), kept, (e1 & kept, e0 & kept), (pi1, pi0)
 
 
 def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -202,7 +202,7 @@ def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule,
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world (``panel.user_fulfilled()`` per user).
+        Outcomes of the world (``panel.user_outcome()`` per user).
     schedule : AssignmentSchedule
         A static ``"bernoulli"`` or ``"complete"`` cluster schedule with
         ``exposure_units`` set.

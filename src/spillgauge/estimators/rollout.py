@@ -82,7 +82,7 @@ def difference_in_differences(panel: OutcomePanel, schedule: AssignmentSchedule,
     period = schedule.period_of_tick()
     n_units, n_periods = schedule.n_units, schedule.n_periods
     totals = np.zeros((n_units, n_periods))
-    np.add.at(totals.T, period, np.asarray(panel.pool_fulfilled, dtype=float)[:n_units].T)
+    np.add.at(totals.T, period, np.asarray(panel.pool_outcome, dtype=float)[:n_units].T)
     users = panel.users_per_pool()[:n_units].astype(float)
     keep = users > 0
     treated = schedule.is_treated[keep]
@@ -124,7 +124,7 @@ def _pool_period_rates(panel: OutcomePanel, schedule: AssignmentSchedule
     period = schedule.period_of_tick()
     n_units, n_periods = schedule.n_units, schedule.n_periods
     totals = np.zeros((n_units, n_periods))
-    np.add.at(totals.T, period, np.asarray(panel.pool_fulfilled, dtype=float)[:n_units].T)
+    np.add.at(totals.T, period, np.asarray(panel.pool_outcome, dtype=float)[:n_units].T)
     users = panel.users_per_pool()[:n_units].astype(float)
     keep = users > 0
     rates = totals[keep] / (users[keep][:, None] * lengths[None, :])

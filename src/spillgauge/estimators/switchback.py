@@ -70,7 +70,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     ----------
     panel : OutcomePanel
         Outcomes of the world; the unit-tick outcome is the sum of
-        ``panel.pool_fulfilled`` over the unit's pools divided by its users.
+        ``panel.pool_outcome`` over the unit's pools divided by its users.
     schedule : AssignmentSchedule
         A schedule over time blocks with ``unit_kind`` ``"market"`` (one unit, all
         users) or ``"pool"`` (unit ``u`` is pool ``u``, so
@@ -156,7 +156,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     """
     method = "switchback_difference"
     confidence = _check_inputs(panel, schedule, confidence, burn_in_ticks, method)
-    fulfilled = np.asarray(panel.pool_fulfilled, dtype=float)
+    fulfilled = np.asarray(panel.pool_outcome, dtype=float)
     if schedule.unit_kind == "market":
         unit_totals = fulfilled.sum(axis=0, keepdims=True)
         unit_users = np.array([panel.n_users], dtype=float)
