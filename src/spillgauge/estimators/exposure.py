@@ -25,6 +25,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -268,8 +269,13 @@ def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule,
         return degenerate_estimate(method, "no user can reach both exposures", n_units=0)
     point = float((np.sum(outcome[e1] / pi1[e1]) - np.sum(outcome[e0] / pi0[e0])) / n_kept)
     variance = _aronow_samii_variance(design, kept, (e1, e0), (outcome, outcome), (pi1, pi0))
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_kept)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_kept)
+    # the control mean's own variance: the same bound with the treated exposure's outcomes 0
+    return with_control_mean(estimate, float(np.sum(outcome[e0] / pi0[e0]) / n_kept),
+                             _aronow_samii_variance(design, kept, (e1, e0),
+                                                    (np.zeros_like(outcome), outcome),
+                                                    (pi1, pi0)))
 
 
 def hajek_exposure(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -333,5 +339,7 @@ def hajek_exposure(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     mean0 = np.sum(outcome[e0] / pi0[e0]) / np.sum(1.0 / pi0[e0])
     variance = _aronow_samii_variance(design, kept, (e1, e0), (outcome - mean1, outcome - mean0),
                                       (pi1, pi0))
-    return build_estimate(float(mean1 - mean0), variance, confidence=confidence, method=method,
-                          n_units=n_kept)
+    estimate = build_estimate(float(mean1 - mean0), variance, confidence=confidence,
+                              method=method, n_units=n_kept)
+    return with_control_mean(estimate, float(mean0), _aronow_samii_variance(
+        design, kept, (e1, e0), (np.zeros_like(outcome), outcome - mean0), (pi1, pi0)))

@@ -25,6 +25,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -226,8 +227,11 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         variance += factor * float(np.sum(psi ** 2))
         parts.append((factor * expected, factor ** 2 * spread))
     df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_blocks, df=df)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_blocks, df=df)
+    # the control blocks' rate per user over the horizon; its variance is the second arm's term
+    return with_control_mean(estimate, float(np.sum(count * np.nan_to_num(rates[1]))),
+                             factor * float(np.sum(psi ** 2)))
 
 
 def _block_correction(users_used: np.ndarray, arm_users: np.ndarray, share: np.ndarray,

@@ -18,6 +18,7 @@ from spillgauge.estimators._inference import (
     neyman_variance,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -43,8 +44,9 @@ def _neyman_difference(values: np.ndarray, is_treated: np.ndarray, *, confidence
     if treated.size < 2 or control.size < 2:
         return degenerate_estimate(method, "an arm has a single user, so its variance is "
                                    "undefined", n_units=n_users, point=point)
-    return build_estimate(point, neyman_variance(treated, control), confidence=confidence,
-                          method=method, n_units=n_users)
+    estimate = build_estimate(point, neyman_variance(treated, control), confidence=confidence,
+                              method=method, n_units=n_users)
+    return with_control_mean(estimate, control.mean(), np.var(control, ddof=1) / control.size)
 
 
 def difference_in_means(panel: OutcomePanel, schedule: AssignmentSchedule, *,
