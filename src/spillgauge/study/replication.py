@@ -138,7 +138,10 @@ class ReplicationResult:
             rows.append({"replication": self.replication, "label": label,
                          **{saved: record[saved] for saved, _ in _SAVED_FIELDS},
                          "gte": self.truth.gte,
-                         "truth": record.get("truth", self.truth.gte)})
+                         "truth": record.get("truth", self.truth.gte),
+                         **{k: record.get(k, float("nan")) for k in
+                            ("estimate_relative", "ci_low_relative", "ci_high_relative")},
+                         "gte_relative": self.truth.gte_relative})
         return rows
 
 
