@@ -5,7 +5,7 @@ from __future__ import annotations
 from spillgauge.statistics.trust import few_replications_note
 from spillgauge.formatting import format_cell, format_number, outcome_unit
 
-__all__ = ["market_text", "truth_text", "gte_sentence", "study_text", "study_markdown", "design_rows",
+__all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
            "interference_lines", "launch_rows", "not_randomized_lines"]
 
 _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
@@ -19,7 +19,7 @@ _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
             ("relative.coverage", "rel.cov", "{:.0%}")]
 
 
-def _cell(design: dict, key: str) -> object:
+def design_value(design: dict, key: str) -> object:
     """Return a design entry's value at ``key`` (``"relative.bias"`` reads a nested entry)."""
     head, _, rest = key.partition(".")
     value = design.get(head)
@@ -72,17 +72,19 @@ def market_text(scenario, market: dict) -> str:
     return "\n".join(lines)
 
 
-def truth_text(name: str, seed: int, truth) -> str:
-    """Describe the truth for ``spillgauge truth``."""
+def truth_text(name: str, seed: int, truth, outcome: str = "orders") -> str:
+    """Describe the truth for ``spillgauge truth`` (``outcome``: the scenario's study.outcome)."""
     t = truth
+    unit = outcome_unit({"scenario_settings": {"study": {"outcome": outcome}}})
     se = "n/a (one replication)" if t.gte_se != t.gte_se else f"{t.gte_se:.4f}"
-    rows = [("fulfilled orders / user", t.control_mean, t.treated_mean, "{:.4f}"),
+    rows = [("fulfilled orders / user", t.control_orders, t.treated_orders, "{:.4f}"),
             ("demanded orders / user", t.control_demanded, t.treated_demanded, "{:.4f}"),
             ("fill rate", t.control_fill_rate, t.treated_fill_rate, "{:.2%}"),
             ("lost-order share", t.control_lost_share, t.treated_lost_share, "{:.2%}")]
     lines = [f"scenario {name}: {t.reps} replications, seed {seed}", "",
-             f"GTE = {t.gte:.4f} fulfilled orders per user over the horizon "
-             f"(Monte Carlo SE {se})", "",
+             f"GTE = {t.gte:.4f} {unit} over the horizon (Monte Carlo SE {se}); "
+             f"{format_cell('{:+.2%}', t.gte_relative)} of the control mean "
+             f"{format_number(t.control_mean)}", "",
              f"{'':<26}{'all control':>14}{'all treated':>14}"]
     for label, c, tr, template in rows:
         lines.append(f"{label:<26}{format_cell(template, c):>14}{format_cell(template, tr):>14}")
@@ -100,7 +102,7 @@ def design_rows(summary: dict) -> list[list[str]]:
     rows = [[header for _, header, _ in _COLUMNS]]
     for design in summary["designs"]:
         if design.get("is_randomized", True):
-            rows.append([format_cell(template, _cell(design, key))
+            rows.append([format_cell(template, design_value(design, key))
                          for key, _, template in _COLUMNS])
     return rows
 

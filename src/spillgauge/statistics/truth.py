@@ -86,6 +86,8 @@ class TruthSummary:
     treated_lost_share: float
     gte_relative: float = float("nan")
     gte_relative_se: float = float("nan")
+    control_orders: float = float("nan")
+    treated_orders: float = float("nan")
 
     def to_dict(self) -> dict:
         """Return the fields as plain numbers."""
@@ -115,4 +117,5 @@ def summarise_truth(truths: list[ReplicationTruth]) -> TruthSummary:
                         treated_demanded=mean["treated_demanded"],
                         control_fill_rate=c_fill, treated_fill_rate=t_fill,
                         control_lost_share=1.0 - c_fill, treated_lost_share=1.0 - t_fill,
-                        gte_relative=mean["gte_relative"], gte_relative_se=relative_se)
+                        gte_relative=mean["gte_relative"], gte_relative_se=relative_se,
+                        control_orders=orders["control"], treated_orders=orders["treated"])

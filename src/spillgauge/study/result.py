@@ -17,6 +17,7 @@ import numpy as np
 from spillgauge.designs.registry import kind_of
 from spillgauge.estimators.relative import relative_effect
 from spillgauge.files import json_safe, nan_from_null
+from spillgauge.formatting import outcome_unit
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
 from spillgauge.statistics.launches import LaunchRow, not_randomizing_note
@@ -291,7 +292,9 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                                     n_units=float(np.nanmean(randomized)), metrics=d.metrics,
                                     params=d.params, failure_note=d.failure_note))
     if candidates:
-        advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
+        unit = outcome_unit({"scenario_settings": {"study": {"outcome": scenario.study.outcome}}})
+        advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha,
+                           unit="orders per user" if scenario.study.outcome == "orders" else unit)
     else:
         advice = Recommendation(label=None, reason="The scenario has no randomized design "
                                 "that can be recommended (only tests of interference or "
