@@ -217,8 +217,8 @@ def _versus_user(chosen, user, gte, unit) -> list[str]:
                  f"RMSE {format_number(u.rmse)} against {format_number(m.rmse)}.")
     elif u.mean_estimate != 0 and 0 < u.bias / u.mean_estimate <= 1:
         first = (f"{u.bias / u.mean_estimate:.0%} of the user-level estimate of "
-                 f"{format_number(u.mean_estimate)} is spillover: bias {format_number(u.bias, sign=True)} orders "
-                 f"per user on a GTE of {format_number(gte)} ({format_percent(u.relative_bias, sign=True)}), and its "
+                 f"{format_number(u.mean_estimate)} is spillover: bias {format_number(u.bias, sign=True)} "
+                 f"{unit} on a GTE of {format_number(gte)} ({format_percent(u.relative_bias, sign=True)}), and its "
                  f"CI covers the GTE in {u.coverage:.1%} of replications.")
     else:
         first = (f"The user-level estimate of {format_number(u.mean_estimate)} is off by "
