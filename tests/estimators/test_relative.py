@@ -91,10 +91,89 @@ def test_relative_interval_null_coverage_in_studies():
                              pools={"count": 30, "stock_cover": 50.0}, graph={"model": "none"},
                              effect={"lift": 0.0},
                              study={"reps": 400, "seed": 21, "outcome": "conversion"},
-                             design=[{"kind": "user"}, {"kind": "cluster", "clusters": "pools"}])
+                             design=[{"kind": "user"}, {"kind": "cluster", "clusters": "pools"},
+                                     {"kind": "switchback", "per": "pool", "block_hours": 12},
+                                     {"kind": "rollout", "waves": 2},
+                                     {"kind": "rollout", "waves": 2, "label": "rollout-twfe",
+                                      "estimator": "two_way_fixed_effects"}])
     study = run_study(scenario, workers=2)
     for label, design in study.designs.items():
         n = design.relative.n_reps
         covered = round(design.relative.coverage * n)
         print(label, "relative coverage", covered, "/", n)
         assert stats.binomtest(covered, n, 0.95).pvalue > 0.001, (label, covered, n)
+
+
+def _rollout(seed, n_pools=8, n_periods=4, ticks=6):
+    rng = np.random.default_rng(seed)
+    users = rng.integers(5, 15, n_pools)
+    pool_of_user = np.repeat(np.arange(n_pools), users)
+    switch = rng.permutation(np.repeat(np.arange(1, n_periods + 1), -(-n_pools // n_periods)))
+    is_treated = np.arange(n_periods)[None, :] >= switch[:n_pools, None]
+    n_ticks = n_periods * ticks
+    period = np.arange(n_ticks) // ticks
+    rate = rng.gamma(3.0, 0.1, pool_of_user.size)[:, None] * np.where(
+        is_treated[pool_of_user][:, period], 1.2, 1.0)
+    orders = rng.poisson(rate * np.ones((1, n_ticks)))
+    panel = OutcomePanel.from_arrays(fulfilled=orders, pool_of_user=pool_of_user)
+    schedule = AssignmentSchedule(unit_of_user=pool_of_user, is_treated=is_treated,
+                                  period_start_ticks=np.arange(n_periods) * ticks,
+                                  n_ticks=n_ticks, unit_kind="pool", randomization="complete")
+    return panel, schedule, users, period
+
+
+def test_two_way_fixed_effects_control_mean_is_statsmodels_contrast():
+    # Reference library: statsmodels WLS with cov_type="cluster" (groups = pools; its default
+    # small-sample factor G/(G-1) (N-1)/(N-K)) gives the coefficients and their covariance;
+    # the control mean is the weighted mean of the fitted a_p + g_k (a linear contrast c),
+    # so its variance is c'Vc and its covariance with tau is (Vc)_tau (Casella & Berger 2002,
+    # sec. 4.5, variance of linear combinations), all times the horizon squared.
+    import statsmodels.api as sm
+
+    from spillgauge.estimators import difference_in_differences
+
+    panel, schedule, users, period = _rollout(5)
+    est = difference_in_differences(panel, schedule)
+    n_pools, n_periods = schedule.is_treated.shape
+    totals = np.zeros((n_pools, n_periods))
+    np.add.at(totals.T, period, panel.pool_outcome.T.astype(float))
+    lengths = schedule.period_lengths().astype(float)
+    y = (totals / (users[:, None] * lengths[None, :])).ravel()
+    w = (users[:, None] * lengths[None, :]).ravel()
+    pool_index = np.repeat(np.arange(n_pools), n_periods)
+    x = np.hstack([np.eye(n_pools)[pool_index],
+                   np.eye(n_periods)[np.tile(np.arange(n_periods), n_pools)][:, 1:],
+                   schedule.is_treated.ravel()[:, None].astype(float)])
+    fit = sm.WLS(y, x, weights=w).fit(cov_type="cluster", cov_kwds={"groups": pool_index})
+    c = w @ x / w.sum()
+    c[-1] = 0.0
+    horizon = float(schedule.n_ticks)
+    v = fit.cov_params()
+    assert est.point == pytest.approx(fit.params[-1] * horizon, rel=1e-9)
+    assert est.control_mean == pytest.approx(c @ fit.params * horizon, rel=1e-9)
+    assert est.control_mean_se == pytest.approx(math.sqrt(c @ v @ c) * horizon, rel=1e-8)
+    assert est.control_covariance == pytest.approx((v @ c)[-1] * horizon ** 2, rel=1e-8)
+
+
+def test_staggered_relative_effect_is_the_hour_weighted_relative_effect():
+    # By its definition (Notes of staggered_difference_in_differences): the relative effect
+    # is sum_k L_k tau_k / sum_k L_k Ybar_off,k when every period after the baseline is
+    # identified and the baseline's hours get the same relative effect.
+    from spillgauge.estimators import staggered_difference_in_differences
+
+    panel, schedule, users, period = _rollout(6)
+    rel = relative_effect(staggered_difference_in_differences(panel, schedule))
+    totals = np.zeros(schedule.is_treated.shape)
+    np.add.at(totals.T, period, panel.pool_outcome.T.astype(float))
+    rates = totals / (users[:, None] * schedule.period_lengths()[None, :])
+    taus, levels = [], []
+    for k in range(1, rates.shape[1]):
+        on = schedule.is_treated[:, k]
+        if on.all() or not on.any():
+            continue
+        change = rates[:, k] - rates[:, 0]
+        taus.append(users[on] @ change[on] / users[on].sum()
+                    - users[~on] @ change[~on] / users[~on].sum())
+        levels.append(users[~on] @ rates[~on, k] / users[~on].sum())
+    assert rel.point == pytest.approx(np.sum(taus) / np.sum(levels), rel=1e-9)
+    assert math.isfinite(rel.standard_error) and rel.standard_error > 0
