@@ -6,7 +6,6 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
 
 from spillgauge import run_study
 from spillgauge.errors import ScenarioError
@@ -15,8 +14,8 @@ from spillgauge.study.replication import run_replication
 from tests.conftest import make_scenario
 
 # No interference: no graph, stock far above demand, no carryover, a flat calendar.
-_NO_INTERFERENCE = dict(calendar={"days": 7}, pools={"count": 4, "stock_cover": 50.0},
-                        graph={"model": "none"})
+_NO_INTERFERENCE = {"calendar": {"days": 7}, "pools": {"count": 4, "stock_cover": 50.0},
+                    "graph": {"model": "none"}}
 
 
 def _scenario(outcome="orders", users=None, effect=None, designs=None, **extra):
