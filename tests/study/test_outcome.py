@@ -150,3 +150,28 @@ def test_conversion_flows_sum_to_the_users_conversion():
         np.testing.assert_array_equal(panel.outcome_days.sum(axis=1), panel.outcome_total)
         assert np.all((panel.outcome_total == 1) == (panel.fulfilled_total > 0))
     assert result.truth.control_mean == panels[0].outcome_total.mean()
+
+
+@pytest.mark.parametrize("extra, command, needle", [
+    ('[study]\noutcome = "sales"\n', "check",
+     'study.outcome must be one of "orders", "conversion", "revenue"; got \'sales\''),
+    ("[users]\nbasket_value_sd = -2\n", "check", "users.basket_value_sd must be in [0, 1e9]; "
+                                                 "got -2"),
+    ('[study]\noutcome = "conversion"\n', "simulate", "study.outcome must be \"orders\" for "
+                                                      "simulate"),
+])
+def test_command_line_refuses_bad_outcome_input_in_one_line(tmp_path, extra, command, needle):
+    import subprocess
+    import sys
+
+    path = tmp_path / "s.toml"
+    path.write_text('name = "s"\n[calendar]\ndays = 2\n' + extra
+                    + '[[design]]\nkind = "user"\n')
+    args = [command, str(path)] + (["--design", "user", "--out", str(tmp_path / "x")]
+                                   if command == "simulate" else [])
+    result = subprocess.run([sys.executable, "-m", "spillgauge", *args], capture_output=True,
+                            text=True)
+    assert result.returncode == 2
+    assert "Traceback" not in result.stderr
+    assert len(result.stderr.strip().splitlines()) == 1
+    assert needle in result.stderr
