@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from spillgauge.statistics.trust import few_replications_note
-from spillgauge.formatting import format_cell, format_number, outcome_unit
+from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit
 
 __all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
            "interference_lines", "launch_rows", "not_randomized_lines"]
@@ -68,6 +68,13 @@ def market_text(scenario, market: dict) -> str:
     lines.append(f"clusters    {clusters}")
     lines.append("effect      lift {0.lift:+g}, peer lift {0.peer_lift:+g}, carryover half-life "
                  "{0.carryover_half_life_hours:g} h".format(scenario.effect))
+    if scenario.study.outcome != "orders":
+        users = scenario.users
+        basket = (f", basket value mean {users.basket_value_mean:g}, SD {users.basket_value_sd:g}"
+                  + (" (or the users file's basket_value)" if users.file else "")
+                  if scenario.study.outcome == "revenue" else "")
+        lines.append(f"outcome     {scenario.study.outcome}: "
+                     f"{OUTCOME_UNITS[scenario.study.outcome]}{basket}")
     lines.append("designs     " + ", ".join(d.label for d in scenario.designs))
     return "\n".join(lines)
 
