@@ -80,22 +80,33 @@ def test_relative_interval_covers_the_relative_effect(lift):
     assert stats.binomtest(covered, 600, 0.95).pvalue > 0.001, covered
 
 
+_NULL_DESIGNS = {
+    "none": [{"kind": "user"}, {"kind": "cluster", "clusters": "pools"},
+             {"kind": "switchback", "per": "pool", "block_hours": 12},
+             {"kind": "rollout", "waves": 2},
+             {"kind": "rollout", "waves": 2, "label": "rollout-twfe",
+              "estimator": "two_way_fixed_effects"}],
+    "small_world": [{"kind": "cluster", "clusters": "graph", "exposure": "neighbourhood",
+                     "label": "exposure-hajek"},
+                    {"kind": "cluster", "clusters": "graph", "exposure": "neighbourhood",
+                     "estimator": "horvitz_thompson", "label": "exposure-ht"},
+                    {"kind": "interference_test", "clusters": "graph"}]}
+
+
 @pytest.mark.slow
-def test_relative_interval_null_coverage_in_studies():
+@pytest.mark.parametrize("graph", sorted(_NULL_DESIGNS))
+def test_relative_interval_null_coverage_in_studies(graph):
     # Null calibration through the whole study (lift 0, no interference): each
     # replication's relative interval must cover the relative GTE (0) ~95% (binomtest).
     from spillgauge import run_study
     from tests.conftest import make_scenario
 
     scenario = make_scenario(calendar={"days": 3}, users={"count": 600},
-                             pools={"count": 30, "stock_cover": 50.0}, graph={"model": "none"},
+                             pools={"count": 30, "stock_cover": 50.0},
+                             graph={"model": graph, "mean_degree": 4},
                              effect={"lift": 0.0},
                              study={"reps": 400, "seed": 21, "outcome": "conversion"},
-                             design=[{"kind": "user"}, {"kind": "cluster", "clusters": "pools"},
-                                     {"kind": "switchback", "per": "pool", "block_hours": 12},
-                                     {"kind": "rollout", "waves": 2},
-                                     {"kind": "rollout", "waves": 2, "label": "rollout-twfe",
-                                      "estimator": "two_way_fixed_effects"}])
+                             design=_NULL_DESIGNS[graph])
     study = run_study(scenario, workers=2)
     for label, design in study.designs.items():
         n = design.relative.n_reps
