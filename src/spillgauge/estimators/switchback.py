@@ -31,6 +31,7 @@ from spillgauge.estimators._switchback_inference import (
     working_model_df,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -76,7 +77,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     ----------
     panel : OutcomePanel
         Outcomes of the world; the unit-tick outcome is the sum of
-        ``panel.pool_fulfilled`` over the unit's pools divided by its users.
+        ``panel.pool_outcome`` over the unit's pools divided by its users.
     schedule : AssignmentSchedule
         A schedule over time blocks with ``unit_kind`` ``"market"`` (one unit, all
         users) or ``"pool"`` (unit ``u`` is pool ``u``, so
@@ -162,7 +163,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     """
     method = "switchback_difference"
     confidence = _check_inputs(panel, schedule, confidence, burn_in_ticks, method)
-    fulfilled = np.asarray(panel.pool_fulfilled, dtype=float)
+    fulfilled = np.asarray(panel.pool_outcome, dtype=float)
     if schedule.unit_kind == "market":
         unit_totals = fulfilled.sum(axis=0, keepdims=True)
         unit_users = np.array([panel.n_users], dtype=float)
@@ -236,7 +237,8 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
                                        n_units=n_blocks, point=point)
         factor = expected / trace
         psi, psi_early = psi[blocks], psi_early[blocks]
-        variance += factor * float(np.sum(psi ** 2) + 2 * np.sum(psi[first] * psi_early[second]))
+        arm_term = factor * float(np.sum(psi ** 2) + 2 * np.sum(psi[first] * psi_early[second]))
+        variance += arm_term
         parts.append((expected, factor ** 2 * trace_square))
         if n_blocks <= EXACT_DF_BLOCKS:
             loading, matrix = dense_block_matrix(users_block, totals[k], scale, early, first,
@@ -248,8 +250,11 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
     if forms:
         df = working_model_df(forms, confidence, fallback=df)
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_blocks, df=df)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_blocks, df=df)
+    # the control blocks' rate per user over the horizon; its variance is the second arm's term
+    return with_control_mean(estimate, float(np.sum(count * np.nan_to_num(rates[1]))),
+                             arm_term)
 
 
 def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:
