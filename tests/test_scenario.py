@@ -133,7 +133,13 @@ def test_scenario_error_survives_pickling():
     assert (err.field, str(err)) == ("pools.count", "pools.count must be an int >= 1; got -3")
 
 
-def test_interference_test_needs_four_clusters():
+def test_interference_test_refuses_six_pools_naming_the_minimum():
+    with pytest.raises(ScenarioError, match=r"pools\.count must be >= 7 for a test of "
+                       r"interference .*2 pools per arm\); got 6"):
+        _parse(pools={"count": 6}, design=[{"kind": "interference_test"}])
+
+
+def test_interference_test_needs_seven_clusters():
     from spillgauge.study.run import run_study
 
     scenario = _parse(users={"count": 12}, pools={"count": 2}, calendar={"days": 2},

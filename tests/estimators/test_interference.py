@@ -65,5 +65,17 @@ def test_halves_and_shares_of_the_design():
     per_cluster = np.bincount(CLUSTERS, weights=treated) / SIZE
     assert set(np.unique(per_cluster[arm])) <= {0.0, 1.0}  # whole clusters
     assert treated[~in_cluster_arm].mean() == pytest.approx(0.5)  # users one by one
-    with pytest.raises(ValueError, match="at least 4 clusters"):
-        draw_interference_schedule(np.repeat(np.arange(3), 2), 1, rng=np.random.default_rng(0))
+    with pytest.raises(ValueError, match="at least 7 clusters"):
+        draw_interference_schedule(np.repeat(np.arange(6), 2), 1, rng=np.random.default_rng(0))
+
+
+def test_seven_clusters_give_a_test_in_every_draw():
+    # MIN_CLUSTERS = 7: the cluster half holds round(7 / 2) = 4 clusters, 2 per arm, so every
+    # draw has a variance and a p-value (with 6 clusters one arm of the half has 1 cluster in
+    # every draw, hence the refusal); worked by hand from draw_treated_units' rounding.
+    from tests.calibration.synthetic import interference_world
+
+    rng = np.random.default_rng(11)
+    for _ in range(50):
+        panel, schedule = interference_world(7, rng=rng)
+        assert 0.0 <= interference_test(panel, schedule).p_value <= 1.0

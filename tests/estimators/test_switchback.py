@@ -257,3 +257,103 @@ def test_single_block_per_arm_keeps_point_without_se():
         est = switchback_difference(_one_user_panel([3, 3, 1, 1]), _market_schedule([1, 0], 2))
     assert est.point == pytest.approx(4 * (3 - 1), abs=1e-12)  # by hand
     assert math.isnan(est.standard_error)
+
+
+def _dense_block_moments(users_used, arm_users, scale, early, first, second):
+    # the working model's matrices formed densely: Q = diag(a) - X Y', Q_E over the burn-in
+    # positions, P the pairs of consecutive blocks, G = Q'Q + Q'P Q_E + Q_E'P'Q
+    y = users_used / arm_users
+    x = users_used * scale
+    q = np.diag(x.sum(axis=1)) - x @ y.T
+    q_early = np.diag(x[:, early].sum(axis=1)) - x[:, early] @ y[:, early].T
+    pairs = np.zeros((users_used.shape[0],) * 2)
+    pairs[first, second] = 1.0
+    g = q.T @ q + q.T @ pairs @ q_early + q_early.T @ pairs.T @ q
+    return float(np.sum(x.sum(axis=1) ** 2)), float(np.trace(g)), float(np.sum(g * g))
+
+
+def _previous_dense_block_covariance(users_used, arm_users, scale):
+    # the block-effect part of the variance's previous code, which formed (B_a, B_a) arrays
+    inverse_users = np.divide(1.0, arm_users, out=np.zeros_like(arm_users), where=arm_users > 0)
+    q = np.diag((users_used * scale).sum(axis=1)) - (users_used * scale) @ (
+        users_used * inverse_users).T
+    return q @ q.T
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_block_moments_equal_the_dense_matrices(seed):
+    from spillgauge.estimators._switchback_inference import block_moments as _block_moments
+
+    rng = np.random.default_rng(seed)
+    users_used = rng.integers(1, 6, (11, 1)) * (rng.random((11, 7)) < 0.8).astype(float)
+    users_used[:, 0] = rng.integers(1, 6, 11)          # every position has a block
+    arm_users, scale = users_used.sum(axis=0), rng.random(7)
+    early = np.arange(7) < 3
+    first = np.array([0, 2, 3, 6, 9])
+    got = _block_moments(users_used, arm_users, scale, early, first, first + 1)
+    want = _dense_block_moments(users_used, arm_users, scale, early, first, first + 1)
+    assert got == pytest.approx(want, rel=1e-12)
+    # without pairs, G = Q'Q: the previous dense code's Q Q' has the same traces
+    none = np.zeros(0, dtype=np.int64)
+    _, trace, trace_square = _block_moments(users_used, arm_users, scale, early, none, none)
+    previous = _previous_dense_block_covariance(users_used, arm_users, scale)
+    assert trace == pytest.approx(np.trace(previous), rel=1e-12)
+    assert trace_square == pytest.approx(np.sum(previous ** 2), rel=1e-12)
+
+
+def test_equal_blocks_match_statsmodels_cluster_robust_variance():
+    # Without burn-in and with equal arms of equal blocks, the variance is each arm's
+    # B_a / (B_a - 1) times the CR0 cluster-robust variance of OLS of block means on the
+    # arm, clusters = blocks (statsmodels, cov_type="cluster", use_correction=False),
+    # on the horizon's scale (Bell & McCaffrey 2002: CR2 = per-arm factor when equal).
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(8)
+    arms = np.array([1, 0, 1, 1, 0, 0, 1, 0], bool)
+    series = rng.poisson(9.0, size=arms.size * 4)
+    est = switchback_difference(_one_user_panel(series), _market_schedule(arms, 4))
+    means = series.reshape(arms.size, 4).mean(axis=1)
+    fit = sm.OLS(means, sm.add_constant(arms.astype(float))).fit(
+        cov_type="cluster", cov_kwds={"groups": np.arange(arms.size), "use_correction": False})
+    assert est.point == pytest.approx(32 * fit.params[1], rel=1e-12)
+    assert est.standard_error ** 2 == pytest.approx(32 ** 2 * fit.bse[1] ** 2 * 4 / 3, rel=1e-12)
+
+
+
+def test_imhof_probability_agrees_with_adaptive_quadrature():
+    # Imhof (1961)'s integral by scipy.integrate.quad (adaptive) versus the fixed nodes used
+    import math
+
+    from scipy import integrate
+
+    from spillgauge.estimators._switchback_inference import probability_not_positive
+
+    rng = np.random.default_rng(0)
+    for _ in range(50):
+        values = rng.normal(size=int(rng.integers(2, 30))) * rng.exponential(size=1) ** 2
+        values[0] = 1.0 + abs(values[0])
+        values = values / np.abs(values).max()
+        if (values > 0).all():
+            continue
+
+        def integrand(t, values=values):
+            return (math.sin(0.5 * np.sum(np.arctan(values * t)))
+                    / (t * math.exp(0.25 * np.sum(np.log1p((values * t) ** 2)))))
+
+        reference = 0.5 - integrate.quad(integrand, 1e-300, np.inf, limit=400)[0] / math.pi
+        assert probability_not_positive(values) == pytest.approx(reference, abs=1e-6)
+
+
+def test_working_model_df_of_equal_blocks_is_the_exact_t():
+    # Equal arms of 5 equal blocks each, no burn-in: under independent normal block effects
+    # the studentized difference is exactly t with B - 2 = 8 df (Student 1908; the two-sample
+    # t with equal variances and sizes, where Welch's and the pooled variance coincide).
+    # The control blocks repeat the treated ones in another order, so both arms have the
+    # same rate at every position and the working model gives both arms one variance.
+    arms = np.array([1, 0, 1, 1, 0, 0, 1, 0, 1, 0], bool)
+    treated_blocks = np.random.default_rng(2).poisson(9.0, size=(5, 3))
+    blocks = np.empty((10, 3), dtype=np.int64)
+    blocks[arms], blocks[~arms] = treated_blocks, treated_blocks[[3, 0, 4, 1, 2]]
+    series = blocks.ravel()
+    est = switchback_difference(_one_user_panel(series), _market_schedule(arms, 3))
+    assert est.degrees_of_freedom == pytest.approx(8.0, rel=1e-6)

@@ -24,7 +24,12 @@ from spillgauge.seeding import check_rng
 
 __all__ = ["MIN_CLUSTERS", "InterferenceTestDesign", "draw_interference_schedule"]
 
-MIN_CLUSTERS = 4  # two per half
+# The cluster half holds round(G / 2) clusters and its variance needs two clusters in each arm
+# (MIN_CLUSTERS_PER_ARM); round(7 / 2) = 4 is the first half with 2 + 2. With 4-6 clusters an
+# arm of the cluster half has a single cluster in every draw, so no replication gives a test:
+# such a design is refused (the null of no interference is not sharp when effects differ
+# across clusters, so a Fisher randomization test over the split is not available either).
+MIN_CLUSTERS = 7
 
 
 def draw_interference_schedule(cluster_of_user: np.ndarray, n_ticks: int, *,
@@ -40,7 +45,7 @@ def draw_interference_schedule(cluster_of_user: np.ndarray, n_ticks: int, *,
     Parameters
     ----------
     cluster_of_user : ndarray of int, shape (n_users,)
-        Cluster labels ``0..n_clusters-1``; at least 4 clusters.
+        Cluster labels ``0..n_clusters-1``; at least :data:`MIN_CLUSTERS` (7) clusters.
     n_ticks : int
     share : float
         Share treated within each half.
@@ -54,10 +59,10 @@ def draw_interference_schedule(cluster_of_user: np.ndarray, n_ticks: int, *,
 
     Examples
     --------
-    >>> s = draw_interference_schedule(np.repeat(np.arange(4), 3), 24,
+    >>> s = draw_interference_schedule(np.repeat(np.arange(8), 3), 24,
     ...                                rng=np.random.default_rng(0))
     >>> int(s.is_cluster_arm.sum()), s.n_units
-    (2, 12)
+    (4, 24)
     """
     check_rng(rng)
     cluster_of_user = np.asarray(cluster_of_user, dtype=np.int64)
@@ -97,8 +102,8 @@ class InterferenceTestDesign(DesignKind):
     def check(self, spec: DesignSpec, scenario: Scenario) -> None:
         if spec.clusters == "pools":
             check(scenario.has_pools(MIN_CLUSTERS), "pools.count",
-                  f">= {MIN_CLUSTERS} for a test of interference on pools ({spec.at})",
-                  scenario.pools.count)
+                  f">= {MIN_CLUSTERS} for a test of interference on pools ({spec.at}; its "
+                  "cluster half needs 2 pools per arm)", scenario.pools.count)
         else:
             check_graph_clusters(spec, scenario, spec.clusters)
 
@@ -118,7 +123,8 @@ class InterferenceTestDesign(DesignKind):
         if n_clusters < MIN_CLUSTERS:
             raise ScenarioError(f"{spec.at}.clusters",
                                 f"a cluster source with at least {MIN_CLUSTERS} clusters for a "
-                                f"test of interference (this market has {n_clusters})",
+                                f"test of interference, whose cluster half needs 2 clusters per "
+                                f"arm (this market has {n_clusters})",
                                 spec.clusters)
         return labels
 

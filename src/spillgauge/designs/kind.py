@@ -129,7 +129,7 @@ class DesignKind:
     def analysis_clusters(self, spec: DesignSpec, scenario: Scenario) -> int:
         """Return how many clusters its analysis's CR2 variance sees (0: few enough to ignore).
 
-        The memory estimate counts that variance's dense per-arm Gram matrices.
+        The memory estimate counts that variance's per-cluster sums and block-tick arrays.
         """
         return 0
 

@@ -183,7 +183,11 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
     independent pool-period rates with variance ``1 / (N_p L_k)`` (Bell &
     McCaffrey 2002; Pustejovsky & Tipton 2018). Market-wide shocks cancel inside
     each period's comparison but move the effect from period to period; the
-    baseline's effect is extrapolated, so the variance adds
+    baseline's effect is extrapolated as the identified hours' relative effect
+    ``rho = sum_k L_k tau_k / sum_k L_k Ybar_off,k`` times the baseline's level, a ratio
+    of estimated levels: its delta-method terms enter ``psi_p`` (without them a strong
+    diurnal rhythm with 6 h periods covered 93.1%: the ratio's noise is largest when the
+    baseline sits at the rhythm's trough). The extrapolation's model error adds
     ``(L_0 Ybar_0)^2 (1 + 1/K) s^2`` with ``s^2`` the hour-weighted spread of the
     relative effects ``tau_k / Ybar_off,k`` beyond their sampling variance (``K``
     identified periods), with ``K - 1`` degrees of freedom.
@@ -252,6 +256,22 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
         psi_maps[0] -= r
         residual = residual_map @ change[:, k]
         period_variances.append(float(np.sum((weight * residual) ** 2)))
+    if missing_hours > 0 and control_orders > 0:
+        # the baseline's share of the point, M S / C (M = missing hours x baseline level,
+        # S = sum_k L_k tau_k, C = sum_k L_k Ybar_off,k), is a ratio of estimated levels: its
+        # delta-method terms rho dM - rho (M / C) dC (rho = S / C) enter theta and psi too
+        rho = float(used_lengths @ effects) / control_orders
+        overall = users / users.sum()
+        level_map = missing_hours * overall[:, None] * (np.eye(n_pools) - overall[None, :])
+        theta[:, 0] += rho * missing_hours * overall
+        psi_maps[0] += rho * level_map
+        ratio = rho * missing_hours * missing_level / control_orders
+        for (k, on, _), length in zip(maps, used_lengths):
+            off = ~on
+            share_off = np.where(off, users / users[off].sum(), 0.0)
+            theta[:, k] -= ratio * length * share_off
+            psi_maps[k] -= ratio * length * share_off[:, None] * (
+                off[:, None] * (np.eye(n_pools) - share_off[None, :]))
     psi = np.einsum("kpq,qk->p", psi_maps, rates)
     noise = 1.0 / (users[:, None] * lengths[None, :])          # working Var(y_pk)
     covariance = np.einsum("kpq,qk,krq->pr", psi_maps, noise, psi_maps)

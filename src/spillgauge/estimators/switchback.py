@@ -24,14 +24,20 @@ from spillgauge.estimators._inference import (
     check_over_time,
     degenerate_estimate,
 )
+from spillgauge.estimators._switchback_inference import (
+    adjacent_pairs,
+    block_moments,
+    dense_block_matrix,
+    working_model_df,
+)
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
-# working model of the block variance: share of a block-hour's variance shared by the whole
-# block (a day's market shock); calibrated on tests/calibration's switchback worlds
-BLOCK_SHARE = 1.0
+# up to this many blocks the interval's t reference is the studentized estimate's exact
+# distribution under the working model (dense (B, B) arrays); beyond it, Satterthwaite's
+EXACT_DF_BLOCKS = 400
 
 __all__ = [
     "switchback_difference",
@@ -179,11 +185,12 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     count = exists.sum(axis=0).astype(float)                           # c_j
     point = 0.0
     used = np.zeros(cell.shape, dtype=bool)
-    rates, totals = [], []
+    rates, totals, fallbacks = [], [], []
     for arm in (treated, ~treated):
         in_arm = cell & arm
         chosen = clean & arm
         fallback = ~chosen.any(axis=(0, 1))
+        fallbacks.append(fallback)
         chosen = chosen | (in_arm & fallback[None, None, :])
         users = (weights * chosen).sum(axis=(0, 1))
         orders = (values * chosen).sum(axis=(0, 1))
@@ -204,7 +211,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     point = float(np.sum(count * np.nan_to_num(difference)))
     block_used = used.any(axis=2)
     n_blocks = int(block_used.sum())
-    variance, parts = 0.0, []
+    variance, parts, forms = 0.0, [], []
     for k, arm in enumerate((schedule.is_treated, ~schedule.is_treated)):
         blocks = block_used & arm
         n_arm = int(blocks.sum())
@@ -215,85 +222,39 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         with np.errstate(invalid="ignore", divide="ignore"):
             share = np.where(totals[k] > 0, count / totals[k], 0.0)
         residual = np.where(chosen, values - np.nan_to_num(rates[k])[None, None, :] * weights,
-                            0.0)
-        psi = (residual * share[None, None, :]).sum(axis=2)[blocks]
+                            0.0) * share[None, None, :]
+        early = (position < burn_in_ticks) & ~fallbacks[k]
+        psi = residual.sum(axis=2)
+        psi_early = residual[:, :, early].sum(axis=2)
+        first, second = adjacent_pairs(blocks, chosen[:, :, early].any(axis=2))
         users_block = np.where(chosen, weights, 0.0)[blocks]
-        factor, expected, spread = _block_correction(
-            users_block, totals[k], share, np.nan_to_num(rates[k]))
-        if not expected > 0:
+        scale = share * np.maximum(np.nan_to_num(rates[k]), 0.0)
+        expected, trace, trace_square = block_moments(users_block, totals[k], scale, early,
+                                                      first, second)
+        if not trace > 1e-12 * expected:
             return degenerate_estimate(method, "every position of an arm rests on a single "
                                        "block, so the block-level variance is undefined",
                                        n_units=n_blocks, point=point)
-        variance += factor * float(np.sum(psi ** 2))
-        parts.append((factor * expected, factor ** 2 * spread))
+        factor = expected / trace
+        psi, psi_early = psi[blocks], psi_early[blocks]
+        arm_term = factor * float(np.sum(psi ** 2) + 2 * np.sum(psi[first] * psi_early[second]))
+        variance += arm_term
+        parts.append((expected, factor ** 2 * trace_square))
+        if n_blocks <= EXACT_DF_BLOCKS:
+            loading, matrix = dense_block_matrix(users_block, totals[k], scale, early, first,
+                                                 second)
+            forms.append(((1.0 if k == 0 else -1.0) * loading, factor * matrix))
+    if not variance > 0:
+        return degenerate_estimate(method, "the block-level variance is not positive",
+                                   n_units=n_blocks, point=point)
     df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
+    if forms:
+        df = working_model_df(forms, confidence, fallback=df)
     estimate = build_estimate(point, variance, confidence=confidence, method=method,
                               n_units=n_blocks, df=df)
     # the control blocks' rate per user over the horizon; its variance is the second arm's term
     return with_control_mean(estimate, float(np.sum(count * np.nan_to_num(rates[1]))),
-                             factor * float(np.sum(psi ** 2)))
-
-
-def _block_correction(users_used: np.ndarray, arm_users: np.ndarray, share: np.ndarray,
-                      rate: np.ndarray, *, block_share: float = BLOCK_SHARE
-                      ) -> tuple[float, float, float]:
-    """Return one arm's small-sample factor and the moments behind its degrees of freedom.
-
-    Parameters
-    ----------
-    users_used : ndarray, shape (B_a, L)
-        ``N_b`` where block ``b`` of the arm is used at position ``j``, else 0.
-    arm_users : ndarray, shape (L,)
-        ``W_aj``, the users of the blocks used at each position.
-    share : ndarray, shape (L,)
-        ``lambda_j = c_j / W_aj``, the weight of a position's orders in the estimate.
-    rate : ndarray, shape (L,)
-        The arm's orders per user-tick at each position, ``r_aj``.
-
-    Returns
-    -------
-    factor, trace, trace_square : float
-        ``kappa = v / tr(C)``, ``tr(C)`` and ``tr(C^2)`` (see Notes).
-
-    Notes
-    -----
-    Working model (Bell & McCaffrey 2002; Pustejovsky & Tipton 2018): the orders
-    ``F_bj`` of block ``b`` at position ``j`` are ``N_b r_j (u_b + e_bj)`` with a block
-    effect ``u_b`` shared by the block's hours (a day's market shock) and
-    independent hourly noise ``e_bj`` (Poisson-like, variance ``1 / (N_b r_j)``); the
-    two parts weigh ``block_share`` and ``1 - block_share`` of one block-hour's
-    variance. ``C`` is the covariance of the linearization ``psi_b`` under the model
-    and ``v`` the arm's true share of the estimate's variance, so
-    ``kappa = v / tr(C)`` makes ``sum psi_b^2`` unbiased for it. A burn-in
-    position rests only on the arm's blocks that did not switch: its residuals
-    are taken about a mean of few blocks, and ``kappa`` grows accordingly. With
-    every block used at every position and equal blocks, ``kappa = B_a / (B_a - 1)``.
-    Satterthwaite's degrees of freedom of ``sum_a kappa_a sum psi_b^2`` are
-    ``(sum_a kappa_a tr C_a)^2 / sum_a kappa_a^2 tr(C_a^2)`` (``B - 2`` for two
-    equal arms without burn-in).
-    """
-    scale = share * np.maximum(rate, 0.0)                               # lambda_j r_j
-    weight = np.divide(scale, arm_users, out=np.zeros_like(share), where=arm_users > 0)
-    # hourly noise: Var(F_bj) = N_b r_j, independent across cells
-    noise_cov = (np.diag((users_used * share * scale).sum(axis=1))
-                 - (users_used * share * weight) @ users_used.T)
-    noise_var = float(np.sum(share * scale * arm_users))
-    # block effect: F_bj = N_b r_j u_b; psi = Q u with Q = D - N (N w)' summed over positions
-    inverse_users = np.divide(1.0, arm_users, out=np.zeros_like(share), where=arm_users > 0)
-    q = np.diag((users_used * scale).sum(axis=1)) - (users_used * scale) @ (
-        users_used * inverse_users).T
-    block_cov = q @ q.T
-    loading = (users_used * scale).sum(axis=1)
-    block_var = float(loading @ loading)
-    noise_norm = noise_var if noise_var > 0 else 1.0
-    block_norm = block_var if block_var > 0 else 1.0
-    covariance = ((1 - block_share) * noise_cov / noise_norm
-                  + block_share * block_cov / block_norm)
-    target = (1 - block_share) * noise_var / noise_norm + block_share * block_var / block_norm
-    trace = float(np.trace(covariance))
-    if not trace > 1e-12 * target:
-        return np.nan, 0.0, 0.0
-    return target / trace, trace, float(np.sum(covariance ** 2))
+                             arm_term)
 
 
 def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:

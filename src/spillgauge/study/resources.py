@@ -23,7 +23,11 @@ _TRACED_POOLS = 4                # the first replication keeps per-tick traces o
 _BYTES_PER_TRACED_TICK = 3 * 8 + 28  # as 3 Python int lists (8-byte pointers; stock > 256)
 _BYTES_PER_REPLICATION = 4096    # a saved replication's truth and records, held to the end,
 _BYTES_PER_REPLICATION_DESIGN = 2048  # and one estimate per design
-_GRAM_ARRAYS = 4                 # live (G_a, G_a) float64 arrays in cr2_arm_difference
+_BYTES_PER_CLUSTER = 64           # CR2 sums over clusters: a few float64 per cluster
+# a switchback's variance: (units, periods, block ticks) arrays and its low-rank factors; measured
+# 110 bytes per unit-tick (benchmarks/switchback_variance_memory.py: 38 MiB for 4 pools x 3,650
+# days of 6 h blocks)
+_BYTES_PER_BLOCK_TICK = 160
 
 
 def _orders_per_week(scenario: Scenario) -> float:
@@ -73,7 +77,7 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
     ``needs_user_days``). ``n_worlds`` defaults to the two truth worlds plus one
     per design. The estimate errs high (it assumes the peak rate all day long).
     Each world's per-pool tick tables, the first replication's traces, a
-    switchback's CR2 Gram matrices and every replication's saved records count
+    switchback's block variance and every replication's saved records count
     too: they grow with the horizon and with ``study.reps``. Measured at 2,000
     users over 3,650 days (``benchmarks/_peak.py``): 35-45% high.
     ``market_only`` counts only building the market (``spillgauge check``, and
@@ -95,7 +99,7 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
         per_process += worlds * n_users * scenario.calendar.days * _BYTES_PER_USER_DAY_WORLD
     ticks = scenario.calendar.n_ticks
     per_process += worlds * scenario.pools.count * ticks * _BYTES_PER_POOL_TICK_WORLD
-    per_process += _gram_bytes(scenario)
+    per_process += _variance_bytes(scenario)
     # The parent holds every replication's records to the end, and the traces of the first.
     held = (scenario.study.reps * (_BYTES_PER_REPLICATION + len(scenario.designs)
                                    * _BYTES_PER_REPLICATION_DESIGN)
@@ -103,18 +107,22 @@ def estimate_memory_bytes(scenario: Scenario, *, n_worlds: int | None = None,
     return int(per_process * max(1, workers) + held)
 
 
-def _gram_bytes(scenario: Scenario) -> float:
-    """Return the CR2 variance's peak: dense Gram matrices of the larger arm's clusters.
+def _variance_bytes(scenario: Scenario) -> float:
+    """Return the analysis variance's peak: sums over clusters, a switchback's block-ticks.
 
-    With ``G`` clusters drawn Bernoulli(1/2) per arm, the larger arm rarely exceeds
-    ``G / 2 + sqrt(G)`` (two binomial SDs).
+    The CR2 variance of a cluster design takes a few floats per cluster; a switchback's
+    takes its (unit, block, tick) arrays and the low-rank factors of its working model,
+    at most one set per pool-tick (blocks x block ticks = units x ticks, units <= pools).
+    No dense (clusters x clusters) array is formed.
     """
     from spillgauge.designs.registry import kind_of
 
     largest = max((kind_of(spec).analysis_clusters(spec, scenario) for spec in scenario.designs),
                   default=0)
-    arm = largest / 2 + math.sqrt(largest)
-    return _GRAM_ARRAYS * 8 * arm ** 2
+    if not largest:
+        return 0.0
+    block_ticks = scenario.pools.count * scenario.calendar.n_ticks
+    return _BYTES_PER_CLUSTER * largest + _BYTES_PER_BLOCK_TICK * block_ticks
 
 
 def available_memory_bytes() -> int | None:
