@@ -34,6 +34,8 @@ from spillgauge.market.calendar import (
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
+from spillgauge.worlds.arrival_order import arrival_order
+from spillgauge.worlds.memory import keep_freed_memory
 from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
@@ -95,6 +97,7 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     (including the largest daily demand shock of the replication).
     """
     check_rng(rng)
+    keep_freed_memory()  # the next replication reuses this one's pages (worlds/memory.py)
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
@@ -126,7 +129,7 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
         return tick, segment_of_tick[tick], population.pool_of_user[user]
 
     tick, segment, pool = locate(user, hour)
-    order = np.argsort((segment * population.n_pools + pool).astype(float) + hour / horizon)
+    order = arrival_order(pool, hour, segment, population.n_pools)
     user, hour = user[order], hour[order]
     # Recomputing the small integer columns from the sorted events is cheaper than
     # permuting them.
