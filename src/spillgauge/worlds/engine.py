@@ -274,9 +274,11 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
     fulfilled = served if substituted is None else served | substituted
     pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of the pool tallies
-    pool_counts = _count_orders(pool_tick, accepted, fulfilled, n_pools * calendar.n_ticks)
-    user_counts = None if user_days else _count_orders(events.user, accepted, fulfilled,
-                                                       population.n_users)
+    tallies = [(pool_tick, n_pools * calendar.n_ticks)]
+    if not user_days:
+        tallies.append((events.user, population.n_users))
+    pool_counts, *rest = _count_orders(tallies, accepted, fulfilled)
+    user_counts = rest[0] if rest else None
     return [_panel(market, events, accepted[w], fulfilled[w],
                    None if substituted is None else substituted[w],
                    level_at_start[:, w, :], bounds, pool_tick=pool_tick,
@@ -301,26 +303,32 @@ def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
     level -= sold
 
 
-def _count_orders(index: np.ndarray, accepted: np.ndarray, fulfilled: np.ndarray,
-                  n_bins: int) -> tuple[np.ndarray, np.ndarray]:
+def _count_orders(tallies: list[tuple[np.ndarray, int]], accepted: np.ndarray,
+                  fulfilled: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
 
-    ``index`` gives each event's bin. Orders placed in every world are counted once;
-    a world adds its other placed orders, and its fulfilled orders are its placed
-    ones less its lost ones (fulfilled orders are placed orders), so each world
-    counts only the events where it differs from the rest or lost the sale.
+    ``tallies`` holds ``(index, n_bins)`` pairs, ``index`` giving each event's
+    bin; one pair of tables is returned per pair. Orders placed in every world
+    are counted once; a world adds its other placed orders, and its fulfilled
+    orders are its placed ones less its lost ones (fulfilled orders are placed
+    orders), so each world counts only the events where it differs from the rest
+    or lost the sale, found once for all the tallies.
     """
     n_worlds = accepted.shape[0]
-    placed = np.empty((n_worlds, n_bins), dtype=np.int64)
-    done = np.empty((n_worlds, n_bins), dtype=np.int64)
+    tables = [(np.empty((n_worlds, n_bins), dtype=np.int64),
+               np.empty((n_worlds, n_bins), dtype=np.int64)) for _, n_bins in tallies]
     if n_worlds == 0:
-        return placed, done
+        return tables
     everywhere = np.logical_and.reduce(accepted, axis=0)
-    common = np.bincount(index[everywhere], minlength=n_bins)
+    elsewhere = np.flatnonzero(~everywhere)  # the events some world does not place
+    common = [np.bincount(index[everywhere], minlength=n_bins) for index, n_bins in tallies]
     for w in range(n_worlds):
-        placed[w] = common + np.bincount(index[accepted[w] & ~everywhere], minlength=n_bins)
-        done[w] = placed[w] - np.bincount(index[accepted[w] & ~fulfilled[w]], minlength=n_bins)
-    return placed, done
+        extra = elsewhere[accepted[w, elsewhere]]
+        lost = np.flatnonzero(accepted[w] & ~fulfilled[w])
+        for (index, n_bins), (placed, done), base in zip(tallies, tables, common):
+            placed[w] = base + np.bincount(index[extra], minlength=n_bins)
+            done[w] = placed[w] - np.bincount(index[lost], minlength=n_bins)
+    return tables
 
 
 def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
