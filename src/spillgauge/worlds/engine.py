@@ -121,33 +121,42 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
 
     segment_of_tick = np.searchsorted(bounds, np.arange(calendar.n_ticks), side="right") - 1
 
-    def locate(user: np.ndarray, hour: np.ndarray):
+    def tick_of(hour: np.ndarray) -> np.ndarray:
         # Hours are >= 0, so truncation is the floor: with one-hour ticks ``hour // 1``.
-        whole = hour.astype(np.int64) if calendar.tick_hours == 1 else \
+        tick = hour.astype(np.int64) if calendar.tick_hours == 1 else \
             (hour // calendar.tick_hours).astype(np.int64)
-        tick = np.minimum(whole, calendar.n_ticks - 1)
-        return tick, segment_of_tick[tick], population.pool_of_user[user]
+        return np.minimum(tick, calendar.n_ticks - 1, out=tick)
 
-    tick, segment, pool = locate(user, hour)
-    order = arrival_order(pool, hour, segment, population.n_pools)
+    # Users are sorted by pool, so repeating their pools is cheaper than looking them up.
+    pool = np.repeat(population.pool_of_user, counts)
+    order = arrival_order(pool, hour, segment_of_tick[tick_of(hour)], population.n_pools)
+    del pool
     user, hour = user[order], hour[order]
+    del order
     # Recomputing the small integer columns from the sorted events is cheaper than
     # permuting them.
-    tick, segment, pool = locate(user, hour)
+    tick = tick_of(hour)
+    pool = population.pool_of_user[user]
     uniform = rng.random(user.size)
-    segment_starts = np.searchsorted(segment, np.arange(bounds.size))
+    segment_starts = np.searchsorted(segment_of_tick[tick], np.arange(bounds.size))
     substitute_uniform = substitute_pool = None
     if substitute:
         substitute_uniform = rng.random(user.size)
         shift = 1 + np.floor(rng.random(user.size) * (population.n_pools - 1)).astype(np.int64)
         substitute_pool = (pool + shift) % population.n_pools
     day = day_of_tick(calendar)[tick]
-    multiplier = shocks[day]
-    if pool_shocks is not None:
-        multiplier = multiplier * pool_shocks[pool, day]
     if trend != 0:
-        multiplier = multiplier * trend_multiplier(hour, trend)
-    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) * (multiplier / peak)
+        multiplier = shocks[day]
+        if pool_shocks is not None:
+            multiplier = multiplier * pool_shocks[pool, day]
+        multiplier = multiplier * trend_multiplier(hour, trend) / peak
+    elif pool_shocks is not None:  # the same products, each taken once per pool and day
+        multiplier = ((shocks[None, :] * pool_shocks) / peak)[pool, day]
+    else:
+        multiplier = (shocks / peak)[day]
+    whole_days = day if calendar.tick_hours == 1 else None  # then day = floor(hour / 24)
+    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude, day=whole_days)
+    base_accept *= multiplier
     return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
                            base_accept=base_accept, uniform=uniform,
                            segment_bounds=bounds, segment_starts=segment_starts,
