@@ -23,11 +23,39 @@ _MIN_EVENTS_PER_SORT = 1 << 15
 
 
 def _order_by_hour(hour: np.ndarray) -> np.ndarray:
-    """Return the permutation that sorts one pool's events by hour, equal hours by index."""
-    order = np.argsort(hour)
-    in_order = hour[order]
-    if np.any(in_order[1:] == in_order[:-1]):  # equal hours: their order must not be arbitrary
-        order = np.argsort(hour, kind="stable")
+    """Return the permutation that sorts one pool's events by hour, equal hours by index.
+
+    The sort is of one integer per event: the hour scaled to the bits the
+    event's index leaves free of 64, then the index. Hours that share their
+    scaled value (closer than about ``max(hour) / 2**(64 - bits of n)``) are put
+    in order by their exact hours afterwards, so the result is exact.
+    """
+    n = hour.size
+    if n < 2:
+        return np.arange(n)
+    index_bits = (n - 1).bit_length()
+    hour_bits = 64 - index_bits
+    top = float(hour.max())
+    scale = 2.0**hour_bits / top if top > 0 else np.inf
+    if not np.isfinite(scale):  # all hours 0, or too close to 0 to scale
+        return np.argsort(hour, kind="stable")
+    key = np.multiply(hour, scale).astype(np.uint64)  # monotone in the hour (rounding and truncation keep order)
+    np.minimum(key, np.uint64(2**hour_bits - 1), out=key)
+    key <<= np.uint64(index_bits)
+    key |= np.arange(n, dtype=np.uint64)
+    key.sort()
+    scaled = key >> np.uint64(index_bits)
+    key &= np.uint64(2**index_bits - 1)
+    order = key.view(np.int64)
+    tied = scaled[1:] == scaled[:-1]  # in index order so far; put them in exact order
+    if tied.any():
+        in_run = np.zeros(n, dtype=bool)
+        in_run[1:] |= tied
+        in_run[:-1] |= tied
+        at = np.flatnonzero(in_run)
+        run = np.cumsum(np.concatenate(([True], ~tied)))[at]
+        events = order[at]
+        order[at] = events[np.lexsort((events, hour[events], run))]
     return order
 
 
