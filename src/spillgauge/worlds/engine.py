@@ -34,6 +34,8 @@ from spillgauge.market.calendar import (
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
+from spillgauge.worlds.arrival_order import arrival_order
+from spillgauge.worlds.memory import keep_freed_memory
 from spillgauge.worlds.outcome import outcome_tables
 from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
@@ -96,6 +98,7 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
     (including the largest daily demand shock of the replication).
     """
     check_rng(rng)
+    keep_freed_memory()  # the next replication reuses this one's pages (worlds/memory.py)
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
@@ -119,33 +122,42 @@ def draw_candidates(market: Market, *, rng: np.random.Generator) -> CandidateEve
 
     segment_of_tick = np.searchsorted(bounds, np.arange(calendar.n_ticks), side="right") - 1
 
-    def locate(user: np.ndarray, hour: np.ndarray):
+    def tick_of(hour: np.ndarray) -> np.ndarray:
         # Hours are >= 0, so truncation is the floor: with one-hour ticks ``hour // 1``.
-        whole = hour.astype(np.int64) if calendar.tick_hours == 1 else \
+        tick = hour.astype(np.int64) if calendar.tick_hours == 1 else \
             (hour // calendar.tick_hours).astype(np.int64)
-        tick = np.minimum(whole, calendar.n_ticks - 1)
-        return tick, segment_of_tick[tick], population.pool_of_user[user]
+        return np.minimum(tick, calendar.n_ticks - 1, out=tick)
 
-    tick, segment, pool = locate(user, hour)
-    order = np.argsort((segment * population.n_pools + pool).astype(float) + hour / horizon)
+    # Users are sorted by pool, so repeating their pools is cheaper than looking them up.
+    pool = np.repeat(population.pool_of_user, counts)
+    order = arrival_order(pool, hour, segment_of_tick[tick_of(hour)], population.n_pools)
+    del pool
     user, hour = user[order], hour[order]
+    del order
     # Recomputing the small integer columns from the sorted events is cheaper than
     # permuting them.
-    tick, segment, pool = locate(user, hour)
+    tick = tick_of(hour)
+    pool = population.pool_of_user[user]
     uniform = rng.random(user.size)
-    segment_starts = np.searchsorted(segment, np.arange(bounds.size))
+    segment_starts = np.searchsorted(segment_of_tick[tick], np.arange(bounds.size))
     substitute_uniform = substitute_pool = None
     if substitute:
         substitute_uniform = rng.random(user.size)
         shift = 1 + np.floor(rng.random(user.size) * (population.n_pools - 1)).astype(np.int64)
         substitute_pool = (pool + shift) % population.n_pools
     day = day_of_tick(calendar)[tick]
-    multiplier = shocks[day]
-    if pool_shocks is not None:
-        multiplier = multiplier * pool_shocks[pool, day]
     if trend != 0:
-        multiplier = multiplier * trend_multiplier(hour, trend)
-    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude) * (multiplier / peak)
+        multiplier = shocks[day]
+        if pool_shocks is not None:
+            multiplier = multiplier * pool_shocks[pool, day]
+        multiplier = multiplier * trend_multiplier(hour, trend) / peak
+    elif pool_shocks is not None:  # the same products, each taken once per pool and day
+        multiplier = ((shocks[None, :] * pool_shocks) / peak)[pool, day]
+    else:
+        multiplier = (shocks / peak)[day]
+    whole_days = day if calendar.tick_hours == 1 else None  # then day = floor(hour / 24)
+    base_accept = diurnal_multiplier(hour, calendar.diurnal_amplitude, day=whole_days)
+    base_accept *= multiplier
     return CandidateEvents(user=user, pool=pool, tick=tick, day=day, hour=hour,
                            base_accept=base_accept, uniform=uniform,
                            segment_bounds=bounds, segment_starts=segment_starts,
@@ -272,9 +284,11 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
     fulfilled = served if substituted is None else served | substituted
     pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of the pool tallies
-    pool_counts = _count_orders(pool_tick, accepted, fulfilled, n_pools * calendar.n_ticks)
-    user_counts = None if user_days else _count_orders(events.user, accepted, fulfilled,
-                                                       population.n_users)
+    tallies = [(pool_tick, n_pools * calendar.n_ticks)]
+    if not user_days:
+        tallies.append((events.user, population.n_users))
+    pool_counts, *rest = _count_orders(tallies, accepted, fulfilled)
+    user_counts = rest[0] if rest else None
     return [_panel(market, events, accepted[w], fulfilled[w],
                    None if substituted is None else substituted[w],
                    level_at_start[:, w, :], bounds, pool_tick=pool_tick,
@@ -305,26 +319,32 @@ def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
     level -= sold
 
 
-def _count_orders(index: np.ndarray, accepted: np.ndarray, fulfilled: np.ndarray,
-                  n_bins: int) -> tuple[np.ndarray, np.ndarray]:
+def _count_orders(tallies: list[tuple[np.ndarray, int]], accepted: np.ndarray,
+                  fulfilled: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
 
-    ``index`` gives each event's bin. Orders placed in every world are counted once;
-    a world adds its other placed orders, and its fulfilled orders are its placed
-    ones less its lost ones (fulfilled orders are placed orders), so each world
-    counts only the events where it differs from the rest or lost the sale.
+    ``tallies`` holds ``(index, n_bins)`` pairs, ``index`` giving each event's
+    bin; one pair of tables is returned per pair. Orders placed in every world
+    are counted once; a world adds its other placed orders, and its fulfilled
+    orders are its placed ones less its lost ones (fulfilled orders are placed
+    orders), so each world counts only the events where it differs from the rest
+    or lost the sale, found once for all the tallies.
     """
     n_worlds = accepted.shape[0]
-    placed = np.empty((n_worlds, n_bins), dtype=np.int64)
-    done = np.empty((n_worlds, n_bins), dtype=np.int64)
+    tables = [(np.empty((n_worlds, n_bins), dtype=np.int64),
+               np.empty((n_worlds, n_bins), dtype=np.int64)) for _, n_bins in tallies]
     if n_worlds == 0:
-        return placed, done
+        return tables
     everywhere = np.logical_and.reduce(accepted, axis=0)
-    common = np.bincount(index[everywhere], minlength=n_bins)
+    elsewhere = np.flatnonzero(~everywhere)  # the events some world does not place
+    common = [np.bincount(index[everywhere], minlength=n_bins) for index, n_bins in tallies]
     for w in range(n_worlds):
-        placed[w] = common + np.bincount(index[accepted[w] & ~everywhere], minlength=n_bins)
-        done[w] = placed[w] - np.bincount(index[accepted[w] & ~fulfilled[w]], minlength=n_bins)
-    return placed, done
+        extra = elsewhere[accepted[w, elsewhere]]
+        lost = np.flatnonzero(accepted[w] & ~fulfilled[w])
+        for (index, n_bins), (placed, done), base in zip(tallies, tables, common):
+            placed[w] = base + np.bincount(index[extra], minlength=n_bins)
+            done[w] = placed[w] - np.bincount(index[lost], minlength=n_bins)
+    return tables
 
 
 def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,

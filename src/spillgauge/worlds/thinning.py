@@ -55,6 +55,10 @@ class LiveEvents:
         ``uniform < base_accept``: the events an untreated, unexposed user keeps.
     kept_treated : ndarray of bool, shape (n_live,)
         ``uniform < base_accept * (1 + lift)``: those a treated, unexposed user keeps.
+    differ : ndarray of int, shape (n_differ,)
+        The live events where ``kept_untreated`` and ``kept_treated`` differ: the
+        only ones where a world of doses 0 and 1 without peers has to look up
+        whether the event's user is treated.
     """
 
     user: np.ndarray
@@ -69,6 +73,7 @@ class LiveEvents:
     segment_starts: np.ndarray
     kept_untreated: np.ndarray
     kept_treated: np.ndarray
+    differ: np.ndarray
 
     @property
     def n_events(self) -> int:
@@ -97,8 +102,9 @@ def live_events(market: Market, events) -> LiveEvents:
         substitute_pool=events.substitute_pool[index] if substitute else None,
         segment_bounds=events.segment_bounds,
         segment_starts=np.searchsorted(index, events.segment_starts),
-        kept_untreated=uniform < base_accept,
-        kept_treated=uniform < base_accept * (1.0 + effect.lift))
+        kept_untreated=(untreated := uniform < base_accept),
+        kept_treated=(treated := uniform < base_accept * (1.0 + effect.lift)),
+        differ=np.flatnonzero(untreated != treated))
 
 
 def accepted_in_world(market: Market, live: LiveEvents, schedule: AssignmentSchedule
@@ -121,12 +127,16 @@ def accepted_in_world(market: Market, live: LiveEvents, schedule: AssignmentSche
         treated = dose == 1.0
         if treated.all():
             return live.kept_treated
+        differ = live.differ  # elsewhere both comparisons agree
+        user = live.user[differ]
         if treated.shape[1] == 1:
-            is_on = treated[:, 0][schedule.unit_of_user][live.user]
+            is_on = treated[:, 0][schedule.unit_of_user][user]
         else:
-            is_on = treated.ravel()[schedule.unit_of_user[live.user] * treated.shape[1]
-                                    + live.tick]
-        return np.where(is_on, live.kept_treated, live.kept_untreated)
+            is_on = treated.ravel()[schedule.unit_of_user[user] * treated.shape[1]
+                                    + live.tick[differ]]
+        accepted = live.kept_untreated.copy()
+        accepted[differ] = np.where(is_on, live.kept_treated[differ], live.kept_untreated[differ])
+        return accepted
     probability = live.base_accept * (1.0 + effect.lift * own_dose_of_events(
         dose, schedule.unit_of_user, live.user, live.tick))
     if _peer_counts(market):
