@@ -62,9 +62,12 @@ def _stratified_neyman(values: np.ndarray, is_treated: np.ndarray, strata: np.nd
                                    "variance is undefined", n_units=n_users, point=point)
     squares = np.bincount(group, weights=(values - mean.ravel()[group]) ** 2,
                           minlength=2 * n_strata).reshape(n_strata, 2)
-    variance = float(weight**2 @ (squares / (n - 1) / n).sum(axis=1))
+    parts = weight[:, None] ** 2 * squares / (n - 1) / n  # each (stratum, arm) cell's share
+    variance = float(parts.sum())
+    spread = float(np.sum(parts**2 / (n - 1)))
+    df = variance**2 / spread if spread > 0 else None  # Satterthwaite (1946), vectorized
     return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_users)
+                          n_units=n_users, df=df)
 
 
 def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
@@ -114,7 +117,12 @@ def stratified_difference_in_means(panel: OutcomePanel, schedule: AssignmentSche
     experiment, conservative when effects vary within strata (Imbens & Rubin
     2015, ch. 9; the same form is the post-stratification variance of
     Miratrix, Sekhon & Yu 2013, JRSS-B 75(2)). The interval is
-    ``point +/- z_{(1+confidence)/2} * se``.
+    ``point +/- t_{(1+confidence)/2, df} * se`` with Satterthwaite's degrees of
+    freedom of the sum of the cells' variance parts ``v_sa = w_s^2 s_sa^2 / n_sa``,
+    ``df = (sum v)^2 / sum (v_sa^2 / (n_sa - 1))`` (Satterthwaite 1946; Welch
+    1947): strata with few users per arm leave the variance estimate noisy, and
+    a normal critical value would under-cover (with many users per arm the t
+    quantile is the normal one).
 
     Examples
     --------

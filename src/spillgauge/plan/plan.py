@@ -17,7 +17,7 @@ from spillgauge.designs.registry import kind_of
 from spillgauge.errors import ScenarioError
 from spillgauge.files import dumps, json_safe, write_atomic
 from spillgauge.market.build import build_market
-from spillgauge.plan.answer import answer_cuped, answer_plan, answer_variants
+from spillgauge.plan.answer import answer_cuped, answer_plan, answer_strata, answer_variants
 from spillgauge.plan.replication import run_plan_replications
 from spillgauge.plan.summary import cuped_rows, plan_rows
 from spillgauge.scenario import Scenario
@@ -86,8 +86,10 @@ class PlanResult:
         share of the control mean; ``effective_n`` the users a user-level design
         would need for the same error variance).
     cuped : list of dict
-        Per duration: ``rho`` between pre-period and experiment orders and the
-        variance factor ``1 - rho^2`` of regression adjustment.
+        Per duration: ``rho`` between pre-period and experiment orders, the
+        variance factor ``1 - rho^2`` of regression adjustment, and the variance
+        share stratified randomization keeps (``strata_pre_period``,
+        ``strata_pools``).
     """
 
     scenario: Scenario
@@ -110,7 +112,8 @@ class PlanResult:
         text = answer_plan(self.rows, power=self.power, horizon_days=self.scenario.calendar.days)
         variants = answer_variants(self.rows)
         cuped = answer_cuped(self.rows, self.cuped, power=self.power, alpha=self.alpha)
-        return " ".join(part for part in (text, variants, cuped) if part)
+        strata = answer_strata(self.rows, self.cuped, power=self.power, alpha=self.alpha)
+        return " ".join(part for part in (text, variants, cuped, strata) if part)
 
     def plot_power(self, ax=None):
         """Draw each design's power by duration on ``ax`` (a new figure when omitted)."""

@@ -66,12 +66,15 @@ def _table(plan) -> str:
 
 
 def _cuped(plan) -> str:
-    if not any(c["variance_factor"] == c["variance_factor"] for c in plan.cuped):
-        return "<p>The scenario has no pre-period (users.history_days = 0).</p>"
-    rows = [[_e(c["days"]), _cell("{:.3f}", c["rho"]), _cell("{:.0%}", c["variance_factor"])]
+    note = ("" if any(c["variance_factor"] == c["variance_factor"] for c in plan.cuped) else
+            "<p>The scenario has no pre-period (users.history_days = 0).</p>")
+    rows = [[_e(c["days"]), _cell("{:.3f}", c["rho"]), _cell("{:.0%}", c["variance_factor"]),
+             _cell("{:.0%}", c.get("strata_pre_period", float("nan"))),
+             _cell("{:.0%}", c.get("strata_pools", float("nan")))]
             for c in plan.cuped]
-    return _grid(["days", "\u03c1 (pre-period, outcome)", "variance kept, 1 \u2212 \u03c1\u00b2"],
-                 rows, text_columns=0)
+    return note + _grid(["days", "\u03c1 (pre-period, outcome)",
+                         "CUPED keeps, 1 \u2212 \u03c1\u00b2", "strata on pre-period keep",
+                         "strata on pools keep"], rows, text_columns=0)
 
 
 def _figures(figures: list[str | Path]) -> str:
@@ -102,9 +105,13 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
                  "applied to each duration. Shaded: the design the recommendation rule picks "
                  "among those trusted and at the target power at that duration.</p>"
                  + _table(plan)),
-        _section("cuped", "Regression adjustment on the pre-period (CUPED)",
-                 "<p>CUPED keeps 1 \u2212 \u03c1\u00b2 of a user-level estimate's variance "
-                 "(Deng, Xu, Kohavi &amp; Walker 2013).</p>" + _cuped(plan)),
+        _section("cuped", "Regression adjustment (CUPED) and stratification",
+                 "<p>Share of a user-level estimate's variance each would keep. CUPED keeps "
+                 "1 \u2212 \u03c1\u00b2 (Deng, Xu, Kohavi &amp; Walker 2013); treating a fixed "
+                 "share within strata (<code>strata = \"pre_period\"</code>: groups of equal "
+                 "size by pre-period orders; <code>\"pools\"</code>: home stock pools) keeps "
+                 "about the within-stratum share of the outcome's variance (Cochran 1977; "
+                 "Imbens &amp; Rubin 2015, ch. 9).</p>" + _cuped(plan)),
         _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
     return ("<!DOCTYPE html>\n"
             '<html lang="en"><head><meta charset="utf-8">'
