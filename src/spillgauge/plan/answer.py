@@ -104,11 +104,11 @@ def _projected_reach(user: list[dict], factors: dict[int, float], *, power: floa
 
 
 def _measured_share(rows: list[dict], at: dict, wanted) -> str:
-    """Return "; LABEL measures X%" for the first design row matching ``wanted`` at ``at``'s days."""
+    """Return "LABEL measures X%" for the first design row matching ``wanted`` at ``at``'s days."""
     measured = [r for r in rows if r["kind"] == "user" and r["days"] == at["days"]
                 and wanted(r)]
     if measured and at["mean_se"] > 0 and math.isfinite(measured[0]["mean_se"]):
-        return (f"; {measured[0]['label']} measures "
+        return (f"{measured[0]['label']} measures "
                 f"{format_percent((measured[0]['mean_se'] / at['mean_se']) ** 2)}")
     return ""
 
@@ -134,7 +134,7 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
     lead = (f"Regression adjustment on the pre-period (CUPED) keeps "
             f"{format_percent(factor)} of the user-level variance at {at['days']} days "
             f"(1 - rho^2, rho = {format_number(math.sqrt(max(1 - factor, 0)))} between "
-            f"pre-period and experiment orders{seen})")
+            f"pre-period and experiment orders{'; ' + seen if seen else ''})")
     if not at["trusted"]:
         return (f"{lead}, but {label} is not trusted in this scenario ({at['why_not_trusted']}) "
                 f"and adjustment does not remove bias, so it does not shorten the test.")
@@ -165,15 +165,15 @@ def answer_strata(rows: list[dict], cuped: list[dict], *, power: float, alpha: f
     for source, factors in usable.items():
         seen = _measured_share(rows, at, lambda r, s=source: r.get("strata") == s
                                and not r.get("adjusted", False))
-        parts.append(f"{format_percent(factors[at['days']])} on {words[source]}{seen}")
+        parts.append(f"{format_percent(factors[at['days']])} with {words[source]}"
+                     + (f" ({seen})" if seen else ""))
     best = min(usable, key=lambda s: usable[s][at["days"]])
-    lead = (f"Stratified randomization of users keeps about "
-            f"{' and '.join(parts)} of the user-level variance at {at['days']} days "
-            f"(the within-stratum share)")
+    lead = (f"Stratified randomization of users would keep about the within-stratum share "
+            f"of the user-level variance at {at['days']} days: {' and '.join(parts)}")
     if not at["trusted"]:
         return (f"{lead}, but {user[0]['label']} is not trusted in this scenario and strata "
                 f"do not remove bias, so they do not shorten the test.")
-    return (f"{lead}: stratifying on {words[best]}, "
+    return (f"{lead}. Stratifying on {words[best]}, "
             f"{_projected_reach(user, usable[best], power=power, alpha=alpha)}")
 
 
