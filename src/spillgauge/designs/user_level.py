@@ -19,9 +19,10 @@ from spillgauge.scenario.keys import DesignKey, check
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["STRATA", "UserLevel", "draw_user_schedule", "market_strata", "merge_small_strata"]
+__all__ = ["PRE_PERIOD_STRATA", "STRATA", "UserLevel", "draw_user_schedule", "market_strata", "merge_small_strata"]
 
 STRATA = ("none", "pre_period", "pools")  # what a stratified user design blocks on
+PRE_PERIOD_STRATA = 4  # default number of pre-period order groups
 
 
 def merge_small_strata(strata: np.ndarray, share: float) -> np.ndarray:
@@ -123,7 +124,7 @@ class UserLevel(DesignKind):
                       "(groups of equal size by pre-period orders) or `\"pools\"` (home "
                       "stock pools); exactly round(share x users) of each stratum are "
                       "treated, analysed by the stratified difference in means"),
-        DesignKey(name="pre_period_strata", type=int, default=4, minimum=2, maximum=1000,
+        DesignKey(name="pre_period_strata", type=int, default=PRE_PERIOD_STRATA, minimum=2, maximum=1000,
                   doc="number of pre-period order groups (read only when strata = "
                       "\"pre_period\")"),
         *inference_keys(),
@@ -154,7 +155,7 @@ class UserLevel(DesignKind):
             label += "-strata-pools"
         elif spec.strata == "pre_period":
             label += "-strata-pre" + (str(spec.pre_period_strata)
-                                      if spec.pre_period_strata != 4 else "")
+                                      if spec.pre_period_strata != PRE_PERIOD_STRATA else "")
         return label
 
     def describe_unit(self, spec: DesignSpec) -> str:

@@ -88,7 +88,7 @@ def plan_rows(scenario: Scenario, results: list[PlanReplication], days: tuple[in
                 "trusted": verdict.is_trusted, "why_not_trusted": verdict.reason or "",
                 "recommendable": kind.is_recommendable, "is_user_level": kind.is_user_level,
                 "adjusted": bool(spec.params.get("adjust", False)),
-                "strata": str(spec.params.get("strata", "none")), "table": spec.index,
+                "strata": _strata_of(spec), "table": spec.index,
                 "chosen": False, "variant_chosen": False,
             })
             candidate = Candidate(label=spec.label, is_user_level=kind.is_user_level,
@@ -131,6 +131,17 @@ def plan_rows(scenario: Scenario, results: list[PlanReplication], days: tuple[in
 
 def _n_users(results: list[PlanReplication]) -> int:
     return int(results[0].n_users) if results else 0
+
+
+def _strata_of(spec) -> str:
+    """Return what a user design stratifies on as the plan projects it (``"none"``, ``"pools"``,
+    ``"pre_period"`` at the default number of groups, ``"pre_period/<groups>"`` otherwise)."""
+    from spillgauge.designs.user_level import PRE_PERIOD_STRATA
+
+    strata = str(spec.params.get("strata", "none"))
+    groups = spec.params.get("pre_period_strata", PRE_PERIOD_STRATA)
+    return f"{strata}/{groups}" if strata == "pre_period" and groups != PRE_PERIOD_STRATA \
+        else strata
 
 
 def cuped_rows(results: list[PlanReplication], days: tuple[int, ...]) -> list[dict]:
