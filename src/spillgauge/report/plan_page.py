@@ -6,11 +6,13 @@ holds and computes nothing.
 
 from __future__ import annotations
 
-import base64
 from pathlib import Path
 
 from spillgauge.formatting import format_cell
-from spillgauge.report.html import _STYLE, CAUTION, _e, _grid, _section
+from spillgauge.report.page import CAUTION, figure, render_page
+from spillgauge.report.page import escape as _e
+from spillgauge.report.page import grid as _grid
+from spillgauge.report.page import section as _section
 
 __all__ = ["render_plan_html", "PLAN_CAPTIONS"]
 
@@ -81,11 +83,8 @@ def _figures(figures: list[str | Path]) -> str:
     parts = []
     for path in figures:
         name = Path(path).stem
-        data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
-        title = _TITLES.get(name, name.replace("_", " "))
-        parts.append(f'<figure id="figure-{_e(name)}"><h3>{_e(title)}</h3>'
-                     f'<img alt="{_e(title)}" src="data:image/png;base64,{data}">'
-                     f"<figcaption>{_e(PLAN_CAPTIONS.get(name, ''))}</figcaption></figure>")
+        parts.append(figure(path, title=_TITLES.get(name, name.replace("_", " ")),
+                            caption=PLAN_CAPTIONS.get(name, "")))
     return _section("figures", "Figures", "".join(parts))
 
 
@@ -95,7 +94,6 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
     title = f"{name}: how long should it run?"
     days = ", ".join(str(d) for d in plan.days)
     sections = ("answer", "figures", "designs", "cuped", "caution")
-    nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in sections)
     body = "".join([
         _section("answer", "Answer", f'<p class="box verdict">{_e(plan.answer())}</p>'),
         _figures(figures),
@@ -113,11 +111,6 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
                  "about the within-stratum share of the outcome's variance (Cochran 1977; "
                  "Imbens &amp; Rubin 2015, ch. 9).</p>" + _cuped(plan)),
         _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
-    return ("<!DOCTYPE html>\n"
-            '<html lang="en"><head><meta charset="utf-8">'
-            '<meta name="viewport" content="width=device-width, initial-scale=1">'
-            f"<title>{_e(title)}</title><style>{_STYLE}</style></head><body>"
-            f'<header><h1>{_e(title)}</h1><p class="meta">spillgauge plan: {plan.reps:,} '
-            f"replications, seed {_e(plan.seed)}, durations {_e(days)} days (prefixes of the "
-            f"same worlds), target power {plan.power:.0%}</p><nav>{nav}</nav></header>"
-            f"<main>{body}</main></body></html>\n")
+    meta = (f"spillgauge plan: {plan.reps:,} replications, seed {_e(plan.seed)}, durations "
+            f"{_e(days)} days (prefixes of the same worlds), target power {plan.power:.0%}")
+    return render_page(title, meta, body, nav=sections)
