@@ -14,6 +14,7 @@ from spillgauge.console import (
     ProgressBar,
     fail,
     interrupted,
+    new_file_place,
     out_folder,
 )
 from spillgauge.errors import ScenarioError, SpillgaugeError
@@ -152,6 +153,7 @@ def _cmd_new(args) -> int:
     if not path.parent.is_dir():
         raise ScenarioError("NAME", f"a file in an existing folder (no folder {str(path.parent)!r})",
                             args.name)
+    new_file_place(path, allow_outside=args.allow_outside)
     if path.exists() and not args.force:
         raise ScenarioError("NAME", "a file that does not exist yet (use --force to overwrite)",
                             str(path))
@@ -374,6 +376,9 @@ def build_parser() -> argparse.ArgumentParser:
                        "to edit into a copy of your own market.")
     p.add_argument("name", metavar="NAME", help="scenario name (the file is NAME.toml)")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.add_argument("--allow-outside", action="store_true",
+                   help="write outside the current folder (never into a system folder such "
+                        "as /etc or /usr)")
     p.set_defaults(func=_cmd_new)
 
     p = sub.add_parser("assign", help="draw a design's randomization for your market",
