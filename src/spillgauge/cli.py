@@ -210,11 +210,17 @@ def _cmd_plan(args) -> int:
     out = out_folder(args.out, Path("results") / f"{scenario.name}-plan")
     bar = ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json,
                       forced=args.progress)
-    plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
-                      reps=args.reps, seed=args.seed, workers=args.workers, progress=bar)
-    written = write_plan(plan, out)
-    figures = save_plan_figures(plan, out)
-    write_atomic(out / "plan.html", render_plan_html(plan, figures))
+    with folder_lock(out):  # held until plan.html is written
+        try:
+            plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
+                              reps=args.reps, seed=args.seed, workers=args.workers,
+                              progress=bar, out=out, resume=args.resume)
+        except KeyboardInterrupt:
+            bar.close()
+            return interrupted(out)
+        written = write_plan(plan, out)
+        figures = save_plan_figures(plan, out)
+        write_atomic(out / "plan.html", render_plan_html(plan, figures))
     if args.json:
         print(dumps(plan.to_dict()))
         return 0
@@ -353,6 +359,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--alpha", type=float, metavar="A",
                    help="level of the tests (default: the scenario's study.alpha)")
     p.add_argument("--out", metavar="DIR", help="results folder (default results/<name>-plan)")
+    p.add_argument("--resume", action="store_true",
+                   help="continue an interrupted plan from the replications DIR holds")
     p.add_argument("--json", action="store_true", help="print plan.json to stdout")
     p.set_defaults(func=_cmd_plan)
 

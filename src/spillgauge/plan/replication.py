@@ -153,23 +153,32 @@ def _run_task(scenario: Scenario, seed: int, replication: int, days: tuple[int, 
 
 def run_plan_replications(scenario: Scenario, seed: int, reps: int, days: tuple[int, ...], *,
                           market: Market, workers: int | None = 1,
-                          progress: Callable[[int, int], None] | None = None
+                          progress: Callable[[int, int], None] | None = None,
+                          done: list[PlanReplication] | None = None,
+                          save: Callable[[PlanReplication], None] | None = None
                           ) -> list[PlanReplication]:
-    """Run ``reps`` replications serially or on local processes; return them in order."""
+    """Run ``reps`` replications serially or on local processes; return them in order.
+
+    ``done`` holds replications already finished (a resumed plan): only the
+    others run. ``save`` is called with each replication as it finishes.
+    """
     n_workers = default_workers() if workers is None else max(1, workers)
-    results: list[PlanReplication] = []
+    results: list[PlanReplication] = [r for r in (done or []) if r.replication < reps]
+    todo = sorted(set(range(reps)) - {r.replication for r in results})
 
     def finished(result: PlanReplication) -> None:
         results.append(result)
+        if save:
+            save(result)
         if progress:
             progress(len(results), reps)
 
     if progress:
-        progress(0, reps)
-    if n_workers == 1 or reps <= 1:
-        for r in range(reps):
+        progress(len(results), reps)
+    if n_workers == 1 or len(todo) <= 1:
+        for r in todo:
             finished(run_plan_replication(scenario, seed, r, days, market=market))
     else:
-        run_on_processes(_run_task, [(scenario, seed, r, days) for r in range(reps)],
+        run_on_processes(_run_task, [(scenario, seed, r, days) for r in todo],
                          workers=n_workers, finished=finished)
     return sorted(results, key=lambda r: r.replication)
