@@ -215,3 +215,12 @@ def test_new_writes_only_below_the_current_folder_unless_allowed(tmp_path, capsy
     assert code == 2 and "current folder" in err
     assert not (elsewhere / "target.toml").exists()
     assert _main(["new", "mine"], capsys)[0] == 0 and (here / "mine.toml").is_file()
+
+
+def test_an_unknown_sweep_key_is_one_short_line_with_a_suggestion(tiny, capsys):
+    # The whole list of numeric keys made a line of over 1,000 characters (found by the CLI
+    # fuzz, seed 11); the line names an example and the closest key instead.
+    code, err = _main(["sweep", tiny, "--vary", "="], capsys)
+    assert code == 2 and len(err.splitlines()) == 1 and len(err) < 300
+    code, err = _main(["sweep", tiny, "--vary", "pools.stock_covr=1,2"], capsys)
+    assert code == 2 and "did you mean pools.stock_cover?" in err
