@@ -14,7 +14,8 @@ def _candidates(rows: list[dict]) -> list[dict]:
     return [r for r in rows if r["recommendable"]]
 
 
-def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
+def answer_plan(rows: list[dict], *, power: float, horizon_days: int,
+                unit: str = "orders per user") -> str:
     """Return the shortest duration at which a trusted design reaches ``power``, in a sentence.
 
     Among the designs the recommendation may choose, a duration qualifies when a
@@ -44,7 +45,7 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
                     f"per user over {d} days) with power {format_percent(best['power'])} "
                     f"\u00b1 {format_percent(best['power_se'])} against the {power:.0%} "
                     f"target; its minimum detectable effect at {power:.0%} power is "
-                    f"{format_number(best['mde'])} orders per user "
+                    f"{format_number(best['mde'])} {unit} "
                     f"({format_percent(best['mde_relative'])} of the control mean).{note}")
     trusted = [r for r in rows if r["trusted"] and math.isfinite(r["mde"])]
     if not trusted:
@@ -58,7 +59,7 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
     return (f"No trusted design reaches {power:.0%} power {within}; the highest power of a "
             f"trusted design is {format_percent(most['power'])} ({most['label']} at "
             f"{most['days']} days). The smallest effect detectable at {power:.0%} power is "
-            f"{format_number(best['mde'])} orders per user "
+            f"{format_number(best['mde'])} {unit} "
             f"({format_percent(best['mde_relative'])} of the control mean) with "
             f"{best['label']} at {best['days']} days, against the scenario's effect of "
             f"{format_number(best['gte'])}.")
@@ -72,7 +73,7 @@ def _plain_user_rows(rows: list[dict]) -> list[dict]:
 
 
 def _projected_reach(user: list[dict], factors: dict[int, float], *, power: float,
-                     alpha: float) -> str:
+                     alpha: float, unit: str = "orders per user") -> str:
     """Return when the plain user design would reach ``power`` with its variance times ``factors``.
 
     Its standard error shrinks by ``sqrt(factor)`` at each duration and the power
@@ -100,7 +101,7 @@ def _projected_reach(user: list[dict], factors: dict[int, float], *, power: floa
     else:
         reach = f"{label} would not reach {power:.0%} power even with it"
     return (f"{reach}, and its minimum detectable effect at {at['days']} days would "
-            f"fall from {format_number(at['mde'])} to {format_number(mde)} orders per user.")
+            f"fall from {format_number(at['mde'])} to {format_number(mde)} {unit}.")
 
 
 def _measured_share(rows: list[dict], at: dict, wanted) -> str:
@@ -113,7 +114,8 @@ def _measured_share(rows: list[dict], at: dict, wanted) -> str:
     return ""
 
 
-def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: float) -> str:
+def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: float,
+                 unit: str = "orders per user") -> str:
     """Return how much regression adjustment on the pre-period would shorten the test.
 
     The projection keeps ``1 - rho^2`` of the plain user-level design's variance
@@ -138,10 +140,11 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
     if not at["trusted"]:
         return (f"{lead}, but {label} is not trusted in this scenario ({at['why_not_trusted']}) "
                 f"and adjustment does not remove bias, so it does not shorten the test.")
-    return f"{lead}: {_projected_reach(user, factors, power=power, alpha=alpha)}"
+    return f"{lead}: {_projected_reach(user, factors, power=power, alpha=alpha, unit=unit)}"
 
 
-def answer_strata(rows: list[dict], cuped: list[dict], *, power: float, alpha: float) -> str:
+def answer_strata(rows: list[dict], cuped: list[dict], *, power: float, alpha: float,
+                  unit: str = "orders per user") -> str:
     """Return how much stratified randomization would shorten the test, beside CUPED.
 
     A fixed share treated within strata (``strata = "pre_period"``: groups of equal
@@ -174,7 +177,7 @@ def answer_strata(rows: list[dict], cuped: list[dict], *, power: float, alpha: f
         return (f"{lead}, but {user[0]['label']} is not trusted in this scenario and strata "
                 f"do not remove bias, so they do not shorten the test.")
     return (f"{lead}. Stratifying on {words[best]}, "
-            f"{_projected_reach(user, usable[best], power=power, alpha=alpha)}")
+            f"{_projected_reach(user, usable[best], power=power, alpha=alpha, unit=unit)}")
 
 
 def answer_variants(rows: list[dict]) -> str:
