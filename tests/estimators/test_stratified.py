@@ -342,3 +342,44 @@ def test_market_strata_are_pre_period_order_groups_or_pools():
     pools = market_strata(market, scenario.designs[1])
     assert np.array_equal(np.unique(pools, return_inverse=True)[1],
                           np.unique(market.pool_of_user, return_inverse=True)[1])
+
+
+def test_relative_effect_is_the_delta_method_on_the_stratified_means_by_hand():
+    # The stratified control mean C = sum_s w_s mean_0s has Var(C) = sum_s w_s^2 s_0s^2/n_0s,
+    # and the effect D = sum_s w_s (mean_1s - mean_0s) has Cov(D, C) = -Var(C) (independent
+    # strata and arms). Delta method for R = D / C (Casella & Berger 2002, sec. 5.5.4):
+    # Var(R) = [Var(D) - 2 R Cov(D, C) + R^2 Var(C)] / C^2, written out here.
+    from spillgauge.estimators.relative import relative_effect
+
+    y, treated, strata, schedule = _fixed_data(seed=11)
+    est = stratified_difference_in_means(OutcomePanel.from_arrays(fulfilled=y), schedule)
+    w = np.bincount(strata) / y.size
+    c = sum(w[s] * y[(strata == s) & ~treated].mean() for s in range(w.size))
+    var_c = sum(w[s] ** 2 * y[(strata == s) & ~treated].var(ddof=1)
+                / y[(strata == s) & ~treated].size for s in range(w.size))
+    d, var_d = est.point, est.standard_error ** 2
+    r = d / c
+    rel = relative_effect(est)
+    assert rel.point == pytest.approx(r, rel=1e-12)
+    assert rel.standard_error == pytest.approx(
+        np.sqrt((var_d + 2 * r * var_c + r**2 * var_c) / c**2), rel=1e-10)
+
+
+@pytest.mark.parametrize("lift", [0.0, 0.3])
+def test_relative_interval_covers_the_relative_effect(lift):
+    # Coverage of the relative effect's interval within binomial error of 95%
+    # (scipy.stats.binomtest, level 0.001): a new sample of users each draw, Gamma-Poisson
+    # orders with stratum-dependent rates, the treated arm's rates times (1 + lift).
+    from spillgauge.estimators.relative import relative_effect
+
+    rng = np.random.default_rng(40 + int(lift * 10))
+    strata = np.repeat(np.arange(4), [60, 80, 100, 160])
+    covered = 0
+    for _ in range(600):
+        schedule = draw_user_schedule(strata.size, 1, share=0.5, strata=strata, rng=rng)
+        rates = rng.gamma(2.0, (1.0 + strata) / 2.0) * np.where(
+            schedule.user_is_treated(), 1 + lift, 1.0)
+        rel = relative_effect(stratified_difference_in_means(
+            OutcomePanel.from_arrays(fulfilled=rng.poisson(rates * 3.0)), schedule))
+        covered += rel.ci_low <= lift <= rel.ci_high
+    assert stats.binomtest(covered, 600, 0.95).pvalue > 0.001, covered

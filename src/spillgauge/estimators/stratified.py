@@ -17,6 +17,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -66,8 +67,11 @@ def _stratified_neyman(values: np.ndarray, is_treated: np.ndarray, strata: np.nd
     variance = float(parts.sum())
     spread = float(np.sum(parts**2 / (n - 1)))
     df = variance**2 / spread if spread > 0 else None  # Satterthwaite (1946), vectorized
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_users, df=df)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_users, df=df)
+    # the control mean sum_s w_s mean_0s, its variance sum_s w_s^2 s_0s^2 / n_0s, and
+    # Cov(effect, control mean) = -that variance (strata and arms are independent)
+    return with_control_mean(estimate, float(weight @ mean[:, 0]), float(parts[:, 0].sum()))
 
 
 def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
@@ -84,7 +88,8 @@ def stratified_difference_in_means(panel: OutcomePanel, schedule: AssignmentSche
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world; each user's outcome is ``panel.user_fulfilled()``.
+        Outcomes of the world; each user's outcome is ``panel.user_outcome()``
+        (fulfilled orders over the horizon unless the study names another outcome).
     schedule : AssignmentSchedule
         A static schedule; ``schedule.stratum_of_unit`` gives the strata (none:
         one stratum, and the result is :func:`difference_in_means`).
@@ -139,7 +144,7 @@ def stratified_difference_in_means(panel: OutcomePanel, schedule: AssignmentSche
     """
     method = "stratified_difference_in_means"
     confidence = _check_inputs(panel, schedule, confidence, method)
-    return _stratified_neyman(panel.user_fulfilled(), schedule.user_is_treated(),
+    return _stratified_neyman(panel.user_outcome(), schedule.user_is_treated(),
                               user_strata(schedule), confidence=confidence, method=method)
 
 
@@ -170,7 +175,7 @@ def stratified_regression_adjusted_difference(panel: OutcomePanel,
     """
     method = "stratified_regression_adjusted_difference"
     confidence = _check_inputs(panel, schedule, confidence, method)
-    outcome = panel.user_fulfilled()
+    outcome = panel.user_outcome()
     strata = user_strata(schedule)
     history = np.asarray(panel.history, dtype=float)
     if outcome.size:
