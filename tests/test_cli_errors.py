@@ -189,3 +189,38 @@ def test_graph_file_with_another_model_is_refused_by_name(tmp_path, capsys, mode
     code, err = _main(["check", path], capsys)
     assert code == 2 and len(err.splitlines()) == 1, err
     assert "graph.file must be left out" in err and repr(model) in err
+
+
+def test_new_writes_only_below_the_current_folder_unless_allowed(tmp_path, capsys,
+                                                                   monkeypatch):
+    # A file outside the current folder needs --allow-outside; a system folder is refused
+    # even then, and a link named NAME.toml counts where it points (common practice, no
+    # source: a tool run as root must not write into the operating system's folders).
+    here, elsewhere = tmp_path / "here", tmp_path / "elsewhere"
+    here.mkdir()
+    elsewhere.mkdir()
+    monkeypatch.chdir(here)
+    code, err = _main(["new", str(elsewhere / "x")], capsys)
+    assert code == 2 and "--allow-outside" in err and len(err.splitlines()) == 1
+    assert not any(elsewhere.iterdir())
+    code, err = _main(["new", "../elsewhere/x"], capsys)
+    assert code == 2 and "current folder" in err
+    assert _main(["new", str(elsewhere / "x"), "--allow-outside"], capsys)[0] == 0
+    assert (elsewhere / "x.toml").is_file()
+    for name in ("/etc/x", "/usr/local/x", "/var/lib/x"):
+        code, err = _main(["new", name, "--allow-outside", "--force"], capsys)
+        assert code == 2 and "system folder" in err, name
+    (here / "link.toml").symlink_to(elsewhere / "target.toml")
+    code, err = _main(["new", "link", "--force"], capsys)
+    assert code == 2 and "current folder" in err
+    assert not (elsewhere / "target.toml").exists()
+    assert _main(["new", "mine"], capsys)[0] == 0 and (here / "mine.toml").is_file()
+
+
+def test_an_unknown_sweep_key_is_one_short_line_with_a_suggestion(tiny, capsys):
+    # The whole list of numeric keys made a line of over 1,000 characters (found by the CLI
+    # fuzz, seed 11); the line names an example and the closest key instead.
+    code, err = _main(["sweep", tiny, "--vary", "="], capsys)
+    assert code == 2 and len(err.splitlines()) == 1 and len(err) < 300
+    code, err = _main(["sweep", tiny, "--vary", "pools.stock_covr=1,2"], capsys)
+    assert code == 2 and "did you mean pools.stock_cover?" in err

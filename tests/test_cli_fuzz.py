@@ -49,6 +49,10 @@ clusters = "pools"
 kind = "switchback"
 block_hours = 12
 burn_in_hours = 2
+[[design]]
+kind = "user"
+strata = "pre_period"
+pre_period_strata = 3
 """
 
 CSV_SCENARIO = """name = "fromcsv"

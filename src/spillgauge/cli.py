@@ -14,6 +14,7 @@ from spillgauge.console import (
     ProgressBar,
     fail,
     interrupted,
+    new_file_place,
     out_folder,
 )
 from spillgauge.errors import ScenarioError, SpillgaugeError
@@ -152,6 +153,7 @@ def _cmd_new(args) -> int:
     if not path.parent.is_dir():
         raise ScenarioError("NAME", f"a file in an existing folder (no folder {str(path.parent)!r})",
                             args.name)
+    new_file_place(path, allow_outside=args.allow_outside)
     if path.exists() and not args.force:
         raise ScenarioError("NAME", "a file that does not exist yet (use --force to overwrite)",
                             str(path))
@@ -208,11 +210,17 @@ def _cmd_plan(args) -> int:
     out = out_folder(args.out, Path("results") / f"{scenario.name}-plan")
     bar = ProgressBar(f"{scenario.name} plan", enabled=not args.quiet and not args.json,
                       forced=args.progress)
-    plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
-                      reps=args.reps, seed=args.seed, workers=args.workers, progress=bar)
-    written = write_plan(plan, out)
-    figures = save_plan_figures(plan, out)
-    write_atomic(out / "plan.html", render_plan_html(plan, figures))
+    with folder_lock(out):  # held until plan.html is written
+        try:
+            plan = plan_study(scenario, days=args.days, power=args.power, alpha=args.alpha,
+                              reps=args.reps, seed=args.seed, workers=args.workers,
+                              progress=bar, out=out, resume=args.resume)
+        except KeyboardInterrupt:
+            bar.close()
+            return interrupted(out)
+        written = write_plan(plan, out)
+        figures = save_plan_figures(plan, out)
+        write_atomic(out / "plan.html", render_plan_html(plan, figures))
     if args.json:
         print(dumps(plan.to_dict()))
         return 0
@@ -351,6 +359,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--alpha", type=float, metavar="A",
                    help="level of the tests (default: the scenario's study.alpha)")
     p.add_argument("--out", metavar="DIR", help="results folder (default results/<name>-plan)")
+    p.add_argument("--resume", action="store_true",
+                   help="continue an interrupted plan from the replications DIR holds")
     p.add_argument("--json", action="store_true", help="print plan.json to stdout")
     p.set_defaults(func=_cmd_plan)
 
@@ -374,6 +384,9 @@ def build_parser() -> argparse.ArgumentParser:
                        "to edit into a copy of your own market.")
     p.add_argument("name", metavar="NAME", help="scenario name (the file is NAME.toml)")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.add_argument("--allow-outside", action="store_true",
+                   help="write outside the current folder (never into a system folder such "
+                        "as /etc or /usr)")
     p.set_defaults(func=_cmd_new)
 
     p = sub.add_parser("assign", help="draw a design's randomization for your market",

@@ -15,7 +15,7 @@ from pathlib import Path
 from spillgauge.errors import ScenarioError
 
 __all__ = ["REPS", "SEED", "WORKERS", "whole_number", "ProgressBar", "out_folder",
-           "interrupted", "fail"]
+           "new_file_place", "interrupted", "fail"]
 
 _TICK = 0.2  # seconds between progress-bar redraws
 _SEED_LIMIT = 2**63  # study.seed's range, [0, 2**63)
@@ -83,6 +83,42 @@ def out_folder(given: str | None, default: Path) -> Path:
     if not os.access(out, os.W_OK | os.X_OK):
         raise ScenarioError(option, "a folder you can write to", str(out))
     return out
+
+
+# Folders of the operating system: `spillgauge new` never writes a file into them, even
+# when asked to write outside the current folder (/var/tmp is a scratch folder, allowed).
+SYSTEM_FOLDERS = ("/bin", "/boot", "/dev", "/etc", "/lib", "/lib32", "/lib64", "/libx32",
+                  "/proc", "/run", "/sbin", "/sys", "/usr", "/var")
+_SCRATCH = ("/var/tmp",)
+
+
+def _is_within(path: Path, folder: str | Path) -> bool:
+    return path == Path(folder) or Path(folder) in path.parents
+
+
+def new_file_place(path: Path, *, allow_outside: bool) -> Path:
+    """Return where ``spillgauge new`` may write ``path``, refusing by name where it may not.
+
+    The file, with ``..`` and symbolic links resolved (a link named NAME.toml
+    counts where it points), must lie in the current folder or below it, unless
+    ``allow_outside``; and never in a folder of the operating system
+    (:data:`SYSTEM_FOLDERS`), which a command run as root could otherwise
+    overwrite.
+
+    >>> new_file_place(Path("/etc/x.toml"), allow_outside=True)
+    Traceback (most recent call last):
+    ...
+    spillgauge.errors.ScenarioError: NAME must be a file outside the system folder /etc; got '/etc/x.toml'
+    """
+    target = (Path.cwd() / path).resolve()
+    for folder in SYSTEM_FOLDERS:
+        if _is_within(target, folder) and not any(_is_within(target, s) for s in _SCRATCH):
+            raise ScenarioError("NAME", f"a file outside the system folder {folder}",
+                                str(target))
+    if not allow_outside and not _is_within(target, Path.cwd().resolve()):
+        raise ScenarioError("NAME", "a file in the current folder or below it (give "
+                            "--allow-outside to write elsewhere)", str(target))
+    return path
 
 
 def interrupted(out: Path | None) -> int:

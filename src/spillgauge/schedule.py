@@ -64,6 +64,10 @@ class AssignmentSchedule:
     exposure_units : scipy.sparse.csr_array of shape (n_users, n_units), optional
         For exposure-mapping estimators: entry ``(i, u)`` is non-zero when unit
         ``u`` holds a member of user ``i``'s closed graph neighbourhood.
+    stratum_of_unit : ndarray of int, shape (n_units,), optional
+        For stratified (blocked) randomization: each unit's stratum, in
+        ``[0, n_strata)``; a fixed share was treated within every stratum, and
+        re-draws of the assignment permute units within their stratum.
 
     Examples
     --------
@@ -84,6 +88,7 @@ class AssignmentSchedule:
     exposure_units: sparse.csr_array | None = None
     cluster_of_user: np.ndarray | None = None
     is_cluster_arm: np.ndarray | None = None
+    stratum_of_unit: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         unit_of_user = np.asarray(self.unit_of_user, dtype=np.int64)
@@ -104,6 +109,11 @@ class AssignmentSchedule:
                              f"got {self.randomization!r}")
         if self.unit_kind not in UNIT_KINDS:
             raise ValueError(f"unit_kind must be one of {UNIT_KINDS}; got {self.unit_kind!r}")
+        if self.stratum_of_unit is not None:
+            strata = np.asarray(self.stratum_of_unit, dtype=np.int64)
+            if strata.shape != (is_treated.shape[0],) or (strata.size and strata.min() < 0):
+                raise ValueError("stratum_of_unit must hold one stratum >= 0 per unit")
+            object.__setattr__(self, "stratum_of_unit", read_only_view(strata))
         for name, value in (("unit_of_user", unit_of_user), ("is_treated", is_treated),
                             ("period_start_ticks", starts)):
             object.__setattr__(self, name, read_only_view(value))

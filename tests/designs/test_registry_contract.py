@@ -26,6 +26,8 @@ from tests.conftest import make_scenario
 VARIANTS = [{"kind": name} for name in KINDS] + [
     {"kind": "user", "randomization": "bernoulli", "share": 0.3},
     {"kind": "user", "adjust": True},
+    {"kind": "user", "strata": "pools", "share": 0.3},
+    {"kind": "user", "strata": "pre_period", "adjust": True, "pre_period_strata": 3},
     {"kind": "cluster", "clusters": "graph"},
     {"kind": "cluster", "clusters": "pools+graph", "estimator": "horvitz_thompson"},
     {"kind": "cluster", "exposure": "neighbourhood"},
@@ -44,6 +46,7 @@ VARIANTS = [{"kind": name} for name in KINDS] + [
      "permutations": 19},
     {"kind": "switchback", "per": "pool", "block_hours": 12, "burn_in_hours": 3,
      "inference": "randomization", "permutations": 19},
+    {"kind": "user", "strata": "pools", "inference": "randomization", "permutations": 19},
 ]
 
 

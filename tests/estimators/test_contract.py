@@ -42,6 +42,17 @@ def _user_world(rng: np.random.Generator, n_users: int = 40):
     return panel, schedule
 
 
+def _stratified_user_world(rng: np.random.Generator, n_users: int = 40):
+    from spillgauge.designs.user_level import draw_user_schedule
+
+    strata = np.arange(n_users) % 4
+    schedule = draw_user_schedule(n_users, 3, share=0.5, strata=strata, rng=rng)
+    history = rng.poisson(5.0, n_users).astype(float)
+    fulfilled = rng.poisson(2.0 + strata[:, None] + schedule.user_is_treated()[:, None],
+                            (n_users, 3))
+    return OutcomePanel.from_arrays(fulfilled=fulfilled, history=history), schedule
+
+
 def _cluster_world(rng: np.random.Generator, n_users: int = 40, *, with_exposure: bool = False,
                    randomization: str = "complete"):
     n_clusters = 8
@@ -105,6 +116,10 @@ def _launch_world(rng: np.random.Generator, n_users: int = 48):
 CASES = {
     "difference_in_means": (estimators.difference_in_means, _user_world),
     "regression_adjusted_difference": (estimators.regression_adjusted_difference, _user_world),
+    "stratified_difference_in_means": (estimators.stratified_difference_in_means,
+                                       _stratified_user_world),
+    "stratified_regression_adjusted_difference": (
+        estimators.stratified_regression_adjusted_difference, _stratified_user_world),
     "hajek_cluster": (estimators.hajek_cluster, _cluster_world),
     "horvitz_thompson_cluster": (estimators.horvitz_thompson_cluster, _cluster_world),
     "horvitz_thompson_exposure": (estimators.horvitz_thompson_exposure, _exposure_world),

@@ -19,6 +19,8 @@ DESIGNS = [
     {"kind": "interference_test", "clusters": "pools"},
     {"kind": "rollout", "waves": 2},
     {"kind": "switchback_minimax", "per": "pool"},
+    {"kind": "user", "strata": "pools"},
+    {"kind": "user", "strata": "pre_period", "adjust": True},
 ]
 
 

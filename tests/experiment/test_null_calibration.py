@@ -13,7 +13,8 @@ N_SEEDS = 200
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("label", ["user", "cluster-pools", "switchback-24h"])
+@pytest.mark.parametrize("label", ["user", "cluster-pools", "switchback-24h",
+                                   "user-strata-pools", "user-cuped-strata-pre"])
 def test_intervals_from_files_cover_a_null_effect(tmp_path, label):
     # No lift, no peer effect, no carryover: the GTE is exactly 0 in every replication, so each
     # design's 95% interval should cover 0 in 95% of experiments (binomial test, 1e-3 level;
@@ -22,7 +23,9 @@ def test_intervals_from_files_cover_a_null_effect(tmp_path, label):
         name="null_market", calendar={"days": 16, "tick_hours": 4},
         users={"count": 400, "orders_per_week": 3.0}, pools={"count": 20, "stock_cover": 3.0},
         effect={"lift": 0.0}, design=[{"kind": "user"}, {"kind": "cluster"},
-                                      {"kind": "switchback", "block_hours": 24}])
+                                      {"kind": "switchback", "block_hours": 24},
+                                      {"kind": "user", "strata": "pools"},
+                                      {"kind": "user", "strata": "pre_period", "adjust": True}])
     covered = usable = 0
     for seed in range(N_SEEDS):
         out = tmp_path / str(seed)

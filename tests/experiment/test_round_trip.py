@@ -12,7 +12,7 @@ from spillgauge.experiment.simulate import write_experiment
 from spillgauge.market.build import build_market
 from spillgauge.seeding import ASSIGNMENT, design_key, stream
 from spillgauge.study.replication import run_replication
-from tests.experiment.conftest import same_estimate
+from tests.experiment.conftest import DESIGNS, same_estimate
 
 SEED = 23
 
@@ -36,7 +36,7 @@ def test_a_launch_is_not_assigned(scenario):
         assign_design(scenario, make_design_spec("opt_in", selection_on="rate"), seed=SEED)
 
 
-@pytest.mark.parametrize("index", range(10))
+@pytest.mark.parametrize("index", range(len(DESIGNS)))
 def test_simulate_then_analyze_equals_the_study_replication(scenario, replication, tmp_path,
                                                             index):
     # The study's code (run_replication: every design's world at once) is the reference.
@@ -67,7 +67,7 @@ def test_analyze_reads_user_rows_with_hours_for_a_switchback(scenario, replicati
     assert same_estimate(analysis.estimate, replication.runs[spec.label].estimate)
 
 
-@pytest.mark.parametrize("index", range(10))
+@pytest.mark.parametrize("index", range(len(DESIGNS)))
 def test_assignment_is_the_kinds_own_draw_and_reads_back_identical(scenario, tmp_path, index):
     spec = scenario.designs[index]
     market = build_market(scenario, SEED)
@@ -84,7 +84,7 @@ def test_assignment_is_the_kinds_own_draw_and_reads_back_identical(scenario, tmp
         assert (schedule.unit_kind, schedule.randomization, schedule.n_ticks) == \
             (drawn.unit_kind, drawn.randomization, drawn.n_ticks)
         assert schedule.treated_probability == drawn.treated_probability
-        for name in ("cluster_of_user", "is_cluster_arm"):
+        for name in ("cluster_of_user", "is_cluster_arm", "stratum_of_unit"):
             assert (getattr(drawn, name) is None) == (getattr(schedule, name) is None)
             if getattr(drawn, name) is not None:
                 assert np.array_equal(getattr(drawn, name), getattr(schedule, name))
@@ -148,7 +148,8 @@ def test_a_rollout_names_each_users_switch_on_time(scenario, tmp_path):
 @pytest.mark.parametrize("design", [
     {"kind": "cluster", "clusters": "pools", "label": "cluster-fisher"},
     {"kind": "switchback", "block_hours": 24, "burn_in_hours": 6, "per": "pool",
-     "label": "switchback-fisher"}])
+     "label": "switchback-fisher"},
+    {"kind": "user", "strata": "pools", "label": "user-strata-fisher"}])
 def test_analyze_gives_the_studys_randomization_p_value(design, tmp_path):
     # The randomization test's re-draws come from replication 0's own stream of the seed,
     # so analyze repeats the study's p-value bit for bit (same_estimate compares every field).

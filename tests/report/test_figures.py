@@ -214,3 +214,44 @@ def test_plot_stock_draws_on_given_axes(study):
     pair = fig.subplots(1, 2)
     assert plot_stock(study, ax=pair) is fig
     assert all(len(ax.lines) == 3 for ax in pair)
+
+
+def test_the_api_pages_side_by_side_example_keeps_every_text_apart(study, tmp_path,
+                                                                    monkeypatch):
+    # Runs the code block of docs/api.md as written (with pyplot on the Agg backend), then
+    # checks with the renderer's own text extents that no title, axis label, tick label or
+    # legend of one panel overlaps one of the other, and that every text lies inside the
+    # figure (common practice, no source: a figure is readable when its texts do not touch).
+    import re
+    from pathlib import Path
+
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    page = (Path(__file__).parents[2] / "docs" / "api.md").read_text(encoding="utf-8")
+    block = re.search(r"Plots draw on a given matplotlib axes:\s*```python\n(.*?)```", page,
+                      re.S).group(1)
+    monkeypatch.chdir(tmp_path)
+    namespace = {"study": study}
+    exec(compile(block, "docs/api.md", "exec"), namespace)  # noqa: S102 (our own docs)
+    fig, left, right = namespace["fig"], namespace["left"], namespace["right"]
+    assert (tmp_path / "side_by_side.png").is_file()
+    renderer = fig.canvas.get_renderer()
+
+    def boxes(ax):
+        # each axis's drawn tick labels and label (ticks outside the view are not drawn)
+        found = [ax.xaxis.get_tightbbox(renderer), ax.yaxis.get_tightbbox(renderer),
+                 ax.title.get_window_extent(renderer)]
+        if ax.get_legend() is not None:
+            found.append(ax.get_legend().get_window_extent(renderer))
+        return found
+
+    width, height = fig.bbox.width, fig.bbox.height
+    for a in boxes(left) + boxes(right):
+        assert a.x0 >= -1 and a.y0 >= -1 and a.x1 <= width + 1 and a.y1 <= height + 1, a
+    for a in boxes(left):
+        for b in boxes(right):
+            assert not a.overlaps(b), (a, b)
+    plt.close(fig)

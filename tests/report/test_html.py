@@ -16,7 +16,8 @@ import pytest
 from spillgauge.statistics.recommend import Recommendation
 from spillgauge.study.store import load_study
 from spillgauge.report import write_report
-from spillgauge.report.html import CAUTION, SECTION_IDS, render_html
+from spillgauge.report.html import SECTION_IDS, render_html
+from spillgauge.report.page import CAUTION
 
 # Elements without an end tag (HTML Living Standard, "void elements").
 _VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",

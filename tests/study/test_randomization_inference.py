@@ -216,3 +216,28 @@ def test_asking_for_it_changes_no_other_number():
     again = DesignRun.from_record(saved.to_record())  # a resumed study keeps it
     assert again.estimate.randomization_p_value == saved.estimate.randomization_p_value
     assert "randomization_p_value" not in analytic.runs["user"].to_record()
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("strata", ["pools", "pre_period"])
+def test_stratified_randomization_test_rejects_5_percent_under_the_null(null_market, strata):
+    # Re-draws within strata (blocked randomization, Imbens & Rubin 2015, ch. 9) keep the
+    # Fisher test exact under the sharp null.
+    spec = make_design_spec("user", {"strata": strata, "inference": "randomization",
+                                     "permutations": PERMUTATIONS})
+    kind = kind_of(spec)
+    rng = np.random.default_rng(78)
+    control = AssignmentSchedule.fixed(n_users=null_market.n_users,
+                                       n_ticks=null_market.n_ticks, is_treated=False)
+    (null,) = simulate_worlds(null_market, [control], rng=np.random.default_rng(79))
+    rejections = total = 0
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for _ in range(1500):
+            p = kind.analyse(spec, null, kind.draw(null_market, spec, rng=rng),
+                             confidence=0.95, tick_hours=null_market.tick_hours,
+                             rng=rng).randomization_p_value
+            total += bool(math.isfinite(p))
+            rejections += bool(p <= 0.05)
+    print(f"user strata={strata}: {rejections}/{total} = {rejections / total:.4f}")
+    _assert_level_5_percent(rejections, total)

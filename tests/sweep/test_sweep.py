@@ -435,7 +435,7 @@ def test_figures_and_html_page(pool_sweep, tmp_path):
     import matplotlib.image
 
     from spillgauge.report.figures import FIGURE_SIZE_PX
-    from spillgauge.report.html import CAUTION
+    from spillgauge.report.page import CAUTION
     from spillgauge.report.sweep_figures import (
         plot_sweep_metric,
         render_sweep_html,

@@ -7,7 +7,7 @@ import numpy as np
 from spillgauge.schedule import RANDOMIZATIONS
 from spillgauge.seeding import check_rng
 
-__all__ = ["draw_treated_units"]
+__all__ = ["draw_treated_units", "draw_treated_within_strata"]
 
 
 def draw_treated_units(n_units: int, *, share: float, randomization: str,
@@ -32,4 +32,31 @@ def draw_treated_units(n_units: int, *, share: float, randomization: str,
         n_treated = min(max(n_treated, 1), n_units - 1)
     treated = np.zeros(n_units, dtype=bool)
     treated[rng.permutation(n_units)[:n_treated]] = True
+    return treated
+
+
+def draw_treated_within_strata(strata: np.ndarray, *, share: float, rng: np.random.Generator
+                               ) -> np.ndarray:
+    """Return which units are treated when exactly ``round(share * n_s)`` of each stratum are.
+
+    Blocked (stratified) complete randomization: within every stratum ``s`` of
+    ``n_s`` units, a uniformly random ``round(share * n_s)`` are treated (kept
+    in ``[1, n_s - 1]`` when ``n_s >= 2``), independently across strata
+    (Imbens & Rubin 2015, ch. 9). ``strata`` holds one code per unit.
+
+    >>> t = draw_treated_within_strata(np.array([0, 0, 0, 0, 1, 1]), share=0.5,
+    ...                                rng=np.random.default_rng(1))
+    >>> int(t[:4].sum()), int(t[4:].sum())
+    (2, 1)
+    """
+    check_rng(rng)
+    strata = np.asarray(strata)
+    _, stratum, sizes = np.unique(strata, return_inverse=True, return_counts=True)
+    n_treated = np.rint(share * sizes).astype(np.int64)
+    n_treated = np.where(sizes >= 2, np.clip(n_treated, 1, sizes - 1), n_treated)
+    order = np.lexsort((rng.random(strata.size), stratum))  # each stratum's units, shuffled
+    first = np.concatenate(([0], np.cumsum(sizes)[:-1]))
+    rank = np.arange(strata.size) - first[stratum[order]]
+    treated = np.zeros(strata.size, dtype=bool)
+    treated[order] = rank < n_treated[stratum[order]]
     return treated

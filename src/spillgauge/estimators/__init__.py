@@ -33,6 +33,10 @@ from spillgauge.estimators.rollout import (
     staggered_difference_in_differences,
     two_way_fixed_effects_period_weights,
 )
+from spillgauge.estimators.stratified import (
+    stratified_difference_in_means,
+    stratified_regression_adjusted_difference,
+)
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -47,6 +51,8 @@ __all__ = [
     "Estimate",
     "difference_in_means",
     "regression_adjusted_difference",
+    "stratified_difference_in_means",
+    "stratified_regression_adjusted_difference",
     "hajek_cluster",
     "horvitz_thompson_cluster",
     "exposure_probabilities",

@@ -23,7 +23,9 @@ def redraw_assignment(schedule: AssignmentSchedule, *, rng: np.random.Generator
     """Return the schedule with its assignment drawn again by the same randomization.
 
     ``"complete"`` permutes the units' rows of ``is_treated`` (the same number of
-    treated units in every period, and a rollout's waves, kept); ``"bernoulli"``
+    treated units in every period, and a rollout's waves, kept), within each
+    stratum when the schedule has strata (``stratum_of_unit``: blocked
+    randomization keeps each stratum's treated count); ``"bernoulli"``
     draws every unit-period afresh with ``treated_probability`` (a switchback's
     blocks, Bojinov, Simchi-Levi & Zhao 2023). Everything else is kept.
 
@@ -44,7 +46,13 @@ def redraw_assignment(schedule: AssignmentSchedule, *, rng: np.random.Generator
     check_rng(rng)
     if schedule.is_cluster_arm is not None:
         raise ValueError("redraw_assignment does not re-draw a test of interference's split")
-    if schedule.randomization == "complete":
+    if schedule.randomization == "complete" and schedule.stratum_of_unit is not None:
+        strata = schedule.stratum_of_unit
+        slots = np.argsort(strata, kind="stable")  # each stratum's units, in order
+        drawn = np.lexsort((rng.random(schedule.n_units), strata))  # shuffled within stratum
+        treated = np.empty_like(schedule.is_treated)
+        treated[slots] = schedule.is_treated[drawn]
+    elif schedule.randomization == "complete":
         treated = schedule.is_treated[rng.permutation(schedule.n_units)]
     elif schedule.randomization == "bernoulli":
         treated = rng.random(schedule.is_treated.shape) < schedule.treated_probability

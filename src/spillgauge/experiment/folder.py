@@ -113,6 +113,8 @@ def write_assignment(assignment: Assignment, out: str | Path) -> list[Path]:
                              dtype=object)
         switch_on[first < 0] = "never"
         users["switch_on"] = switch_on[schedule.unit_of_user]
+    if schedule.stratum_of_unit is not None:
+        users["stratum"] = schedule.stratum_of_unit[schedule.unit_of_user]
     if schedule.cluster_of_user is not None:
         users["cluster"] = schedule.cluster_of_user
         users["half"] = np.where(schedule.is_cluster_arm[schedule.cluster_of_user],
@@ -227,7 +229,16 @@ def read_assignment(folder: str | Path) -> Assignment:
     if not seen.all() or len(calendar) != seen.size:
         raise ScenarioError(str(calendar_path), f"one row per unit and period ({seen.size})",
                             len(calendar))
-    cluster_of_user = is_cluster_arm = exposure = None
+    cluster_of_user = is_cluster_arm = exposure = stratum_of_unit = None
+    if "stratum" in users.columns:
+        stratum = pd.to_numeric(users["stratum"], errors="coerce").to_numpy(float)
+        refuse_first(users_path, users, ~(np.isfinite(stratum) & (stratum >= 0)
+                                          & (stratum == np.round(stratum)) & (stratum < 1e9)),
+                     "stratum", "a whole number >= 0")
+        stratum_of_unit = np.zeros(n_units, dtype=np.int64)
+        stratum_of_unit[unit_of_user] = stratum.astype(np.int64)
+        refuse_first(users_path, users, stratum_of_unit[unit_of_user] != stratum, "stratum",
+                     "the same stratum for every user of a unit")
     if "cluster" in users.columns:
         cluster_of_user = pd.to_numeric(users["cluster"]).to_numpy(np.int64)
         half = users["half"].to_numpy() == "cluster"
@@ -244,7 +255,8 @@ def read_assignment(folder: str | Path) -> Assignment:
                                   treated_probability=float(info["treated_probability"]),
                                   unit_kind=kind, randomization=info["randomization"],
                                   exposure_units=exposure, cluster_of_user=cluster_of_user,
-                                  is_cluster_arm=is_cluster_arm)
+                                  is_cluster_arm=is_cluster_arm,
+                                  stratum_of_unit=stratum_of_unit)
     if "arm" in users.columns:
         given = column_codes(users_path, users, "arm", list(ARMS), "'control' or 'treatment'")
         refuse_first(users_path, users, given != schedule.user_is_treated().astype(int), "arm",

@@ -7,7 +7,7 @@ import math
 from spillgauge.formatting import format_number, format_percent
 from spillgauge.statistics.metrics import retrodesign
 
-__all__ = ["answer_cuped", "answer_plan", "answer_variants"]
+__all__ = ["answer_cuped", "answer_plan", "answer_strata", "answer_variants"]
 
 
 def _candidates(rows: list[dict]) -> list[dict]:
@@ -65,6 +65,55 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int,
             f"{format_number(best['gte'])}.")
 
 
+def _plain_user_rows(rows: list[dict]) -> list[dict]:
+    """Return the rows of the first plain user-level design (no adjustment, no strata)."""
+    user = [r for r in rows if r["kind"] == "user" and r["is_user_level"]
+            and not r.get("adjusted", False) and r.get("strata", "none") == "none"]
+    return [r for r in user if r["label"] == user[0]["label"]] if user else []
+
+
+def _projected_reach(user: list[dict], factors: dict[int, float], *, power: float,
+                     alpha: float, unit: str = "orders per user") -> str:
+    """Return when the plain user design would reach ``power`` with its variance times ``factors``.
+
+    Its standard error shrinks by ``sqrt(factor)`` at each duration and the power
+    at the same effect comes from a normal test
+    (:func:`~spillgauge.statistics.metrics.retrodesign`); the MDE at the longest
+    duration shrinks by the same ``sqrt(factor)``.
+    """
+    label, at = user[0]["label"], user[-1]
+    plain = next((r["days"] for r in user if r["power"] >= power), None)
+    projected = None
+    for r in user:
+        factor = factors.get(r["days"], math.nan)
+        se = r["mean_se"] * math.sqrt(factor) if math.isfinite(factor) else math.nan
+        if math.isfinite(se) and se > 0 and math.isfinite(r["gte"]) and \
+                retrodesign(r["gte"], se, alpha=alpha).power >= power:
+            projected = r["days"]
+            break
+    mde = at["mde"] * math.sqrt(factors[at["days"]])
+    if plain is not None and projected == plain == user[0]["days"]:
+        reach = f"{label} reaches {power:.0%} power at the shortest duration planned either way"
+    elif projected is not None:
+        without = f"{plain} days" if plain is not None else "not within the plan"
+        reach = f"{label} with it would reach {power:.0%} power at {projected} days " \
+                f"(without: {without})"
+    else:
+        reach = f"{label} would not reach {power:.0%} power even with it"
+    return (f"{reach}, and its minimum detectable effect at {at['days']} days would "
+            f"fall from {format_number(at['mde'])} to {format_number(mde)} {unit}.")
+
+
+def _measured_share(rows: list[dict], at: dict, wanted) -> str:
+    """Return "LABEL measures X%" for the first design row matching ``wanted`` at ``at``'s days."""
+    measured = [r for r in rows if r["kind"] == "user" and r["days"] == at["days"]
+                and wanted(r)]
+    if measured and at["mean_se"] > 0 and math.isfinite(measured[0]["mean_se"]):
+        return (f"{measured[0]['label']} measures "
+                f"{format_percent((measured[0]['mean_se'] / at['mean_se']) ** 2)}")
+    return ""
+
+
 def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: float,
                  unit: str = "orders per user") -> str:
     """Return how much regression adjustment on the pre-period would shorten the test.
@@ -76,49 +125,59 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
     when the scenario has a pre-period and a plain user-level design, and it
     holds only where that design is trusted.
     """
-    user = [r for r in rows if r["kind"] == "user" and r["is_user_level"]
-            and not r.get("adjusted", False)]
+    user = _plain_user_rows(rows)
     factors = {c["days"]: c["variance_factor"] for c in cuped}
-    if not user or not any(math.isfinite(v) for v in factors.values()):
+    if not user or not math.isfinite(factors.get(user[-1]["days"], math.nan)):
         return ""
-    label = user[0]["label"]
-    user = [r for r in user if r["label"] == label]
-    at = user[-1]
+    label, at = user[0]["label"], user[-1]
     factor = factors[at["days"]]
-    if not math.isfinite(factor):
-        return ""
-    measured = [r for r in rows if r["kind"] == "user" and r.get("adjusted", False)
-                and r["days"] == at["days"]]
-    seen = ""
-    if measured and at["mean_se"] > 0:
-        seen = (f"; {measured[0]['label']} measures "
-                f"{format_percent((measured[0]['mean_se'] / at['mean_se']) ** 2)}")
+    seen = _measured_share(rows, at, lambda r: r.get("adjusted", False)
+                           and r.get("strata", "none") == "none")
     lead = (f"Regression adjustment on the pre-period (CUPED) keeps "
             f"{format_percent(factor)} of the user-level variance at {at['days']} days "
             f"(1 - rho^2, rho = {format_number(math.sqrt(max(1 - factor, 0)))} between "
-            f"pre-period and experiment orders{seen})")
+            f"pre-period and experiment orders{'; ' + seen if seen else ''})")
     if not at["trusted"]:
         return (f"{lead}, but {label} is not trusted in this scenario ({at['why_not_trusted']}) "
                 f"and adjustment does not remove bias, so it does not shorten the test.")
-    plain = next((r["days"] for r in user if r["power"] >= power), None)
-    adjusted = None
-    for r in user:
-        se = r["mean_se"] * math.sqrt(factors[r["days"]])
-        if math.isfinite(se) and se > 0 and math.isfinite(r["gte"]) and \
-                retrodesign(r["gte"], se, alpha=alpha).power >= power:
-            adjusted = r["days"]
-            break
-    mde = at["mde"] * math.sqrt(factor)
-    if plain is not None and adjusted == plain == user[0]["days"]:
-        reach = f"{label} reaches {power:.0%} power at the shortest duration planned either way"
-    elif adjusted is not None:
-        without = f"{plain} days" if plain is not None else "not within the plan"
-        reach = f"{label} with it would reach {power:.0%} power at {adjusted} days " \
-                f"(without: {without})"
-    else:
-        reach = f"{label} would not reach {power:.0%} power even with it"
-    return (f"{lead}: {reach}, and its minimum detectable effect at {at['days']} days would "
-            f"fall from {format_number(at['mde'])} to {format_number(mde)} {unit}.")
+    return f"{lead}: {_projected_reach(user, factors, power=power, alpha=alpha, unit=unit)}"
+
+
+def answer_strata(rows: list[dict], cuped: list[dict], *, power: float, alpha: float,
+                  unit: str = "orders per user") -> str:
+    """Return how much stratified randomization would shorten the test, beside CUPED.
+
+    A fixed share treated within strata (``strata = "pre_period"``: groups of equal
+    size by pre-period orders; ``"pools"``: home stock pools) keeps about the
+    within-stratum share of the outcome's variance (Cochran 1977, 5.6; Imbens &
+    Rubin 2015, ch. 9). The better source is projected as CUPED is
+    (:func:`_projected_reach`); a stratified design in the scenario is quoted with
+    its measured share. Said only when there is a plain user-level design.
+    """
+    user = _plain_user_rows(rows)
+    if not user:
+        return ""
+    at = user[-1]
+    kept = {source: {c["days"]: c.get(f"strata_{source}", math.nan) for c in cuped}
+            for source in ("pre_period", "pools")}
+    usable = {s: f for s, f in kept.items() if math.isfinite(f.get(at["days"], math.nan))}
+    if not usable:
+        return ""
+    words = {"pre_period": "pre-period order groups", "pools": "stock pools"}
+    parts = []
+    for source, factors in usable.items():
+        seen = _measured_share(rows, at, lambda r, s=source: r.get("strata") == s
+                               and not r.get("adjusted", False))
+        parts.append(f"{format_percent(factors[at['days']])} with {words[source]}"
+                     + (f" ({seen})" if seen else ""))
+    best = min(usable, key=lambda s: usable[s][at["days"]])
+    lead = (f"Stratified randomization of users would keep about the within-stratum share "
+            f"of the user-level variance at {at['days']} days: {' and '.join(parts)}")
+    if not at["trusted"]:
+        return (f"{lead}, but {user[0]['label']} is not trusted in this scenario and strata "
+                f"do not remove bias, so they do not shorten the test.")
+    return (f"{lead}. Stratifying on {words[best]}, "
+            f"{_projected_reach(user, usable[best], power=power, alpha=alpha, unit=unit)}")
 
 
 def answer_variants(rows: list[dict]) -> str:

@@ -18,7 +18,7 @@ from spillgauge.errors import ScenarioError
 from spillgauge.files import dumps, json_safe, write_atomic
 from spillgauge.market.build import build_market
 from spillgauge.formatting import OUTCOME_UNITS
-from spillgauge.plan.answer import answer_cuped, answer_plan, answer_variants
+from spillgauge.plan.answer import answer_cuped, answer_plan, answer_strata, answer_variants
 from spillgauge.plan.replication import run_plan_replications
 from spillgauge.plan.summary import cuped_rows, plan_rows
 from spillgauge.scenario import Scenario
@@ -87,8 +87,10 @@ class PlanResult:
         share of the control mean; ``effective_n`` the users a user-level design
         would need for the same error variance).
     cuped : list of dict
-        Per duration: ``rho`` between pre-period and experiment orders and the
-        variance factor ``1 - rho^2`` of regression adjustment.
+        Per duration: ``rho`` between pre-period and experiment orders, the
+        variance factor ``1 - rho^2`` of regression adjustment, and the variance
+        share stratified randomization keeps (``strata_pre_period``,
+        ``strata_pools``).
     """
 
     scenario: Scenario
@@ -115,7 +117,9 @@ class PlanResult:
         variants = answer_variants(self.rows)
         cuped = answer_cuped(self.rows, self.cuped, power=self.power, alpha=self.alpha,
                              unit=unit)
-        return " ".join(part for part in (text, variants, cuped) if part)
+        strata = answer_strata(self.rows, self.cuped, power=self.power, alpha=self.alpha,
+                               unit=unit)
+        return " ".join(part for part in (text, variants, cuped, strata) if part)
 
     def plot_power(self, ax=None):
         """Draw each design's power by duration on ``ax`` (a new figure when omitted)."""
@@ -141,7 +145,8 @@ class PlanResult:
 def plan_study(scenario: Scenario, *, days: Iterable[int] | str | None = None,
                power: float = 0.8, alpha: float | None = None, reps: int | None = None,
                seed: int | None = None, workers: int | None = 1,
-               progress: Callable[[int, int], None] | None = None) -> PlanResult:
+               progress: Callable[[int, int], None] | None = None,
+               out: str | Path | None = None, resume: bool = False) -> PlanResult:
     """Plan a test: each design's power, MDE, bias, coverage and trust at each duration.
 
     Parameters
@@ -160,6 +165,13 @@ def plan_study(scenario: Scenario, *, days: Iterable[int] | str | None = None,
         Local processes (1: this process; ``None``: every core).
     progress : callable, optional
         Called as ``progress(done, total)``.
+    out : path, optional
+        Results folder: each finished replication is saved there as it completes
+        (``plan_study.json``, ``plan_replications.jsonl``), under a lock on the folder.
+    resume : bool
+        Continue from the replications already saved in ``out`` (same scenario,
+        seed, durations and level; ``reps`` and ``power`` may change). The numbers
+        equal those of a plan that was never interrupted.
 
     Returns
     -------
@@ -186,13 +198,31 @@ def plan_study(scenario: Scenario, *, days: Iterable[int] | str | None = None,
                             ", ".join(spec.label for spec in scenario.designs) or "none")
     scenario = replace(scenario, designs=planned,
                        study=replace(scenario.study, reps=reps, seed=seed, alpha=float(alpha)))
-    market = build_market(scenario, seed)
-    prepare_market(market, scenario.designs)
-    results = run_plan_replications(scenario, seed, reps, days, market=market, workers=workers,
-                                    progress=progress)
+    if resume and out is None:
+        raise ScenarioError("--resume", "given with a results folder (--out) to resume from",
+                            "no folder")
+    if out is None:
+        results = _run(scenario, seed, reps, days, workers, progress, None, False)
+    else:
+        from spillgauge.files import folder_lock
+        from spillgauge.plan.store import PlanFolder
+
+        with folder_lock(out):  # a second plan into the same folder is refused by name
+            folder = PlanFolder(out, scenario, seed, days)
+            results = _run(scenario, seed, reps, days, workers, progress, folder, resume)
     rows = plan_rows(scenario, results, days, power=float(power), alpha=float(alpha))
     return PlanResult(scenario=scenario, seed=seed, reps=reps, days=days, power=float(power),
                       alpha=float(alpha), rows=rows, cuped=cuped_rows(results, days))
+
+
+def _run(scenario: Scenario, seed: int, reps: int, days: tuple[int, ...],
+         workers: int | None, progress, folder, resume: bool) -> list:
+    done = folder.open(resume=resume) if folder is not None else []
+    market = build_market(scenario, seed)
+    prepare_market(market, scenario.designs)
+    return run_plan_replications(scenario, seed, reps, days, market=market, workers=workers,
+                                 progress=progress, done=done,
+                                 save=folder.append if folder is not None else None)
 
 
 def write_plan(plan: PlanResult, out: str | Path) -> list[Path]:

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -56,6 +56,10 @@ class PlanReplication:
         Per duration, the correlation over users between pre-period orders and
         fulfilled orders of the first days in the all-control world (NaN when
         either is constant).
+    strata_within_share : dict of int to dict of str to float
+        Per duration and strata source (``"pre_period"``, ``"pools"``: the user
+        design's strata at their defaults), the share of the all-control world's
+        variance of users' orders that lies within strata (NaN without variance).
     """
 
     replication: int
@@ -63,6 +67,34 @@ class PlanReplication:
     truths: dict[int, ReplicationTruth]
     runs: dict[str, dict[int, PrefixRun]]
     history_correlation: dict[int, float]
+    strata_within_share: dict[int, dict[str, float]] = field(default_factory=dict)
+
+
+def _within_share(strata: np.ndarray, y: np.ndarray) -> float:
+    """Return ``sum_s (n_s/n) S_s^2 / S^2``: the variance a stratified draw keeps.
+
+    With a fixed share in every stratum (proportional allocation) the stratified
+    difference in means has about this share of the complete-randomization
+    variance (Cochran 1977, *Sampling Techniques*, 5.6; Imbens & Rubin 2015, ch. 9).
+    """
+    total = float(np.var(y, ddof=1)) if y.size > 1 else 0.0
+    if total <= 0:
+        return float("nan")
+    counts = np.bincount(strata).astype(float)
+    means = np.bincount(strata, weights=y) / np.maximum(counts, 1)
+    squares = np.bincount(strata, weights=(y - means[strata]) ** 2)
+    within = squares / np.maximum(counts - 1, 1)
+    return float(np.sum(counts / y.size * within) / total)
+
+
+def _plan_strata(market: Market) -> dict[str, np.ndarray]:
+    """Return each user's stratum under the user design's two strata sources, at defaults."""
+    from spillgauge.designs.registry import make_design_spec
+    from spillgauge.designs.user_level import market_strata
+
+    sources = ("pre_period", "pools") if np.ptp(np.asarray(market.history)) > 0 else ("pools",)
+    return {source: market_strata(market, make_design_spec("user", {"strata": source}))
+            for source in sources}
 
 
 def _correlation(x: np.ndarray, y: np.ndarray) -> float:
@@ -81,12 +113,15 @@ def run_plan_replication(scenario: Scenario, seed: int, replication: int, days: 
     confidence = 1.0 - scenario.study.alpha
     tick_hours = scenario.calendar.tick_hours
     ticks_per_day = 24 // tick_hours
-    truths, correlations = {}, {}
+    truths, correlations, within = {}, {}, {}
+    strata = _plan_strata(market)
     runs: dict[str, dict[int, PrefixRun]] = {spec.label: {} for spec in scenario.designs}
     for d in days:
         control = first_days_of_panel(panels[0], d)
         truths[d] = replication_truth(control, first_days_of_panel(panels[1], d))
         correlations[d] = _correlation(control.history, control.user_fulfilled())
+        within[d] = {source: _within_share(codes, control.user_fulfilled())
+                     for source, codes in strata.items()}
         for spec, schedule, panel in zip(scenario.designs, schedules[2:], panels[2:]):
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", DegenerateEstimateWarning)
@@ -108,7 +143,7 @@ def run_plan_replication(scenario: Scenario, seed: int, replication: int, days: 
                 degrees_of_freedom=float(estimate.degrees_of_freedom),
                 n_units=int(estimate.n_units), note=notes[0] if notes else "")
     return PlanReplication(replication=replication, n_users=n_users, truths=truths, runs=runs,
-                           history_correlation=correlations)
+                           history_correlation=correlations, strata_within_share=within)
 
 
 def _run_task(scenario: Scenario, seed: int, replication: int, days: tuple[int, ...]
@@ -118,23 +153,32 @@ def _run_task(scenario: Scenario, seed: int, replication: int, days: tuple[int, 
 
 def run_plan_replications(scenario: Scenario, seed: int, reps: int, days: tuple[int, ...], *,
                           market: Market, workers: int | None = 1,
-                          progress: Callable[[int, int], None] | None = None
+                          progress: Callable[[int, int], None] | None = None,
+                          done: list[PlanReplication] | None = None,
+                          save: Callable[[PlanReplication], None] | None = None
                           ) -> list[PlanReplication]:
-    """Run ``reps`` replications serially or on local processes; return them in order."""
+    """Run ``reps`` replications serially or on local processes; return them in order.
+
+    ``done`` holds replications already finished (a resumed plan): only the
+    others run. ``save`` is called with each replication as it finishes.
+    """
     n_workers = default_workers() if workers is None else max(1, workers)
-    results: list[PlanReplication] = []
+    results: list[PlanReplication] = [r for r in (done or []) if r.replication < reps]
+    todo = sorted(set(range(reps)) - {r.replication for r in results})
 
     def finished(result: PlanReplication) -> None:
         results.append(result)
+        if save:
+            save(result)
         if progress:
             progress(len(results), reps)
 
     if progress:
-        progress(0, reps)
-    if n_workers == 1 or reps <= 1:
-        for r in range(reps):
+        progress(len(results), reps)
+    if n_workers == 1 or len(todo) <= 1:
+        for r in todo:
             finished(run_plan_replication(scenario, seed, r, days, market=market))
     else:
-        run_on_processes(_run_task, [(scenario, seed, r, days) for r in range(reps)],
+        run_on_processes(_run_task, [(scenario, seed, r, days) for r in todo],
                          workers=n_workers, finished=finished)
     return sorted(results, key=lambda r: r.replication)

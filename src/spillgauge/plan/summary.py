@@ -87,7 +87,8 @@ def plan_rows(scenario: Scenario, results: list[PlanReplication], days: tuple[in
                 "n_units": float(np.mean(col["n_units"])),
                 "trusted": verdict.is_trusted, "why_not_trusted": verdict.reason or "",
                 "recommendable": kind.is_recommendable, "is_user_level": kind.is_user_level,
-                "adjusted": bool(spec.params.get("adjust", False)), "table": spec.index,
+                "adjusted": bool(spec.params.get("adjust", False)),
+                "strata": _strata_of(spec), "table": spec.index,
                 "chosen": False, "variant_chosen": False,
             })
             candidate = Candidate(label=spec.label, is_user_level=kind.is_user_level,
@@ -132,18 +133,38 @@ def _n_users(results: list[PlanReplication]) -> int:
     return int(results[0].n_users) if results else 0
 
 
+def _strata_of(spec) -> str:
+    """Return what a user design stratifies on as the plan projects it (``"none"``, ``"pools"``,
+    ``"pre_period"`` at the default number of groups, ``"pre_period/<groups>"`` otherwise)."""
+    from spillgauge.designs.user_level import PRE_PERIOD_STRATA
+
+    strata = str(spec.params.get("strata", "none"))
+    groups = spec.params.get("pre_period_strata", PRE_PERIOD_STRATA)
+    return f"{strata}/{groups}" if strata == "pre_period" and groups != PRE_PERIOD_STRATA \
+        else strata
+
+
 def cuped_rows(results: list[PlanReplication], days: tuple[int, ...]) -> list[dict]:
-    """Return, per duration, the history-outcome correlation and CUPED's variance factor.
+    """Return, per duration, the variance CUPED and stratification would keep.
 
     Regression adjustment on the pre-period (CUPED; Deng, Xu, Kohavi & Walker
     2013, WSDM) keeps ``1 - rho^2`` of a user-level estimate's variance, with rho
     the correlation over users of pre-period orders and the outcome; rho is
-    averaged over replications in the all-control world.
+    averaged over replications in the all-control world. Stratified
+    randomization keeps about the within-stratum share of the outcome's variance
+    (``strata_pre_period``, ``strata_pools``; Cochran 1977, 5.6), averaged the
+    same way (NaN when the scenario has no pre-period to stratify on).
     """
     rows = []
     for d in days:
         rho = np.array([r.history_correlation[d] for r in results], dtype=float)
         rho_mean = float(np.nanmean(rho)) if np.isfinite(rho).any() else math.nan
-        rows.append({"days": d, "rho": rho_mean,
-                     "variance_factor": 1 - rho_mean**2 if math.isfinite(rho_mean) else math.nan})
+        row = {"days": d, "rho": rho_mean,
+               "variance_factor": 1 - rho_mean**2 if math.isfinite(rho_mean) else math.nan}
+        for source in ("pre_period", "pools"):
+            kept = np.array([r.strata_within_share.get(d, {}).get(source, math.nan)
+                             for r in results], dtype=float)
+            row[f"strata_{source}"] = float(np.nanmean(kept)) if np.isfinite(kept).any() \
+                else math.nan
+        rows.append(row)
     return rows

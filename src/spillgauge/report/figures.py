@@ -100,7 +100,7 @@ def plot_estimates(study, ax=None):
         tick.set_color(colour)
     ax.set_ylim(len(rows) - 0.4, -0.6)
     ax.set_xlabel(f"estimate of the GTE ({_units(study)})")
-    ax.set_title("Estimates against the true effect: the gap from a design's diamond to "
+    ax.set_title("Estimates against the true effect:\nthe gap from a design's diamond to "
                  "the dashed line is its drift", fontsize=11)
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=3, fontsize=9,
               frameon=False)
@@ -217,7 +217,7 @@ def plot_bias_sd(study, ax=None):
     ax.scatter([], [], s=200, facecolors="none", edgecolors=_TRUTH, label="recommended")
     ax.set_xlabel(f"bias: mean of estimate - GTE ({_units(study)})")
     ax.set_ylabel("SD of the estimates (same units)")
-    ax.set_title("Bias against noise: the nearer the origin, the more accurate "
+    ax.set_title("Bias against noise: the nearer the origin, the more accurate\n"
                  "(bars: +-2 Monte Carlo SE)", fontsize=11)
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=6, fontsize=9,
               frameon=False)

@@ -8,21 +8,18 @@ sheet is inline, so the file opens anywhere, offline.
 
 from __future__ import annotations
 
-import base64
-import html
-from pathlib import Path
-
 from spillgauge.formatting import format_quantity, outcome_unit
 from spillgauge.scenario.config import settings_in_use
+from spillgauge.report.page import CAUTION, figure, render_page
+from spillgauge.report.page import escape as _e
+from spillgauge.report.page import grid as _grid
+from spillgauge.report.page import section as _section
 from spillgauge.statistics.trust import few_replications_note
 
-__all__ = ["SECTION_IDS", "CAUTION", "CAPTIONS", "STYLE", "render_html"]
+__all__ = ["SECTION_IDS", "CAPTIONS", "render_html"]
 
 SECTION_IDS = ("recommendation", "designs", "launches", "truth", "figures", "market",
                "scenario", "caution")  # in page order: the answer first, the settings last
-CAUTION = ("Results follow from the model's assumptions; a simulated recommendation is an "
-           "input to, not a substitute for, the team's own review of an experiment that "
-           "touches real users.")
 CAPTIONS = {
     "estimates": (
         "Where each design's estimates land. Each dot is one replication's estimate of the "
@@ -78,37 +75,6 @@ _COLUMNS = (("mean_estimate", "mean estimate", "{:.3f}", "mean_estimate_se"),
             ("relative.mean_estimate", "relative effect", "{:+.1%}", "relative.mean_estimate_se"),
             ("relative.bias", "relative-effect bias", "{:+.1%}", "relative.bias_se"),
             ("relative.coverage", "relative CI coverage", "{:.0%}", "relative.coverage_se"))
-_STYLE = """
-body{font:15px/1.5 system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;color:#1a1a1a;
-margin:0 auto;max-width:1180px;padding:1.5rem 1.25rem 3rem}
-h1{font-size:1.6rem;margin:.2rem 0}h2{font-size:1.25rem;border-bottom:2px solid #0072B2;
-padding-bottom:.2rem;margin-top:2.2rem}h3{font-size:1.05rem;margin:1.2rem 0 .4rem}
-nav a{margin-right:.9rem;color:#0072B2}.meta{color:#555}
-table{border-collapse:collapse;margin:.4rem 0 1rem;font-size:.9rem}
-th,td{border:1px solid #d6d6d6;padding:.25rem .55rem;text-align:right;vertical-align:top}
-th{background:#f2f2f2}td.text,th.text{text-align:left}tbody tr:nth-child(even){background:#fafafa}
-.scroll{overflow-x:auto}.se{color:#777;font-size:.8em}
-.trusted,.untrusted{font-weight:600;white-space:nowrap}.trusted{color:#005a8c}
-.untrusted{color:#b34700}
-tr.chosen td{background:#e6f1f8}.settings{display:flex;flex-wrap:wrap;gap:0 1.6rem}
-.verdict{font-size:1.15rem;font-weight:600;margin:.2rem 0 .5rem}.box{border-left:6px solid #0072B2;
-background:#f4f8fb;padding:.6rem 1rem;border-radius:0 4px 4px 0}
-.box.ok{border-color:#009E73;background:#eef8f4}
-.box.warn{border:2px solid #D55E00;border-left-width:6px;background:#fdf0e8}
-.box.warn .verdict{color:#8f3300}.icon{font-size:1.3em;margin-right:.3rem}
-.diagnostic{color:#555;font-style:italic;white-space:nowrap}
-.lead{font-size:1.02rem}
-figure{margin:1.2rem 0 2rem}figure img{max-width:100%;height:auto;border:1px solid #e2e2e2}
-figcaption{color:#333;font-size:.92rem;margin-top:.4rem}
-#caution p{font-style:italic;background:#f7f7f7;padding:.6rem 1rem;border-radius:4px}
-"""
-
-
-STYLE = _STYLE  # shared with the sweep's page
-
-
-def _e(value: object) -> str:
-    return html.escape(str(value), quote=True)
 
 
 def _plain(value: object) -> str:
@@ -124,25 +90,6 @@ def _pairs(rows: list[tuple[str, object]]) -> str:
     body = "".join(f'<tr><th class="text">{_e(k)}</th><td class="text">{_e(_plain(v))}</td></tr>'
                    for k, v in rows)
     return f"<table><tbody>{body}</tbody></table>"
-
-
-def _grid(header: list[str], rows: list[list[str]], row_classes: list[str] | None = None,
-          text_columns: int = 1) -> str:
-    """Return a table; cells are already-escaped HTML."""
-    def cls(i: int) -> str:
-        return ' class="text"' if i < text_columns else ""
-    head = "".join(f"<th{cls(i)}>{_e(h)}</th>" for i, h in enumerate(header))
-    body = []
-    for k, row in enumerate(rows):
-        attr = f' class="{row_classes[k]}"' if row_classes and row_classes[k] else ""
-        body.append(f"<tr{attr}>" + "".join(f"<td{cls(i)}>{c}</td>" for i, c in enumerate(row))
-                    + "</tr>")
-    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead>'
-            f'<tbody>{"".join(body)}</tbody></table></div>')
-
-
-def _section(section_id: str, title: str, content: str) -> str:
-    return f'<section id="{section_id}"><h2>{_e(title)}</h2>{content}</section>'
 
 
 def _scenario(study, summary: dict) -> str:
@@ -298,12 +245,8 @@ def _recommendation(study, summary: dict) -> str:
 def _figures(figures: dict) -> str:
     parts = []
     for name, path in figures.items():
-        data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
-        title = _TITLES.get(name, name.replace("_", " "))
-        caption = CAPTIONS.get(name, "")
-        parts.append(f'<figure id="figure-{_e(name)}"><h3>{_e(title)}</h3>'
-                     f'<img alt="{_e(title)}" src="data:image/png;base64,{data}">'
-                     f"<figcaption>{_e(caption)}</figcaption></figure>")
+        parts.append(figure(path, name=name, title=_TITLES.get(name, name.replace("_", " ")),
+                            caption=CAPTIONS.get(name, "")))
     if not parts:
         parts.append("<p>No figures were drawn for this study.</p>")
     return _section("figures", "Figures", "".join(parts))
@@ -345,11 +288,5 @@ def render_html(study, figures: dict) -> str:
              "scenario": _scenario(study, summary),
              "caution": _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")}
     body = "".join(parts[name] for name in SECTION_IDS)
-    nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in SECTION_IDS if parts[s])
-    return ("<!DOCTYPE html>\n"
-            '<html lang="en"><head><meta charset="utf-8">'
-            '<meta name="viewport" content="width=device-width, initial-scale=1">'
-            f"<title>{_e(title)}</title><style>{_STYLE}</style></head><body>"
-            f"<header><h1>{_e(title)}</h1><p class=\"meta\">spillgauge study report: "
-            f"{summary['reps']:,} replications, seed {_e(summary['seed'])}</p>"
-            f"<nav>{nav}</nav></header><main>{body}</main></body></html>\n")
+    meta = f"spillgauge study report: {summary['reps']:,} replications, seed {_e(summary['seed'])}"
+    return render_page(title, meta, body, nav=[s for s in SECTION_IDS if parts[s]])

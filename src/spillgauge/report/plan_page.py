@@ -6,11 +6,13 @@ holds and computes nothing.
 
 from __future__ import annotations
 
-import base64
 from pathlib import Path
 
 from spillgauge.formatting import format_cell
-from spillgauge.report.html import _STYLE, CAUTION, _e, _grid, _section
+from spillgauge.report.page import CAUTION, figure, render_page
+from spillgauge.report.page import escape as _e
+from spillgauge.report.page import grid as _grid
+from spillgauge.report.page import section as _section
 
 __all__ = ["render_plan_html", "PLAN_CAPTIONS"]
 
@@ -66,23 +68,23 @@ def _table(plan) -> str:
 
 
 def _cuped(plan) -> str:
-    if not any(c["variance_factor"] == c["variance_factor"] for c in plan.cuped):
-        return "<p>The scenario has no pre-period (users.history_days = 0).</p>"
-    rows = [[_e(c["days"]), _cell("{:.3f}", c["rho"]), _cell("{:.0%}", c["variance_factor"])]
+    note = ("" if any(c["variance_factor"] == c["variance_factor"] for c in plan.cuped) else
+            "<p>The scenario has no pre-period (users.history_days = 0).</p>")
+    rows = [[_e(c["days"]), _cell("{:.3f}", c["rho"]), _cell("{:.0%}", c["variance_factor"]),
+             _cell("{:.0%}", c.get("strata_pre_period", float("nan"))),
+             _cell("{:.0%}", c.get("strata_pools", float("nan")))]
             for c in plan.cuped]
-    return _grid(["days", "\u03c1 (pre-period, outcome)", "variance kept, 1 \u2212 \u03c1\u00b2"],
-                 rows, text_columns=0)
+    return note + _grid(["days", "\u03c1 (pre-period, outcome)",
+                         "CUPED keeps, 1 \u2212 \u03c1\u00b2", "strata on pre-period keep",
+                         "strata on pools keep"], rows, text_columns=0)
 
 
 def _figures(figures: list[str | Path]) -> str:
     parts = []
     for path in figures:
         name = Path(path).stem
-        data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
-        title = _TITLES.get(name, name.replace("_", " "))
-        parts.append(f'<figure id="figure-{_e(name)}"><h3>{_e(title)}</h3>'
-                     f'<img alt="{_e(title)}" src="data:image/png;base64,{data}">'
-                     f"<figcaption>{_e(PLAN_CAPTIONS.get(name, ''))}</figcaption></figure>")
+        parts.append(figure(path, title=_TITLES.get(name, name.replace("_", " ")),
+                            caption=PLAN_CAPTIONS.get(name, "")))
     return _section("figures", "Figures", "".join(parts))
 
 
@@ -92,7 +94,6 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
     title = f"{name}: how long should it run?"
     days = ", ".join(str(d) for d in plan.days)
     sections = ("answer", "figures", "designs", "cuped", "caution")
-    nav = "".join(f'<a href="#{s}">{_e(s)}</a>' for s in sections)
     body = "".join([
         _section("answer", "Answer", f'<p class="box verdict">{_e(plan.answer())}</p>'),
         _figures(figures),
@@ -102,15 +103,14 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
                  "applied to each duration. Shaded: the design the recommendation rule picks "
                  "among those trusted and at the target power at that duration.</p>"
                  + _table(plan)),
-        _section("cuped", "Regression adjustment on the pre-period (CUPED)",
-                 "<p>CUPED keeps 1 \u2212 \u03c1\u00b2 of a user-level estimate's variance "
-                 "(Deng, Xu, Kohavi &amp; Walker 2013).</p>" + _cuped(plan)),
+        _section("cuped", "Regression adjustment (CUPED) and stratification",
+                 "<p>Share of a user-level estimate's variance each would keep. CUPED keeps "
+                 "1 \u2212 \u03c1\u00b2 (Deng, Xu, Kohavi &amp; Walker 2013); treating a fixed "
+                 "share within strata (<code>strata = \"pre_period\"</code>: groups of equal "
+                 "size by pre-period orders; <code>\"pools\"</code>: home stock pools) keeps "
+                 "about the within-stratum share of the outcome's variance (Cochran 1977; "
+                 "Imbens &amp; Rubin 2015, ch. 9).</p>" + _cuped(plan)),
         _section("caution", "Caution", f"<p>{_e(CAUTION)}</p>")])
-    return ("<!DOCTYPE html>\n"
-            '<html lang="en"><head><meta charset="utf-8">'
-            '<meta name="viewport" content="width=device-width, initial-scale=1">'
-            f"<title>{_e(title)}</title><style>{_STYLE}</style></head><body>"
-            f'<header><h1>{_e(title)}</h1><p class="meta">spillgauge plan: {plan.reps:,} '
-            f"replications, seed {_e(plan.seed)}, durations {_e(days)} days (prefixes of the "
-            f"same worlds), target power {plan.power:.0%}</p><nav>{nav}</nav></header>"
-            f"<main>{body}</main></body></html>\n")
+    meta = (f"spillgauge plan: {plan.reps:,} replications, seed {_e(plan.seed)}, durations "
+            f"{_e(days)} days (prefixes of the same worlds), target power {plan.power:.0%}")
+    return render_page(title, meta, body, nav=sections)

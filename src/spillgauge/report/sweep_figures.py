@@ -9,13 +9,11 @@ imported inside the functions and drawn on the Agg canvas, without pyplot.
 
 from __future__ import annotations
 
-import base64
-import html
 from pathlib import Path
 
 from spillgauge.formatting import OUTCOME_UNITS, format_value
 from spillgauge.report.figures import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
-from spillgauge.report.html import CAUTION, STYLE
+from spillgauge.report.page import CAUTION, escape, figure, grid, render_page, section
 
 __all__ = ["plot_sweep_metric", "plot_recommendation_grid", "save_sweep_figures",
            "render_sweep_html"]
@@ -219,49 +217,33 @@ def _trust_cell(row: dict) -> str:
 
 def _table(frame, keys: list[str]) -> str:
     head = [*keys, "design", "bias ± SE", "RMSE", "coverage", "trusted", "recommended"]
-    lines = ['<div class="scroll"><table><thead>',
-             "<tr>" + "".join(f'<th{" class=text" if i <= len(keys) else ""}>{html.escape(h)}</th>'
-                              for i, h in enumerate(head)) + "</tr></thead><tbody>"]
+    rows, classes = [], []
     for row in frame.to_dict("records"):
-        cells = [*(html.escape(format_value(row[k])) for k in keys), html.escape(row["label"]),
-                 html.escape(f"{row['bias']:+.3g} ± {row['bias_se']:.2g}"),
-                 html.escape(f"{row['rmse']:.3g}"), html.escape(f"{row['coverage']:.1%}"),
-                 _trust_cell(row), "<strong>recommended</strong>" if row["recommended"] else ""]
-        attr = ' class="chosen"' if row["recommended"] else ""
-        lines.append(f"<tr{attr}>" + "".join(
-            f'<td{" class=text" if i <= len(keys) else ""}>{c}</td>' for i, c in enumerate(cells))
-            + "</tr>")
-    lines.append("</tbody></table></div>")
-    return "\n".join(lines)
+        rows.append([*(escape(format_value(row[k])) for k in keys), escape(row["label"]),
+                     escape(f"{row['bias']:+.3g} ± {row['bias_se']:.2g}"),
+                     escape(f"{row['rmse']:.3g}"), escape(f"{row['coverage']:.1%}"),
+                     _trust_cell(row),
+                     "<strong>recommended</strong>" if row["recommended"] else ""])
+        classes.append("chosen" if row["recommended"] else "")
+    return grid(head, rows, classes, text_columns=len(keys) + 1)
 
 
 def render_sweep_html(sweep, figures: list[str | Path]) -> str:
     """Return a self-contained HTML page of the sweep: answer, figures, table, caution.
 
-    The page shares the study report's style sheet; the answer comes first.
-    Figures are embedded as base64 PNG images, so the page needs no other file;
-    every text taken from the study is HTML-escaped.
+    The page shares the study report's style sheet and pieces
+    (:mod:`~spillgauge.report.page`); the answer comes first. Figures are
+    embedded as base64 PNG images, so the page needs no other file; every text
+    taken from the study is HTML-escaped.
     """
     keys = [axis.key for axis in sweep.axes]
-    images = []
-    for path in figures:
-        data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
-        name = html.escape(Path(path).stem)
-        images.append(f'<figure id="figure-{name}"><img alt="{name}" '
-                      f'src="data:image/png;base64,{data}"></figure>')
     title = f"Sweep of {' and '.join(keys)}: {sweep.scenario.name}"
-    return "\n".join([
-        "<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
-        '<meta name="viewport" content="width=device-width, initial-scale=1">',
-        f"<title>{html.escape(title)}</title><style>{STYLE}</style>",
-        "</head><body><header>", f"<h1>{html.escape(title)}</h1>",
-        f'<p class="meta">spillgauge sweep: {sweep.reps} replications per point, seed '
-        f"{sweep.seed} at every point (common random numbers across points).</p></header>",
-        '<main><section id="answer"><h2>Answer</h2>',
-        f'<div class="box"><p class="lead answer">{html.escape(sweep.answer())}</p></div>'
-        "</section>",
-        '<section id="figures"><h2>Figures</h2>', *images, "</section>",
-        '<section id="points"><h2>Every point and design</h2>', _table(sweep.frame(), keys),
-        "</section>",
-        f'<section id="caution"><h2>Caution</h2><p>{html.escape(CAUTION)}</p></section>',
-        "</main></body></html>"])
+    meta = (f"spillgauge sweep: {sweep.reps} replications per point, seed {sweep.seed} at "
+            "every point (common random numbers across points).")
+    body = "".join([
+        section("answer", "Answer",
+                f'<div class="box"><p class="lead answer">{escape(sweep.answer())}</p></div>'),
+        section("figures", "Figures", "".join(figure(path) for path in figures)),
+        section("points", "Every point and design", _table(sweep.frame(), keys)),
+        section("caution", "Caution", f"<p>{escape(CAUTION)}</p>")])
+    return render_page(title, meta, body)

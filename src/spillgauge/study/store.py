@@ -77,7 +77,7 @@ def study_id(fingerprint: dict) -> str:
 
 
 def _latest(records, log: Path | None = None, labels: set | None = None,
-            study: str | None = None) -> list[ReplicationResult]:
+            study: str | None = None, decode=result_from_record) -> list[ReplicationResult]:
     """Rebuild saved replications, one per index, sorted.
 
     ``records`` yields ``(line number, record)``. A record is refused by its
@@ -85,13 +85,13 @@ def _latest(records, log: Path | None = None, labels: set | None = None,
     ``labels``, it carries another study's digest than ``study``, its index is
     not below the replications its run asked for, or it repeats an index.
     Records written before records carried the digest are read when
-    ``study.json`` matches.
+    ``study.json`` matches. ``decode`` rebuilds a result from its record.
     """
     where = log or _LOG
     results, first_line = {}, {}
     for number, record in records:
         try:
-            result = result_from_record(record)
+            result = decode(record)
             is_ours = result.replication >= 0 and (labels is None or set(result.runs) == labels)
             saved_study, saved_reps = record.get("study"), record.get("reps")
         except (KeyError, TypeError, ValueError, AttributeError):
@@ -123,26 +123,43 @@ class ResultsFolder:
 
     ``study.json`` fingerprints the study (scenario settings except the number
     of replications, and the seed); a folder holding another study is refused,
-    never overwritten.
+    never overwritten. A subclass may keep other results the same way (a plan's
+    replications) by naming its files and coding its records.
     """
+
+    study_file: str = _STUDY  # the fingerprint
+    log_file: str = _LOG  # the append-only log, one record per finished replication
+    final_file: str = "summary.json"  # written at the end: its presence means results
 
     def __init__(self, path: str | Path, scenario: Scenario, seed: int) -> None:
         self.path = Path(path)
-        self.fingerprint = scenario_fingerprint(scenario, seed)
+        self.fingerprint = self.make_fingerprint(scenario, seed)
         self.study_id = study_id(self.fingerprint)
         self._reps = int(scenario.study.reps)
         self._labels = {spec.label for spec in scenario.designs}
 
+    def make_fingerprint(self, scenario: Scenario, seed: int) -> dict:
+        """Return what identifies the results (:func:`scenario_fingerprint`)."""
+        return scenario_fingerprint(scenario, seed)
+
+    def encode(self, result) -> dict:
+        """Return a finished replication as a record of the log."""
+        return result_to_record(result)
+
+    def decode(self, record: dict):
+        """Rebuild a finished replication from its record."""
+        return result_from_record(record)
+
     @property
     def log_path(self) -> Path:
         """The append-only replication log."""
-        return self.path / _LOG
+        return self.path / self.log_file
 
     def _check_owner(self) -> bool:
-        study = self.path / _STUDY
+        study = self.path / self.study_file
         if not study.exists():
-            if (self.path / "summary.json").exists() or self._log_has_lines():
-                raise ResultsError(f"{self.path} holds results without a study.json; "
+            if (self.path / self.final_file).exists() or self._log_has_lines():
+                raise ResultsError(f"{self.path} holds results without a {self.study_file}; "
                                    "choose another --out folder")
             return False
         try:
@@ -158,10 +175,10 @@ class ResultsFolder:
                 what = (f"scenario {saved.get('scenario')!r} with seed {saved.get('seed')}, "
                         f"not scenario {mine['scenario']!r} with seed {mine['seed']}")
             else:
-                key = _first_difference({"settings": saved.get("settings", {}),
-                                         "data_files": saved.get("data_files", {})},
-                                        {"settings": mine["settings"],
-                                         "data_files": mine["data_files"]})
+                key = _first_difference({k: v for k, v in saved.items()
+                                         if k not in ("scenario", "seed")},
+                                        {k: v for k, v in mine.items()
+                                         if k not in ("scenario", "seed")})
                 key = key.removeprefix("settings.")
                 what = f"scenario {mine['scenario']!r} with other settings ({key} differs)"
             raise ResultsError(f"{self.path} holds a study of {what}; choose another --out "
@@ -173,13 +190,13 @@ class ResultsFolder:
         self.path.mkdir(parents=True, exist_ok=True)
         ours = self._check_owner()
         if not ours:
-            write_atomic(self.path / _STUDY, dumps(self.fingerprint))
+            write_atomic(self.path / self.study_file, dumps(self.fingerprint))
         if not resume or not self.log_path.exists():
             write_atomic(self.log_path, "")
             return []
         lines = list(self._valid_lines())
         records = _latest(((n, record) for n, _, record in lines), self.log_path, self._labels,
-                          self.study_id)
+                          self.study_id, self.decode)
         # Rewrite the log without a torn last line, so new lines append cleanly.
         write_atomic(self.log_path, "".join(line + "\n" for _, line, _ in lines))
         return records
@@ -206,11 +223,11 @@ class ResultsFolder:
     def read(self) -> list[ReplicationResult]:
         """Return the saved replications (a torn last line from a kill is skipped)."""
         return _latest(((n, record) for n, _, record in self._valid_lines()), self.log_path,
-                       self._labels, self.study_id)
+                       self._labels, self.study_id, self.decode)
 
     def append(self, result: ReplicationResult) -> None:
         """Append one finished replication, flushed and fsynced."""
-        record = {**result_to_record(result), "study": self.study_id, "reps": self._reps}
+        record = {**self.encode(result), "study": self.study_id, "reps": self._reps}
         line = dumps(record, compact=True)
         with open(self.log_path, "a", encoding="utf-8") as stream:
             stream.write(line + "\n")

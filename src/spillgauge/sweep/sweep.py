@@ -144,8 +144,13 @@ def parse_vary(text: str) -> SweepAxis:
     key, spec = (part.strip() for part in text.split("="))
     kind = _field_type(key)
     if kind is None:
-        raise ScenarioError("--vary", "KEY=... with KEY a numeric scenario key (one of "
-                            + ", ".join(valid_keys()) + ")", text)
+        import difflib
+
+        close = difflib.get_close_matches(key, valid_keys(), n=1)
+        hint = f"; did you mean {close[0]}?" if close else ""
+        raise ScenarioError("--vary", "KEY=... with KEY a numeric scenario key, such as "
+                            "pools.stock_cover or design.<label>.block_hours (every number "
+                            f"key of docs/scenario.md{hint})", text)
     if not spec:
         raise ScenarioError("--vary", _SYNTAX, text)
     if ":" in spec:
