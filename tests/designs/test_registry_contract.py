@@ -38,6 +38,7 @@ VARIANTS = [{"kind": name} for name in KINDS] + [
     {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "did"},
     {"kind": "regional_launch", "launch_day": 3, "pools": 2, "choose": "random",
      "estimator": "pre_post"},
+    {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "synthetic_did"},
 ] + [{"kind": name, "inference": "randomization", "permutations": 19}
      for name, kind in KINDS.items() if any(k.name == "inference" for k in kind.keys)] + [
     {"kind": "cluster", "exposure": "neighbourhood", "inference": "randomization",
@@ -55,7 +56,7 @@ def _id(table: dict) -> str:
 def market():
     scenario = make_scenario(
         users={"count": 240, "orders_per_week": 4.0, "history_days": 7},
-        pools={"count": 8, "stock_cover": 1.2}, calendar={"days": 8},
+        pools={"count": 12, "stock_cover": 1.2}, calendar={"days": 8},
         graph={"model": "pool_blocks", "mean_degree": 6},
         effect={"lift": 0.3, "peer_lift": 0.1},
         design=[{"kind": "user"}])

@@ -33,6 +33,7 @@ from spillgauge.estimators.rollout import (
     staggered_difference_in_differences,
     two_way_fixed_effects_period_weights,
 )
+from spillgauge.estimators.synthetic_did import synthetic_difference_in_differences
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -68,4 +69,5 @@ __all__ = [
     "pre_post_difference",
     "launch_difference_in_differences",
     "synthetic_control",
+    "synthetic_difference_in_differences",
 ]
