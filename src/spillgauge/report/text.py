@@ -25,6 +25,11 @@ def market_text(scenario, market: dict) -> str:
     lines += [
         f"calendar    {cal.days} days of {cal.n_ticks} ticks ({cal.tick_hours} h each), "
         f"diurnal amplitude {cal.diurnal_amplitude:g}",
+        f"demand      trend {cal.trend_per_week:+.1%} a week; daily shocks (log SD, AR(1)) "
+        f"market-wide {cal.daily_shock_sd:g} ({cal.daily_shock_autocorrelation:g}), per pool "
+        f"{scenario.pools.shock_sd:g} ({scenario.pools.shock_autocorrelation:g}); "
+        f"{scenario.pools.factor_count} shared pool factor(s), step SD "
+        f"{scenario.pools.factor_sd:g}",
         f"users       {market['users']:,}, {market['orders_per_user_week']:.2f} orders per user "
         "per week on average",
         f"pools       {market['pools']:,} ({users_per_pool['min']}-{users_per_pool['max']} users "
