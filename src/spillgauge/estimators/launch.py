@@ -21,7 +21,7 @@ from spillgauge.estimators._inference import (
     check_common_inputs,
     degenerate_estimate,
 )
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, LaunchDiagnostic
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -294,9 +294,12 @@ def synthetic_control(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         post = float(np.sqrt(np.mean(gaps[n_pre:] ** 2)))
         return post / pre if pre > 0 else math.inf
 
-    point = point_of(series, users, launched)
-    variance, n_placebos = placebo_variance(point_of, series, users, launched)
+    gaps, pre_rmspe = _synthetic_gaps(series, users, launched, n_pre)
+    point = float(gaps[n_pre:].mean()) * n_post
+    variance, _ = placebo_variance(point_of, series, users, launched)
     estimate = build_estimate(point, variance, confidence=confidence, method=method,
                               n_units=int(series.shape[0]))
     p_value = placebo_rank_p_value(ratio_of, series, users, launched)
-    return replace(estimate, p_value=float(p_value))
+    fit = LaunchDiagnostic(pre_rmspe=pre_rmspe,
+                           post_rmspe=float(np.sqrt(np.mean(gaps[n_pre:] ** 2))))
+    return replace(estimate, p_value=float(p_value), diagnostic=fit)

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import replace
 
 import numpy as np
 
@@ -26,13 +27,14 @@ from spillgauge.estimators._inference import (
     check_static,
     degenerate_estimate,
 )
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, LaunchDiagnostic
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
 __all__ = ["propensity_covariates", "fit_propensity", "matching_att", "ipw_att", "aipw_att",
            "propensity_score_matching", "inverse_probability_weighting",
            "augmented_inverse_probability_weighting", "standardized_mean_differences",
+           "balance_and_overlap",
            "CALIPER_SD"]
 
 CALIPER_SD = 0.2  # caliper in SDs of the logit of the propensity score (Austin 2011)
@@ -157,6 +159,53 @@ def aipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
     return tau, float(math.sqrt(max(cov[0, 0], 0.0)))
 
 
+def _match_on_score(score: np.ndarray, t: np.ndarray, caliper_sd: float):
+    """Return (matched treated users, their controls, controls by score, sorted scores)."""
+    caliper = caliper_sd * float(np.sqrt((score[t].var(ddof=1) + score[~t].var(ddof=1)) / 2))
+    controls = np.flatnonzero(~t)
+    order = controls[np.argsort(score[controls], kind="stable")]
+    sorted_score = score[order]
+    treated_users = np.flatnonzero(t)
+    right = np.clip(np.searchsorted(sorted_score, score[treated_users]), 0, order.size - 1)
+    left = np.clip(right - 1, 0, order.size - 1)
+    values = score[treated_users]
+    position = np.where(np.abs(values - sorted_score[left])
+                        <= np.abs(sorted_score[right] - values), left, right)
+    inside = np.abs(values - sorted_score[position]) <= caliper
+    return treated_users[inside], order[position[inside]], order, sorted_score
+
+
+def balance_and_overlap(history: np.ndarray, treated: np.ndarray, covariates: np.ndarray, *,
+                        adjustment: str) -> LaunchDiagnostic:
+    """Return the balance of pre-period orders and the overlap of an opt-in's arms.
+
+    ``smd_before`` is :func:`standardized_mean_differences` of ``history``;
+    ``smd_after`` the same after the adjustment (``"matching"``: matched opted-in
+    users against their controls, counted as often as used; ``"weighting"``:
+    controls weighted by the odds ``p / (1 - p)``), over the same unadjusted pooled
+    SD, so only the means move (Austin 2009; ``|SMD| < 0.1`` is the usual rule,
+    common practice). ``off_support_share``: opted-in users whose fitted score is
+    outside the others' range; ``unmatched_share``: opted-in users matching leaves
+    out (NaN unless ``"matching"``).
+    """
+    history = np.asarray(history, float)
+    t = np.asarray(treated, bool)
+    _, p = fit_propensity(t, np.asarray(covariates, float))
+    off_support = float(np.mean((p[t] > p[~t].max()) | (p[t] < p[~t].min())))
+    before = standardized_mean_differences(history, t) if np.ptp(history) > 0 else math.nan
+    scale = math.sqrt((history[t].var(ddof=1) + history[~t].var(ddof=1)) / 2)
+    unmatched = after = math.nan
+    if adjustment == "matching":
+        matched, match, _, _ = _match_on_score(np.log(p / (1 - p)), t, CALIPER_SD)
+        unmatched = 1.0 - matched.size / t.sum()
+        if scale > 0 and matched.size:
+            after = float((history[matched].mean() - history[match].mean()) / scale)
+    elif scale > 0:
+        after = standardized_mean_differences(history, t, weights=np.where(t, 1.0, p / (1 - p)))
+    return LaunchDiagnostic(smd_before=before, smd_after=after, off_support_share=off_support,
+                            unmatched_share=unmatched)
+
+
 def matching_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray, *,
                  caliper_sd: float = CALIPER_SD) -> tuple[float, float, int]:
     """Return the ATT by nearest-neighbour matching on the logit propensity score.
@@ -175,21 +224,7 @@ def matching_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarra
     y, t, x = np.asarray(outcome, float), np.asarray(treated, bool), np.asarray(covariates, float)
     _, p = fit_propensity(t, x)
     score = np.log(p / (1 - p))
-    caliper = caliper_sd * float(np.sqrt((score[t].var(ddof=1) + score[~t].var(ddof=1)) / 2))
-    controls = np.flatnonzero(~t)
-    order = controls[np.argsort(score[controls], kind="stable")]
-    sorted_score = score[order]
-
-    def nearest(values: np.ndarray) -> np.ndarray:
-        right = np.clip(np.searchsorted(sorted_score, values), 0, order.size - 1)
-        left = np.clip(right - 1, 0, order.size - 1)
-        pick_left = np.abs(values - sorted_score[left]) <= np.abs(sorted_score[right] - values)
-        return np.where(pick_left, left, right)
-
-    treated_users = np.flatnonzero(t)
-    position = nearest(score[treated_users])
-    inside = np.abs(score[treated_users] - sorted_score[position]) <= caliper
-    treated_users, match = treated_users[inside], order[position[inside]]
+    treated_users, match, order, sorted_score = _match_on_score(score, t, caliper_sd)
     n1 = treated_users.size
     if n1 < 2:
         raise ValueError("fewer than two treated users have a control inside the caliper")
@@ -236,17 +271,19 @@ def _panel_arrays(panel: OutcomePanel, schedule: AssignmentSchedule, confidence:
     return confidence, panel.user_fulfilled().astype(float), treated, covariates
 
 
-def _run(method, panel, schedule, confidence, function) -> Estimate:
+def _run(method, panel, schedule, confidence, function, adjustment) -> Estimate:
     confidence, y, t, x = _panel_arrays(panel, schedule, confidence, method)
     n = int(y.size)
     if t.sum() < 2 or (~t).sum() < 2:
         return degenerate_estimate(method, "fewer than two users in an arm", n_units=n)
     try:
         point, se, *rest = function(y, t, x)
+        diagnostic = balance_and_overlap(panel.history, t, x, adjustment=adjustment)
     except ValueError as exc:
         return degenerate_estimate(method, str(exc), n_units=n)
-    return build_estimate(point, se * se, confidence=confidence, method=method,
-                          n_units=rest[0] if rest else n)
+    estimate = build_estimate(point, se * se, confidence=confidence, method=method,
+                              n_units=rest[0] if rest else n)
+    return replace(estimate, diagnostic=diagnostic)
 
 
 def propensity_score_matching(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -257,13 +294,15 @@ def propensity_score_matching(panel: OutcomePanel, schedule: AssignmentSchedule,
     Covariates: :func:`propensity_covariates` of the panel's pre-period orders and
     home pools; outcome: fulfilled orders per user over the horizon.
     """
-    return _run("propensity_score_matching", panel, schedule, confidence, matching_att)
+    return _run("propensity_score_matching", panel, schedule, confidence, matching_att,
+                "matching")
 
 
 def inverse_probability_weighting(panel: OutcomePanel, schedule: AssignmentSchedule, *,
                                   confidence: float = 0.95) -> Estimate:
     """Estimate the ATT by normalised inverse probability (odds) weighting; see :func:`ipw_att`."""
-    return _run("inverse_probability_weighting", panel, schedule, confidence, ipw_att)
+    return _run("inverse_probability_weighting", panel, schedule, confidence, ipw_att,
+                "weighting")
 
 
 def augmented_inverse_probability_weighting(panel: OutcomePanel, schedule: AssignmentSchedule,
@@ -273,4 +312,4 @@ def augmented_inverse_probability_weighting(panel: OutcomePanel, schedule: Assig
     See :func:`aipw_att`.
     """
     return _run("augmented_inverse_probability_weighting", panel, schedule, confidence,
-                aipw_att)
+                aipw_att, "weighting")

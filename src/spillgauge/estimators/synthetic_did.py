@@ -11,11 +11,12 @@ user, as the other launch estimators in :mod:`spillgauge.estimators.launch`.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
 from spillgauge.estimators._inference import build_estimate, degenerate_estimate
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, LaunchDiagnostic
 from spillgauge.estimators.launch import (
     _check_inputs,
     group_series,
@@ -127,6 +128,8 @@ def synthetic_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
     placebo launches of as many pools as launched among the others, weights
     refitted each time), with a normal interval as in the paper. It assumes the
     launched pools' noise is like that of the others (homoskedastic across pools).
+    ``diagnostic`` holds the RMSPE of the launched pools' series against the
+    unit-weighted others plus the weights' intercept, before and after the launch.
     """
     method = "synthetic_difference_in_differences"
     confidence, series, users, launched, n_pre = _check_inputs(panel, schedule, confidence,
@@ -140,7 +143,14 @@ def synthetic_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
     def point_of(s: np.ndarray, u: np.ndarray, treated: np.ndarray) -> float:
         return synthetic_did_fit(s, u, treated, n_pre)[0] * n_post
 
-    point = point_of(series, users, launched)
+    tau, omega, _ = synthetic_did_fit(series, users, launched, n_pre)
     variance, _ = placebo_variance(point_of, series, users, launched)
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=int(series.shape[0]))
+    estimate = build_estimate(tau * n_post, variance, confidence=confidence, method=method,
+                              n_units=int(series.shape[0]))
+    # the fit: launched pools against omega_0 + omega' donors (the unit weights' intercept)
+    target, donors = group_series(series, users, launched), series[~launched]
+    gaps = target - omega @ donors
+    gaps = gaps - gaps[:n_pre].mean()
+    fit = LaunchDiagnostic(pre_rmspe=float(np.sqrt(np.mean(gaps[:n_pre] ** 2))),
+                           post_rmspe=float(np.sqrt(np.mean(gaps[n_pre:] ** 2))))
+    return replace(estimate, diagnostic=fit)

@@ -110,8 +110,14 @@ def not_randomized_lines(summary: dict, *, markdown: bool = False) -> list[str]:
     if markdown:
         table = ["| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
         table += ["| " + " | ".join(r) + " |" for r in rows[1:]]
-        return ["", f"## {title}", "", *table, "", summary.get("not_randomized", "")]
-    return ["", title + ":", *_table(rows), "", summary.get("not_randomized", "")]
+        fits = [f"- {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
+        return ["", f"## {title}", "", *table, "", summary.get("not_randomized", ""),
+                *(["", "Balance, overlap and pre-launch fit (means over replications):", "",
+                   *fits] if fits else [])]
+    fits = [f"  {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
+    return ["", title + ":", *_table(rows), "", summary.get("not_randomized", ""),
+            *(["", "Balance, overlap and pre-launch fit (means over replications):", *fits]
+              if fits else [])]
 
 
 def _table(rows: list[list[str]]) -> list[str]:
