@@ -35,16 +35,20 @@ def launch_world(*, rng: np.random.Generator, n_pools: int = 30, launched: int =
                  days: int = 28, launch_day: int = 14, choose: str = "random",
                  users_per_pool: int = 120, rate_per_user_day: float = 0.4,
                  trend_per_day: float = 0.0, market_shock_sd: float = 0.0,
-                 pool_shock_sd: float = 0.05, factor_sd: float = 0.0, lift: float = 0.0
-                 ) -> tuple[OutcomePanel, object, float]:
+                 pool_shock_sd: float = 0.05, factor_sd: float = 0.0, lift: float = 0.0,
+                 level_cv: float = 0.5) -> tuple[OutcomePanel, object, float]:
     """Draw one regional launch; return (panel, schedule, truth).
+
+    Per-user levels ``r_p`` are Gamma with mean ``rate_per_user_day`` and
+    coefficient of variation ``level_cv`` (equal when 0).
 
     ``truth`` is the expected effect on the launched pools given the world's
     shocks: the user-weighted mean over launched pools of ``lift`` times their
     expected post-launch orders per user (0 under the null).
     """
     users = rng.integers(users_per_pool // 2, 3 * users_per_pool // 2, n_pools)
-    level = rng.gamma(4.0, rate_per_user_day / 4.0, n_pools)
+    level = (rng.gamma(level_cv ** -2, rate_per_user_day * level_cv ** 2, n_pools)
+             if level_cv > 0 else np.full(n_pools, rate_per_user_day))
     common = (1 + trend_per_day) ** np.arange(days)
     if market_shock_sd > 0:
         common = common * ar1_paths(1, days, rho=0.5, sd=market_shock_sd, rng=rng)[0]

@@ -19,6 +19,7 @@ from scipy import optimize
 from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
+    cr2_arm_difference,
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate, LaunchDiagnostic
@@ -102,9 +103,12 @@ def launch_difference_in_differences(panel: OutcomePanel, schedule: AssignmentSc
 
     ``(mean_launched D_p - mean_other D_p) x post days``, user-weighted, with
     ``D_p`` each pool's after-minus-before change: the two-way fixed-effects
-    estimate of a single launch date (Angrist & Pischke 2009, ch. 5). SE:
-    pools as clusters (Bertrand, Duflo & Mullainathan 2004), Welch's combination
-    of the two groups with Welch-Satterthwaite degrees of freedom.
+    estimate of a single launch date (Angrist & Pischke 2009, ch. 5). SE: pools
+    as clusters (Bertrand, Duflo & Mullainathan 2004) with the CR2 variance and
+    Bell-McCaffrey degrees of freedom of a difference of two user-weighted means
+    (:func:`~spillgauge.estimators._inference.cr2_arm_difference`; Bell &
+    McCaffrey 2002, Imbens & Kolesar 2016), which keep their level with few
+    launched pools of unequal size.
     """
     method = "launch_difference_in_differences"
     confidence, series, users, launched, n_pre = _check_inputs(panel, schedule, confidence,
@@ -114,13 +118,12 @@ def launch_difference_in_differences(panel: OutcomePanel, schedule: AssignmentSc
     g1, g0 = int(launched.sum()), int((~launched).sum())
     if g1 < 2 or g0 < 2:
         return degenerate_estimate(method, "fewer than two pools in a group", n_units=g1 + g0)
-    point = (_weighted_mean(change[launched], users[launched])
-             - _weighted_mean(change[~launched], users[~launched])) * n_post
-    v1 = _cluster_variance(change[launched], users[launched])
-    v0 = _cluster_variance(change[~launched], users[~launched])
-    df = (v1 + v0) ** 2 / (v1 ** 2 / (g1 - 1) + v0 ** 2 / (g0 - 1)) if v1 + v0 > 0 else g1 - 1
-    return build_estimate(point, (v1 + v0) * n_post ** 2, confidence=confidence, method=method,
-                          n_units=g1 + g0, df=df)
+    mean1 = _weighted_mean(change[launched], users[launched])
+    mean0 = _weighted_mean(change[~launched], users[~launched])
+    residual_sums = users * (change - np.where(launched, mean1, mean0))
+    variance, df = cr2_arm_difference(residual_sums, users, launched)
+    return build_estimate((mean1 - mean0) * n_post, variance * n_post ** 2,
+                          confidence=confidence, method=method, n_units=g1 + g0, df=df)
 
 
 PLACEBO_SETS = 200  # placebo launches per estimate (Arkhangelsky et al. 2021 use 200 too)
