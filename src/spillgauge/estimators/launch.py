@@ -174,7 +174,7 @@ def simplex_least_squares(matrix: np.ndarray, rhs: np.ndarray, *, ridge: float =
     n = matrix.shape[1]
     scale = max(float(np.abs(matrix).max(initial=0.0)), float(np.abs(rhs).max(initial=0.0)),
                 math.sqrt(ridge), 1e-12)
-    penalty = 1e4 * scale * math.sqrt(matrix.shape[0] + 1)
+    penalty = 1e4 * scale * math.sqrt(matrix.shape[0])
     rows = [matrix, math.sqrt(ridge) * np.eye(n)] if ridge > 0 else [matrix]
     stacked = np.vstack([*rows, np.full(n, penalty)])
     target = np.concatenate([rhs, np.zeros(n if ridge > 0 else 0), [penalty]])
