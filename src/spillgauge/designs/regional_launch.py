@@ -65,7 +65,8 @@ class RegionalLaunch(DesignKind):
                "the effect on the launched pools after the launch")
     keys = (
         DesignKey(name="pools", type=int, default=5, minimum=1, maximum=10_000,
-                  doc="how many pools launch (at least 3 others must stay off)"),
+                  doc="how many pools launch (at least 3 others must stay off; synthetic "
+                      "control and synthetic DiD need `pools.count >= 2 x pools + 2`)"),
         DesignKey(name="choose", type=str, default="largest", choices=LAUNCH_CHOICES,
                   doc="which pools: `\"largest\"`, `\"smallest\"` (by expected demand) or "
                       "`\"random\"`"),
