@@ -64,7 +64,7 @@ def _cmd_truth(args) -> int:
 
         print(dumps({"scenario": scenario.name, "seed": seed, **truth.to_dict()}))
     else:
-        print(truth_text(scenario.name, seed, truth))
+        print(truth_text(scenario.name, seed, truth, scenario.study.outcome))
     return 0
 
 

@@ -11,7 +11,22 @@ from __future__ import annotations
 import math
 import numbers
 
-__all__ = ["format_number", "format_percent", "format_value", "format_cell", "format_quantity"]
+__all__ = ["format_number", "format_percent", "format_value", "format_cell", "format_quantity",
+           "OUTCOME_UNITS", "outcome_unit"]
+
+# What one unit of each ``[study] outcome`` is, per user over the horizon, in words.
+OUTCOME_UNITS = {"orders": "fulfilled orders per user", "conversion":
+                 "share of users with a fulfilled order", "revenue": "revenue per user"}
+
+
+def outcome_unit(summary: dict) -> str:
+    """Return the unit of a study summary's outcome in words (orders for older summaries).
+
+    >>> outcome_unit({"scenario_settings": {"study": {"outcome": "revenue"}}})
+    'revenue per user'
+    """
+    outcome = summary.get("scenario_settings", {}).get("study", {}).get("outcome", "orders")
+    return OUTCOME_UNITS.get(outcome, outcome)
 
 
 def format_number(x: float, *, sign: bool = False) -> str:

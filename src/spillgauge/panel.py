@@ -41,6 +41,19 @@ class OutcomePanel:
     fulfilled_total, demanded_total : ndarray of int, shape (n_users,), optional
         Each user's orders fulfilled and placed over the horizon; summed from the
         daily tables when not given, required when those are None.
+    outcome_total : ndarray, shape (n_users,), optional
+        Each user's outcome over the horizon, the quantity the estimators analyse
+        (``[study] outcome``): fulfilled orders (the default, ``fulfilled_total``
+        itself), revenue (orders x the user's basket value) or conversion (1 when
+        the user had at least one fulfilled order).
+    outcome_days : ndarray, shape (n_users, n_days), optional
+        The outcome's flow per user and day: orders, revenue, or 1 on the day of
+        the user's first fulfilled order (so a prefix of days sums to the outcome
+        over those days); defaults to ``fulfilled``.
+    pool_outcome : ndarray, shape (n_pools, n_ticks), optional
+        The outcome's flow per pool tick summed over the pool's users (conversion:
+        users whose first fulfilled order fell in the tick); defaults to
+        ``pool_fulfilled``.
     """
 
     fulfilled: np.ndarray | None
@@ -54,6 +67,9 @@ class OutcomePanel:
     tick_hours: int = 1
     fulfilled_total: np.ndarray | None = None
     demanded_total: np.ndarray | None = None
+    outcome_total: np.ndarray | None = None
+    outcome_days: np.ndarray | None = None
+    pool_outcome: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         n_users = self.pool_of_user.shape[0]
@@ -71,18 +87,29 @@ class OutcomePanel:
                     object.__setattr__(self, name, table.sum(axis=1, dtype=np.int64))
         elif self.fulfilled_total is None or self.demanded_total is None:
             raise ValueError("fulfilled_total and demanded_total are needed without daily tables")
-        for name in ("fulfilled_total", "demanded_total"):
+        if self.outcome_total is None:  # the orders themselves, or the sum of the days
+            object.__setattr__(self, "outcome_total", self.fulfilled_total
+                               if self.outcome_days is None else self.outcome_days.sum(axis=1))
+        for name, default in (("outcome_days", self.fulfilled),
+                              ("pool_outcome", self.pool_fulfilled)):
+            if getattr(self, name) is None:
+                object.__setattr__(self, name, default)
+        if (self.outcome_days is None) != (self.fulfilled is None):
+            raise ValueError("outcome_days must be given exactly when fulfilled is")
+        for name in ("fulfilled_total", "demanded_total", "outcome_total"):
             if getattr(self, name).shape != (n_users,):
                 raise ValueError(f"{name} must have shape (n_users,)")
+        if self.fulfilled is not None and self.outcome_days.shape != self.fulfilled.shape:
+            raise ValueError("outcome_days must have the shape of fulfilled")
         if self.pool_of_user.shape != (n_users,) or self.history.shape != (n_users,):
             raise ValueError("pool_of_user and history must have shape (n_users,)")
         shape = self.pool_fulfilled.shape
-        for name in ("pool_demanded", "pool_lost", "pool_stock"):
+        for name in ("pool_demanded", "pool_lost", "pool_stock", "pool_outcome"):
             if getattr(self, name).shape != shape:
                 raise ValueError(f"{name} must have the shape of pool_fulfilled {shape}")
         for name in ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
                      "pool_demanded", "pool_lost", "pool_stock", "fulfilled_total",
-                     "demanded_total"):
+                     "demanded_total", "outcome_total", "outcome_days", "pool_outcome"):
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, read_only_view(getattr(self, name)))
 
@@ -116,6 +143,14 @@ class OutcomePanel:
     def user_fulfilled(self) -> np.ndarray:
         """Return each user's fulfilled orders over the horizon, shape ``(n_users,)``."""
         return self.fulfilled_total.astype(float)
+
+    def user_outcome(self) -> np.ndarray:
+        """Return each user's outcome over the horizon as floats, shape ``(n_users,)``.
+
+        This is what the estimators analyse; with the default outcome (orders) it
+        equals :meth:`user_fulfilled`.
+        """
+        return self.outcome_total.astype(float)
 
     def user_demanded(self) -> np.ndarray:
         """Return each user's placed orders over the horizon, shape ``(n_users,)``."""

@@ -141,4 +141,7 @@ class InterferenceTestDesign(DesignKind):
                             cluster_arm_point=test.cluster_arm.point, delta=test.delta,
                             delta_se=test.delta_se, statistic=test.statistic,
                             p_value=test.p_value, rejects=bool(test.rejects),
-                            rejects_chebyshev=bool(test.rejects_chebyshev)))
+                            rejects_chebyshev=bool(test.rejects_chebyshev)),
+                        confidence=arm.confidence, degrees_of_freedom=arm.degrees_of_freedom,
+                        control_mean=arm.control_mean, control_mean_se=arm.control_mean_se,
+                        control_covariance=arm.control_covariance)

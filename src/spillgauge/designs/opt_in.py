@@ -125,7 +125,7 @@ class OptIn(DesignKind):
               control: OutcomePanel) -> tuple[float, float]:
         """ATT: mean over opted-in users of launch minus all-control fulfilled orders;
         side effect: the same mean over users who did not opt in."""
-        gain = panel.user_fulfilled().astype(float) - control.user_fulfilled()
+        gain = panel.user_outcome() - control.user_outcome()
         opted = schedule.user_is_treated()
 
         def mean(values: np.ndarray) -> float:

@@ -128,8 +128,8 @@ class RegionalLaunch(DesignKind):
         """Mean over the launched pools' users of launch minus all-control fulfilled orders
         over the post-launch days; side effect: the same over the other pools' users."""
         start_day = int(schedule.period_start_ticks[1]) * panel.tick_hours // 24
-        gain = (panel.fulfilled[:, start_day:].sum(axis=1).astype(float)
-                - control.fulfilled[:, start_day:].sum(axis=1))
+        gain = (panel.outcome_days[:, start_day:].sum(axis=1).astype(float)
+                - control.outcome_days[:, start_day:].sum(axis=1))
         launched = schedule.user_is_treated(1)
 
         def mean(values: np.ndarray) -> float:

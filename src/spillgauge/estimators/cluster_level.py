@@ -2,7 +2,7 @@
 
 The units are the schedule's assignment units (``schedule.unit_of_user``); a
 unit is treated when ``schedule.is_treated[:, 0]`` says so. Each user's outcome
-is ``panel.user_fulfilled()``. Because these designs often have few clusters,
+is ``panel.user_outcome()``. Because these designs often have few clusters,
 every variance here is the CR2 (Bell & McCaffrey 2002) one, per arm, and every
 interval uses Student's t with Bell and McCaffrey's Satterthwaite-type degrees
 of freedom (Imbens & Kolesar 2016; Pustejovsky & Tipton 2018): ``G - 2`` for
@@ -21,6 +21,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -38,7 +39,7 @@ def _cluster_totals(panel: OutcomePanel, schedule: AssignmentSchedule
                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return each unit's outcome total, its number of users and whether it is treated."""
     n_units = schedule.n_units
-    totals = np.bincount(schedule.unit_of_user, weights=panel.user_fulfilled(),
+    totals = np.bincount(schedule.unit_of_user, weights=panel.user_outcome(),
                          minlength=n_units)
     sizes = np.bincount(schedule.unit_of_user, minlength=n_units)
     return totals, sizes, schedule.is_treated[:, 0].copy()
@@ -51,7 +52,7 @@ def hajek_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world (``panel.user_fulfilled()`` per user).
+        Outcomes of the world (``panel.user_outcome()`` per user).
     schedule : AssignmentSchedule
         A static schedule whose units (clusters, pools) are randomized.
     confidence : float, default 0.95
@@ -128,8 +129,10 @@ def hajek_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     residual_sums = totals - sizes * np.where(is_treated, mean_treated, mean_control)
     variance, df = cr2_arm_difference(residual_sums[has_users], sizes[has_users].astype(float),
                                       is_treated[has_users])
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_clusters, df=df)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_clusters, df=df)
+    return with_control_mean(estimate, mean_control,
+                             _control_part(residual_sums[control], sizes[control]))
 
 
 def _design_probability(schedule: AssignmentSchedule, is_treated: np.ndarray,
@@ -154,7 +157,7 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world (``panel.user_fulfilled()`` per user).
+        Outcomes of the world (``panel.user_outcome()`` per user).
     schedule : AssignmentSchedule
         A static schedule with ``randomization`` ``"complete"`` (``m`` of ``G``
         clusters treated, ``p = m / G``) or ``"bernoulli"`` (each cluster with
@@ -234,6 +237,8 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
                                       totals[~is_treated].mean())
         variance, df = cr2_arm_difference(residuals, np.ones(n_clusters), is_treated)
         variance *= (n_clusters / n_users) ** 2
+        control_variance = (_control_part(residuals[~is_treated], np.ones(n_control))
+                            * (n_clusters / n_users) ** 2)
     else:
         if n_clusters < 3:
             return degenerate_estimate(method, "fewer than 3 clusters leave no degrees of "
@@ -241,7 +246,20 @@ def horvitz_thompson_cluster(panel: OutcomePanel, schedule: AssignmentSchedule, 
                                        point=point)
         variance = (np.sum(totals[is_treated] ** 2) / p ** 2
                     + np.sum(totals[~is_treated] ** 2) / (1 - p) ** 2) / n_users ** 2
+        control_variance = np.sum(totals[~is_treated] ** 2) / (1 - p) ** 2 / n_users ** 2
         df = n_clusters - 2
-    return build_estimate(point, float(variance), confidence=confidence, method=method,
-                          n_units=n_clusters, df=df)
+    estimate = build_estimate(point, float(variance), confidence=confidence, method=method,
+                              n_units=n_clusters, df=df)
+    return with_control_mean(estimate, totals[~is_treated].sum() / (1 - p) / n_users,
+                             control_variance)
+
+
+def _control_part(residual_sums: np.ndarray, sizes: np.ndarray) -> float:
+    """Return the control arm's own term of :func:`cr2_arm_difference`: its mean's variance.
+
+    ``sum_g e_g^2 / ((1 - N_g / N_0) N_0^2)`` over the control clusters.
+    """
+    n_g = sizes.astype(float)
+    n_arm = float(n_g.sum())
+    return float(np.sum(residual_sums ** 2 / ((1.0 - n_g / n_arm) * n_arm ** 2)))
 

@@ -70,7 +70,8 @@ class LaunchDiagnostic:
 class Estimate:
     """One design's estimate of its estimand in one world.
 
-    All values are on the GTE's scale: fulfilled orders per user over the horizon.
+    All values are on the GTE's scale: the study's outcome (fulfilled orders by
+    default) per user over the horizon.
 
     Parameters
     ----------
@@ -97,6 +98,14 @@ class Estimate:
         Fisher's randomization p-value of "no effect on anyone", from re-draws of the
         design's own assignment, when the design asks for ``inference =
         "randomization"`` (NaN otherwise). ``p_value`` stays the analytic one.
+    control_mean : float
+        The estimator's estimate of the mean outcome per user over the horizon with
+        no one treated: what the relative effect divides by (NaN when the
+        estimator does not give one). See :mod:`spillgauge.estimators.relative`.
+    control_mean_se : float
+        Standard error of ``control_mean``.
+    control_covariance : float
+        Estimated covariance of ``point`` and ``control_mean`` (for the delta method).
     """
 
     point: float
@@ -110,3 +119,6 @@ class Estimate:
     p_value: float = float("nan")
     diagnostic: InterferenceDiagnostic | LaunchDiagnostic | None = None
     randomization_p_value: float = float("nan")
+    control_mean: float = float("nan")
+    control_mean_se: float = float("nan")
+    control_covariance: float = float("nan")

@@ -5,7 +5,7 @@ graph neighbourhood is treated, and in *full-control exposure* when every one is
 in control (Ugander, Karrer, Backstrom & Kleinberg 2013). ``schedule.exposure_units``
 is a sparse ``(n_users, n_units)`` matrix whose row ``i`` marks those clusters,
 ``S_i``; ``k_i = |S_i|`` is its number of non-zero entries. Outcomes are
-``panel.user_fulfilled()``. Horvitz-Thompson and Hajek estimators weight each
+``panel.user_outcome()``. Horvitz-Thompson and Hajek estimators weight each
 exposed user by its inverse exposure probability (Aronow & Samii 2017).
 """
 
@@ -25,6 +25,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -162,19 +163,25 @@ def _pair_sum(incidence: sparse.csr_array, rows: np.ndarray, values: np.ndarray,
 
 
 def _aronow_samii_variance(design: _ExposureDesign, kept: np.ndarray, exposed: tuple,
-                           values: tuple, probabilities: tuple) -> float:
-    """Conservative variance of ``(1/N) sum_i [1{E1} v1_i / pi1_i - 1{E0} v0_i / pi0_i]``."""
+                           values: tuple, probabilities: tuple) -> tuple[float, float]:
+    """Conservative variance of ``(1/N) sum_i [1{E1} v1_i / pi1_i - 1{E0} v0_i / pi0_i]``.
+
+    Returns the variance and its full-control part: the same bound for
+    ``(1/N) sum_i 1{E0} v0_i / pi0_i`` alone (the terms of the full-control users).
+    """
     (e1, e0), (v1, v0), (pi1, pi0) = exposed, values, probabilities
     rows1, rows0 = np.flatnonzero(e1 & kept), np.flatnonzero(e0 & kept)
-    variance = (_pair_sum(design.incidence, rows1, v1, pi1, design.all_treated)
-                + _pair_sum(design.incidence, rows0, v0, pi0, design.all_control))
+    control = _pair_sum(design.incidence, rows0, v0, pi0, design.all_control)
+    variance = _pair_sum(design.incidence, rows1, v1, pi1, design.all_treated) + control
     rows = np.concatenate((rows1, rows0))
     if rows.size:
         overlap = design.incidence[rows] @ design.incidence[np.flatnonzero(kept)].T
         n_overlapping = np.asarray((overlap > 0).sum(axis=1)).ravel()
         bound = np.concatenate((v1[rows1] ** 2 / pi1[rows1], v0[rows0] ** 2 / pi0[rows0]))
         variance += float(np.dot(n_overlapping, bound))
-    return variance / int(kept.sum()) ** 2
+        control += float(np.dot(n_overlapping[rows1.size:], bound[rows1.size:]))
+    scale = int(kept.sum()) ** 2
+    return variance / scale, control / scale
 
 
 def _check_inputs(panel: OutcomePanel, schedule: AssignmentSchedule, confidence: float,
@@ -192,7 +199,7 @@ def _prepare(panel: OutcomePanel, design: _ExposureDesign, method: str) -> tuple
                       "or full-control exposure and are left out of the estimand",
                       DegenerateEstimateWarning, stacklevel=3)
     e1, e0 = design.exposures()
-    return panel.user_fulfilled(), kept, (e1 & kept, e0 & kept), (pi1, pi0)
+    return panel.user_outcome(), kept, (e1 & kept, e0 & kept), (pi1, pi0)
 
 
 def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -202,7 +209,7 @@ def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule,
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world (``panel.user_fulfilled()`` per user).
+        Outcomes of the world (``panel.user_outcome()`` per user).
     schedule : AssignmentSchedule
         A static ``"bernoulli"`` or ``"complete"`` cluster schedule with
         ``exposure_units`` set.
@@ -267,9 +274,13 @@ def horvitz_thompson_exposure(panel: OutcomePanel, schedule: AssignmentSchedule,
     if n_kept == 0:
         return degenerate_estimate(method, "no user can reach both exposures", n_units=0)
     point = float((np.sum(outcome[e1] / pi1[e1]) - np.sum(outcome[e0] / pi0[e0])) / n_kept)
-    variance = _aronow_samii_variance(design, kept, (e1, e0), (outcome, outcome), (pi1, pi0))
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_kept)
+    variance, control_variance = _aronow_samii_variance(design, kept, (e1, e0),
+                                                        (outcome, outcome), (pi1, pi0))
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_kept)
+    # the control mean's own variance: the same bound over the full-control users alone
+    return with_control_mean(estimate, float(np.sum(outcome[e0] / pi0[e0]) / n_kept),
+                             control_variance)
 
 
 def hajek_exposure(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -331,7 +342,8 @@ def hajek_exposure(panel: OutcomePanel, schedule: AssignmentSchedule, *,
                                    n_units=n_kept)
     mean1 = np.sum(outcome[e1] / pi1[e1]) / np.sum(1.0 / pi1[e1])
     mean0 = np.sum(outcome[e0] / pi0[e0]) / np.sum(1.0 / pi0[e0])
-    variance = _aronow_samii_variance(design, kept, (e1, e0), (outcome - mean1, outcome - mean0),
-                                      (pi1, pi0))
-    return build_estimate(float(mean1 - mean0), variance, confidence=confidence, method=method,
-                          n_units=n_kept)
+    variance, control_variance = _aronow_samii_variance(
+        design, kept, (e1, e0), (outcome - mean1, outcome - mean0), (pi1, pi0))
+    estimate = build_estimate(float(mean1 - mean0), variance, confidence=confidence,
+                              method=method, n_units=n_kept)
+    return with_control_mean(estimate, float(mean0), control_variance)

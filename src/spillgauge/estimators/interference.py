@@ -134,11 +134,11 @@ def interference_test(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     user_arm = difference_in_means(user_panel, user_schedule, confidence=confidence)
     cluster_arm = hajek_cluster(_sub_panel(panel, members), cluster_schedule,
                                 confidence=confidence)
-    totals = np.bincount(relabelled, weights=panel.user_fulfilled()[members],
+    totals = np.bincount(relabelled, weights=panel.user_outcome()[members],
                          minlength=labels.size)
     sizes = np.bincount(relabelled, minlength=labels.size).astype(float)
     cluster_variance = _neyman_ratio_variance(totals, sizes, cluster_treated)
-    split_variance, split_df = _split_variance(panel.user_fulfilled()[users], treated[users],
+    split_variance, split_df = _split_variance(panel.user_outcome()[users], treated[users],
                                                clusters[users], labels.size)
     delta = user_arm.point - cluster_arm.point
     delta_se = math.sqrt(user_arm.standard_error ** 2 + cluster_variance + split_variance)
@@ -221,4 +221,5 @@ def _sub_panel(panel: OutcomePanel, users: np.ndarray) -> OutcomePanel:
                                     demanded=np.asarray(panel.demanded_total)[users],
                                     pool_of_user=np.unique(panel.pool_of_user[users],
                                                            return_inverse=True)[1],
-                                    history=panel.history[users], tick_hours=panel.tick_hours)
+                                    history=panel.history[users], tick_hours=panel.tick_hours,
+                                    outcome_total=np.asarray(panel.outcome_total)[users])

@@ -49,7 +49,7 @@ def pool_day_series(panel: OutcomePanel, schedule: AssignmentSchedule, method: s
     if schedule.is_treated[:, 0].any():
         raise ValueError(f"{method} needs every pool in control before the launch")
     n_units = schedule.n_units
-    daily = np.asarray(panel.pool_fulfilled, dtype=float)[:n_units]
+    daily = np.asarray(panel.pool_outcome, dtype=float)[:n_units]
     daily = daily.reshape(n_units, -1, ticks_per_day).sum(axis=2)
     users = panel.users_per_pool()[:n_units].astype(float)
     keep = users > 0

@@ -318,7 +318,7 @@ def _panel_arrays(panel: OutcomePanel, schedule: AssignmentSchedule, confidence:
     check_static(schedule, method)
     treated = schedule.user_is_treated()
     covariates = propensity_covariates(panel.history, panel.pool_of_user)
-    return confidence, panel.user_fulfilled().astype(float), treated, covariates
+    return confidence, panel.user_outcome().astype(float), treated, covariates
 
 
 def _run(method, panel, schedule, confidence, function, adjustment) -> Estimate:

@@ -20,6 +20,7 @@ from spillgauge.estimators._inference import (
     satterthwaite_df,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -82,7 +83,7 @@ def difference_in_differences(panel: OutcomePanel, schedule: AssignmentSchedule,
     period = schedule.period_of_tick()
     n_units, n_periods = schedule.n_units, schedule.n_periods
     totals = np.zeros((n_units, n_periods))
-    np.add.at(totals.T, period, np.asarray(panel.pool_fulfilled, dtype=float)[:n_units].T)
+    np.add.at(totals.T, period, np.asarray(panel.pool_outcome, dtype=float)[:n_units].T)
     users = panel.users_per_pool()[:n_units].astype(float)
     keep = users > 0
     treated = schedule.is_treated[keep]
@@ -110,11 +111,19 @@ def difference_in_differences(panel: OutcomePanel, schedule: AssignmentSchedule,
     np.add.at(scores, pool_index, design * (weights * residuals)[:, None])
     meat = scores.T @ scores
     factor = n_pools / (n_pools - 1) * (n_obs - 1) / (n_obs - n_params)
-    variance = float((bread @ meat @ bread)[-1, -1]) * factor
+    covariance = bread @ meat @ bread * factor
+    variance = float(covariance[-1, -1])
     scale = float(schedule.n_ticks)
-    return build_estimate(float(coefficients[-1]) * scale, variance * scale ** 2,
-                          confidence=confidence, method=method, n_units=n_pools,
-                          df=n_pools - 1)
+    estimate = build_estimate(float(coefficients[-1]) * scale, variance * scale ** 2,
+                              confidence=confidence, method=method, n_units=n_pools,
+                              df=n_pools - 1)
+    # the fitted all-control level: the weighted mean of a_p + g_k over every pool-period,
+    # a linear contrast of the coefficients with the same cluster-robust covariance
+    contrast = weights @ design / weights.sum()
+    contrast[-1] = 0.0
+    return with_control_mean(estimate, float(contrast @ coefficients) * scale,
+                             float(contrast @ covariance @ contrast) * scale ** 2,
+                             float((covariance @ contrast)[-1]) * scale ** 2)
 
 
 def _pool_period_rates(panel: OutcomePanel, schedule: AssignmentSchedule
@@ -124,7 +133,7 @@ def _pool_period_rates(panel: OutcomePanel, schedule: AssignmentSchedule
     period = schedule.period_of_tick()
     n_units, n_periods = schedule.n_units, schedule.n_periods
     totals = np.zeros((n_units, n_periods))
-    np.add.at(totals.T, period, np.asarray(panel.pool_fulfilled, dtype=float)[:n_units].T)
+    np.add.at(totals.T, period, np.asarray(panel.pool_outcome, dtype=float)[:n_units].T)
     users = panel.users_per_pool()[:n_units].astype(float)
     keep = users > 0
     rates = totals[keep] / (users[keep][:, None] * lengths[None, :])
@@ -267,8 +276,21 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
             parts.append((extrapolation, effects.size - 1.0))
             variance += extrapolation
     df = satterthwaite_df(parts) if len(parts) > 1 else parts[0][1]
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_pools, df=df)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_pools, df=df)
+    # The control mean is the horizon's counterfactual level the point is scaled by: the
+    # not-yet-switched pools' rate in each identified period, the baseline's rate in the
+    # others, so point / control mean = sum_k L_k tau_k / sum_k L_k Ybar_off,k. Its pool
+    # contributions phi_p (residuals about each mean) give its variance and covariance
+    # with the point by the same linearization over pools.
+    phi = np.zeros(n_pools)
+    for (k, on, _), length, level in zip(maps, used_lengths, levels):
+        off = ~on
+        phi[off] += length * users[off] / users[off].sum() * (rates[off, k] - level)
+    if missing_hours > 0:
+        phi += missing_hours * users / users.sum() * (rates[:, 0] - missing_level)
+    return with_control_mean(estimate, control_orders + missing_hours * missing_level,
+                             factor * float(phi @ phi), factor * float(psi @ phi))
 
 
 def two_way_fixed_effects_period_weights(is_treated: np.ndarray, users: np.ndarray,

@@ -25,6 +25,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -70,7 +71,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     ----------
     panel : OutcomePanel
         Outcomes of the world; the unit-tick outcome is the sum of
-        ``panel.pool_fulfilled`` over the unit's pools divided by its users.
+        ``panel.pool_outcome`` over the unit's pools divided by its users.
     schedule : AssignmentSchedule
         A schedule over time blocks with ``unit_kind`` ``"market"`` (one unit, all
         users) or ``"pool"`` (unit ``u`` is pool ``u``, so
@@ -156,7 +157,7 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     """
     method = "switchback_difference"
     confidence = _check_inputs(panel, schedule, confidence, burn_in_ticks, method)
-    fulfilled = np.asarray(panel.pool_fulfilled, dtype=float)
+    fulfilled = np.asarray(panel.pool_outcome, dtype=float)
     if schedule.unit_kind == "market":
         unit_totals = fulfilled.sum(axis=0, keepdims=True)
         unit_users = np.array([panel.n_users], dtype=float)
@@ -226,8 +227,11 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         variance += factor * float(np.sum(psi ** 2))
         parts.append((factor * expected, factor ** 2 * spread))
     df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
-    return build_estimate(point, variance, confidence=confidence, method=method,
-                          n_units=n_blocks, df=df)
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_blocks, df=df)
+    # the control blocks' rate per user over the horizon; its variance is the second arm's term
+    return with_control_mean(estimate, float(np.sum(count * np.nan_to_num(rates[1]))),
+                             factor * float(np.sum(psi ** 2)))
 
 
 def _block_correction(users_used: np.ndarray, arm_users: np.ndarray, share: np.ndarray,

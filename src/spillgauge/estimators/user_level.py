@@ -18,6 +18,7 @@ from spillgauge.estimators._inference import (
     neyman_variance,
 )
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -43,8 +44,9 @@ def _neyman_difference(values: np.ndarray, is_treated: np.ndarray, *, confidence
     if treated.size < 2 or control.size < 2:
         return degenerate_estimate(method, "an arm has a single user, so its variance is "
                                    "undefined", n_units=n_users, point=point)
-    return build_estimate(point, neyman_variance(treated, control), confidence=confidence,
-                          method=method, n_units=n_users)
+    estimate = build_estimate(point, neyman_variance(treated, control), confidence=confidence,
+                              method=method, n_units=n_users)
+    return with_control_mean(estimate, control.mean(), np.var(control, ddof=1) / control.size)
 
 
 def difference_in_means(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -54,7 +56,7 @@ def difference_in_means(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world; each user's outcome is ``panel.user_fulfilled()``,
+        Outcomes of the world; each user's outcome is ``panel.user_outcome()``,
         fulfilled orders over the whole horizon.
     schedule : AssignmentSchedule
         A static schedule (one period) for the same users; a user is treated when
@@ -99,7 +101,7 @@ def difference_in_means(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     """
     method = "difference_in_means"
     confidence = _check_inputs(panel, schedule, confidence, method)
-    return _neyman_difference(panel.user_fulfilled(), schedule.user_is_treated(),
+    return _neyman_difference(panel.user_outcome(), schedule.user_is_treated(),
                               confidence=confidence, method=method)
 
 
@@ -110,7 +112,7 @@ def regression_adjusted_difference(panel: OutcomePanel, schedule: AssignmentSche
     Parameters
     ----------
     panel : OutcomePanel
-        Outcomes of the world; the outcome is ``panel.user_fulfilled()`` and the
+        Outcomes of the world; the outcome is ``panel.user_outcome()`` and the
         covariate is ``panel.history`` (orders before the experiment).
     schedule : AssignmentSchedule
         A static schedule (one period) for the same users.
@@ -162,7 +164,7 @@ def regression_adjusted_difference(panel: OutcomePanel, schedule: AssignmentSche
     """
     method = "regression_adjusted_difference"
     confidence = _check_inputs(panel, schedule, confidence, method)
-    outcome = panel.user_fulfilled()
+    outcome = panel.user_outcome()
     history = np.asarray(panel.history, dtype=float)
     if outcome.size and np.any(history != history[0]):
         centred = history - history.mean()

@@ -121,6 +121,10 @@ def study_context(study: str | Path, assignment: Assignment) -> dict:
                             f"{assignment.scenario_name!r} (same market, calendar and effect; "
                             f"this one is of {saved.get('scenario')!r} or other settings)",
                             str(study))
+    outcome = saved.get("settings", {}).get("study", {}).get("outcome", "orders")
+    if outcome != "orders":
+        raise ScenarioError("--study", "a study of orders (analyze reads orders; this study's "
+                            f"study.outcome is {outcome!r})", str(study))
     label = assignment.spec.label
     designs = {d.get("label"): d for d in summary.get("designs", [])}
     spec = [d for d in saved.get("settings", {}).get("design", []) if d.get("label") == label]

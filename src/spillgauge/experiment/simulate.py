@@ -58,8 +58,15 @@ def simulate_experiment(scenario: Scenario, design: str | DesignSpec, *,
 
     Parameters are those of :func:`~spillgauge.experiment.assignment.assign_design`;
     the world is replication 0 of ``spillgauge run --seed seed``, bit for bit.
+    Its files hold orders (what ``analyze`` reads), so the scenario's
+    ``study.outcome`` must be ``"orders"``.
     """
+    from spillgauge.errors import ScenarioError
     from spillgauge.market.build import build_market
+
+    if scenario.study.outcome != "orders":
+        raise ScenarioError("study.outcome", '"orders" for simulate (its files hold orders, '
+                            "which analyze reads)", scenario.study.outcome)
     from spillgauge.worlds.engine import simulate_worlds
 
     seed = scenario.study.seed if seed is None else seed

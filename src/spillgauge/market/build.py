@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import os
 import tempfile
@@ -27,7 +28,7 @@ from spillgauge.scenario import Scenario
 from spillgauge.scenario.config import CLUSTER_SOURCES
 from spillgauge.seeding import MARKET, stream
 
-__all__ = ["Market", "build_market", "CLUSTER_SOURCES"]
+__all__ = ["Market", "build_market", "draw_basket_values", "CLUSTER_SOURCES"]
 
 _CACHE: OrderedDict = OrderedDict()
 _CACHE_SIZE = 4
@@ -77,6 +78,11 @@ class Market:
     def rate_per_hour(self) -> np.ndarray:
         """Each user's base demand rate, orders per hour, shape ``(n_users,)``."""
         return self.population.rate_per_hour
+
+    @property
+    def basket_value(self) -> np.ndarray:
+        """Value of each of a user's fulfilled orders, shape ``(n_users,)``."""
+        return self.population.basket_value
 
     @property
     def n_ticks(self) -> int:
@@ -181,6 +187,7 @@ def _cache_dir() -> Path | None:
 
 
 _COMMUNITIES = 2  # market stream key of community detection (0, 1: population, graph)
+_BASKET_VALUES = 3  # market stream key of the users' basket values (drawn only when sd > 0)
 
 
 def _cached_communities(adjacency: sparse.csr_array, *, resolution: float, seed: int
@@ -242,6 +249,26 @@ def _read_communities(path: Path, key: str, n_users: int) -> np.ndarray | None:
     return labels
 
 
+def draw_basket_values(users, n_users: int, seed: int) -> np.ndarray:
+    """Return each user's basket value: ``users.basket_value_mean`` for all, or lognormal.
+
+    With ``basket_value_sd = s > 0`` and mean ``m`` the values are lognormal with
+    ``sigma^2 = log(1 + s^2 / m^2)`` and ``mu = log(m) - sigma^2 / 2``, so their mean
+    is ``m`` and their SD ``s`` (Johnson, Kotz & Balakrishnan 1994, ch. 14), drawn
+    on the market's own basket stream: a scenario without a spread draws nothing.
+
+    >>> from spillgauge.scenario.config import Users
+    >>> draw_basket_values(Users(basket_value_mean=2.5), 3, 0).tolist()
+    [2.5, 2.5, 2.5]
+    """
+    mean, sd = float(users.basket_value_mean), float(users.basket_value_sd)
+    if sd == 0:
+        return np.full(n_users, mean)
+    sigma2 = np.log1p((sd / mean) ** 2)
+    rng = np.random.default_rng(stream(seed, None, MARKET, _BASKET_VALUES))
+    return rng.lognormal(np.log(mean) - sigma2 / 2, np.sqrt(sigma2), size=n_users)
+
+
 def build_market(scenario: Scenario, seed: int | None = None) -> Market:
     """Build (or fetch from the cache) the market of a scenario.
 
@@ -269,6 +296,9 @@ def build_market(scenario: Scenario, seed: int | None = None) -> Market:
     population_rng, graph_rng = (np.random.default_rng(s)
                                  for s in stream(seed, None, MARKET).spawn(2))
     population = build_population(scenario, rng=population_rng)
+    if population.basket_value is None:
+        population = dataclasses.replace(population, basket_value=draw_basket_values(
+            scenario.users, population.n_users, seed))
     spec = scenario.graph
     n = population.n_users
     if spec.model == "none" or spec.mean_degree == 0:

@@ -24,6 +24,7 @@ HOURS_PER_WEEK = 168.0
 _MAX_ORDERS_PER_WEEK = 10_000.0    # bounds on CSV values keep every count far from int64 overflow
 _MAX_HISTORY_ORDERS = 1e7
 _MAX_STOCK = 1e12
+_MAX_BASKET_VALUE = 1e9
 
 
 def _check_unique(columns: "CsvColumns", column: str, field: str) -> None:
@@ -54,6 +55,10 @@ class Population:
         Orders placed in the pre-period.
     order_up_to : ndarray of int, shape (n_pools,)
         Stock level S each pool is restocked to.
+    basket_value : ndarray of float, shape (n_users,), or None
+        Value of each of the user's fulfilled orders (the users file's
+        ``basket_value`` column); None until the market draws it from
+        ``users.basket_value_mean`` and ``basket_value_sd``.
     """
 
     user_ids: np.ndarray
@@ -62,6 +67,7 @@ class Population:
     rate_per_hour: np.ndarray
     history: np.ndarray
     order_up_to: np.ndarray
+    basket_value: np.ndarray | None = None
 
     @property
     def n_users(self) -> int:
@@ -233,7 +239,7 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
     """
     check_rng(rng)
     users, pools = scenario.users, scenario.pools
-    pool_ids, order_up_to = None, None
+    pool_ids, order_up_to, basket_value = None, None, None
     if pools.file is not None:
         columns = read_csv_columns(pools.file, required=("pool_id",), optional=("order_up_to",),
                                    field="pools.file")
@@ -249,8 +255,8 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
             order_up_to = levels.astype(np.int64)
     if users.file is not None:
         columns = read_csv_columns(users.file, required=("user_id", "pool_id"),
-                                   optional=("orders_per_week", "history_orders"),
-                                   field="users.file")
+                                   optional=("orders_per_week", "history_orders",
+                                             "basket_value"), field="users.file")
         if "orders_per_week" not in columns and "history_orders" not in columns:
             raise ScenarioError("users.file:orders_per_week", "a column of the CSV file (or give "
                                 "history_orders to estimate rates from the pre-period)",
@@ -269,6 +275,9 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
                                 f"{ids[k][:40]!r})", "a pool_id listed in pools.file",
                                 home[k][:40])
         pool_of_user = np.array([lookup[p] for p in home.tolist()], dtype=np.int64)
+        if "basket_value" in columns:
+            basket_value = _numbers(columns, "basket_value", "users.file", ids=ids,
+                                    maximum=_MAX_BASKET_VALUE)
         if "orders_per_week" in columns:
             rate = _numbers(columns, "orders_per_week", "users.file", ids=ids,
                             maximum=_MAX_ORDERS_PER_WEEK) / HOURS_PER_WEEK
@@ -301,10 +310,13 @@ def build_population(scenario: Scenario, *, rng: np.random.Generator) -> Populat
     order = np.argsort(pool_of_user, kind="stable")
     user_ids, pool_of_user, rate, history = (a[order] for a in (user_ids, pool_of_user, rate,
                                                                  history))
+    if basket_value is not None:
+        basket_value = basket_value[order]
     if users.file is None:
         user_ids = np.arange(user_ids.size)
     if order_up_to is None:
         order_up_to = order_up_to_levels(rate, pool_of_user, n_pools, pools.stock_cover,
                                          pools.restock_every_hours)
     return Population(user_ids=user_ids, pool_ids=pool_ids, pool_of_user=pool_of_user,
-                      rate_per_hour=rate, history=history, order_up_to=order_up_to)
+                      rate_per_hour=rate, history=history, order_up_to=order_up_to,
+                      basket_value=basket_value)

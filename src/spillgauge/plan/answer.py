@@ -14,7 +14,8 @@ def _candidates(rows: list[dict]) -> list[dict]:
     return [r for r in rows if r["recommendable"]]
 
 
-def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
+def answer_plan(rows: list[dict], *, power: float, horizon_days: int,
+                unit: str = "orders per user") -> str:
     """Return the shortest duration at which a trusted design reaches ``power``, in a sentence.
 
     Among the designs the recommendation may choose, a duration qualifies when a
@@ -44,7 +45,7 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
                     f"per user over {d} days) with power {format_percent(best['power'])} "
                     f"\u00b1 {format_percent(best['power_se'])} against the {power:.0%} "
                     f"target; its minimum detectable effect at {power:.0%} power is "
-                    f"{format_number(best['mde'])} orders per user "
+                    f"{format_number(best['mde'])} {unit} "
                     f"({format_percent(best['mde_relative'])} of the control mean).{note}")
     trusted = [r for r in rows if r["trusted"] and math.isfinite(r["mde"])]
     if not trusted:
@@ -58,13 +59,14 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int) -> str:
     return (f"No trusted design reaches {power:.0%} power {within}; the highest power of a "
             f"trusted design is {format_percent(most['power'])} ({most['label']} at "
             f"{most['days']} days). The smallest effect detectable at {power:.0%} power is "
-            f"{format_number(best['mde'])} orders per user "
+            f"{format_number(best['mde'])} {unit} "
             f"({format_percent(best['mde_relative'])} of the control mean) with "
             f"{best['label']} at {best['days']} days, against the scenario's effect of "
             f"{format_number(best['gte'])}.")
 
 
-def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: float) -> str:
+def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: float,
+                 unit: str = "orders per user") -> str:
     """Return how much regression adjustment on the pre-period would shorten the test.
 
     The projection keeps ``1 - rho^2`` of the plain user-level design's variance
@@ -116,7 +118,7 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
     else:
         reach = f"{label} would not reach {power:.0%} power even with it"
     return (f"{lead}: {reach}, and its minimum detectable effect at {at['days']} days would "
-            f"fall from {format_number(at['mde'])} to {format_number(mde)} orders per user.")
+            f"fall from {format_number(at['mde'])} to {format_number(mde)} {unit}.")
 
 
 def answer_variants(rows: list[dict]) -> str:

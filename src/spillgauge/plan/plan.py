@@ -17,6 +17,7 @@ from spillgauge.designs.registry import kind_of
 from spillgauge.errors import ScenarioError
 from spillgauge.files import dumps, json_safe, write_atomic
 from spillgauge.market.build import build_market
+from spillgauge.formatting import OUTCOME_UNITS
 from spillgauge.plan.answer import answer_cuped, answer_plan, answer_variants
 from spillgauge.plan.replication import run_plan_replications
 from spillgauge.plan.summary import cuped_rows, plan_rows
@@ -107,9 +108,13 @@ class PlanResult:
 
     def answer(self) -> str:
         """Return the plan's answer: the shortest duration, the design, or what is detectable."""
-        text = answer_plan(self.rows, power=self.power, horizon_days=self.scenario.calendar.days)
+        outcome = self.scenario.study.outcome  # the MDE is in the study's outcome
+        unit = "orders per user" if outcome == "orders" else OUTCOME_UNITS[outcome]
+        text = answer_plan(self.rows, power=self.power, horizon_days=self.scenario.calendar.days,
+                           unit=unit)
         variants = answer_variants(self.rows)
-        cuped = answer_cuped(self.rows, self.cuped, power=self.power, alpha=self.alpha)
+        cuped = answer_cuped(self.rows, self.cuped, power=self.power, alpha=self.alpha,
+                             unit=unit)
         return " ".join(part for part in (text, variants, cuped) if part)
 
     def plot_power(self, ax=None):

@@ -46,7 +46,9 @@ def first_days_of_panel(panel: OutcomePanel, days: int) -> OutcomePanel:
                         pool_fulfilled=panel.pool_fulfilled[:, :ticks],
                         pool_demanded=panel.pool_demanded[:, :ticks],
                         pool_lost=panel.pool_lost[:, :ticks],
-                        pool_stock=panel.pool_stock[:, :ticks], tick_hours=panel.tick_hours)
+                        pool_stock=panel.pool_stock[:, :ticks], tick_hours=panel.tick_hours,
+                        outcome_days=panel.outcome_days[:, :days],
+                        pool_outcome=panel.pool_outcome[:, :ticks])
 
 
 def first_ticks_of_schedule(schedule: AssignmentSchedule, n_ticks: int) -> AssignmentSchedule:

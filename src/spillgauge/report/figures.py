@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from spillgauge.formatting import OUTCOME_UNITS
 from spillgauge.report._canvas import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
 from spillgauge.report._canvas import TRUTH_COLOUR as _TRUTH
 from spillgauge.report._canvas import axes_or_new as _axes
@@ -35,7 +36,9 @@ __all__ = ["FIGURE_DPI", "FIGURE_SIZE_PX", "PALETTE", "STOCK_DAYS", "figure_name
            "plot_estimates", "plot_bias_sd", "plot_stock", "plot_switchback", "save_figures"]
 
 _BAND = "#BBBBBB"
-_UNITS = "fulfilled orders per user over the horizon"
+def _units(study) -> str:
+    """The study's outcome unit over the horizon, for axis labels."""
+    return OUTCOME_UNITS[study.scenario.study.outcome] + " over the horizon"
 
 
 def _labels(study) -> list[str]:  # randomized designs (launches: launch_figures.py)
@@ -96,7 +99,7 @@ def plot_estimates(study, ax=None):
     for tick, (_, _, colour) in zip(ax.get_yticklabels(), rows):
         tick.set_color(colour)
     ax.set_ylim(len(rows) - 0.4, -0.6)
-    ax.set_xlabel(f"estimate of the GTE ({_UNITS})")
+    ax.set_xlabel(f"estimate of the GTE ({_units(study)})")
     ax.set_title("Estimates against the true effect: the gap from a design's diamond to "
                  "the dashed line is its drift", fontsize=11)
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=3, fontsize=9,
@@ -212,7 +215,7 @@ def plot_bias_sd(study, ax=None):
         ax.scatter([], [], s=60, marker="D", color="#dddddd", edgecolors="#777777",
                    linewidths=2, label="diagnostic")
     ax.scatter([], [], s=200, facecolors="none", edgecolors=_TRUTH, label="recommended")
-    ax.set_xlabel(f"bias: mean of estimate - GTE ({_UNITS})")
+    ax.set_xlabel(f"bias: mean of estimate - GTE ({_units(study)})")
     ax.set_ylabel("SD of the estimates (same units)")
     ax.set_title("Bias against noise: the nearer the origin, the more accurate "
                  "(bars: +-2 Monte Carlo SE)", fontsize=11)

@@ -12,7 +12,7 @@ import base64
 import html
 from pathlib import Path
 
-from spillgauge.formatting import format_quantity
+from spillgauge.formatting import format_quantity, outcome_unit
 from spillgauge.scenario.config import settings_in_use
 from spillgauge.statistics.trust import few_replications_note
 
@@ -73,7 +73,11 @@ _COLUMNS = (("mean_estimate", "mean estimate", "{:.3f}", "mean_estimate_se"),
             ("ci_width", "CI width", "{:.3f}", None),
             ("power", "power", "{:.0%}", "power_se"),
             ("type_s", "Type S", "{:.0%}", None),
-            ("type_m", "Type M", "{:.2f}", None))
+            ("type_m", "Type M", "{:.2f}", None),
+            # the effect as a share of the design's own control mean, against the relative GTE
+            ("relative.mean_estimate", "relative effect", "{:+.1%}", "relative.mean_estimate_se"),
+            ("relative.bias", "relative-effect bias", "{:+.1%}", "relative.bias_se"),
+            ("relative.coverage", "relative CI coverage", "{:.0%}", "relative.coverage_se"))
 _STYLE = """
 body{font:15px/1.5 system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;color:#1a1a1a;
 margin:0 auto;max-width:1180px;padding:1.5rem 1.25rem 3rem}
@@ -175,10 +179,14 @@ def _market(summary: dict) -> str:
 def _truth(summary: dict) -> str:
     t = summary["truth"]
     se = t.get("gte_se")
-    lead = (f'<p class="verdict">True GTE {_e(format_quantity(t.get("gte")))} fulfilled orders per '
-            "user over the horizon" + (f" (Monte Carlo SE {_e(format_quantity(se))})" if se is not None
-                                       else "") + f", over {t['reps']:,} replications.</p>")
-    rows = [("fulfilled orders per user", "control_mean", "treated_mean", "{:.4g}"),
+    from spillgauge.report.text import gte_sentence
+
+    lead = (f'<p class="verdict">True GTE {_e(gte_sentence(t, summary))} over the horizon'
+            + (f" (Monte Carlo SE {_e(format_quantity(se))})" if se is not None
+               else "") + f", over {t['reps']:,} replications.</p>")
+    rows = [(outcome_unit(summary), "control_mean", "treated_mean", "{:.4g}"),
+            *([("fulfilled orders per user", "control_orders", "treated_orders", "{:.4g}")]
+              if outcome_unit(summary) != outcome_unit({}) else []),
             ("demanded orders per user", "control_demanded", "treated_demanded", "{:.4g}"),
             ("fill rate", "control_fill_rate", "treated_fill_rate", "{:.2%}"),
             ("lost-order share", "control_lost_share", "treated_lost_share", "{:.2%}")]
@@ -191,9 +199,11 @@ def _truth(summary: dict) -> str:
 
 
 def _cell(design: dict, key: str, template: str, se_key: str | None) -> str:
-    value = _e(format_quantity(design.get(key), template))
-    se = design.get(se_key) if se_key else None
-    if se is not None and design.get(key) is not None:
+    from spillgauge.report.text import design_value
+
+    value = _e(format_quantity(design_value(design, key), template))
+    se = design_value(design, se_key) if se_key else None
+    if se is not None and design_value(design, key) is not None:
         shown = template.replace("+", "")
         value += f' <span class="se">\u00b1{_e(format_quantity(se, shown))}</span>'
     return value
@@ -221,7 +231,10 @@ def _designs(study, summary: dict) -> str:
         classes.append("chosen" if d["label"] == chosen else "")
     alpha = study.scenario.study.alpha
     note = (f"<p>Over {summary['reps']:,} replications. Estimates, bias, SD, RMSE and CI "
-            "width are in fulfilled orders per user over the horizon; small grey numbers are "
+            f"width are in {_e(outcome_unit(summary))} over the horizon; the relative columns "
+            "give each replication's effect as a share of the design's own estimate of the "
+            "control mean, with a delta-method interval, against the relative GTE; small grey "
+            "numbers are "
             f"Monte Carlo standard errors. A design is trusted when its {1 - alpha:.0%} "
             "confidence interval covers the GTE nearly as often as promised and its bias is "
             "small against its noise. "
@@ -266,7 +279,9 @@ def _recommendation(study, summary: dict) -> str:
         opening = '<div class="box ok"><p class="verdict">'
     t = summary["truth"]
     se = t.get("gte_se")
-    gte = (f"True GTE {_e(format_quantity(t.get('gte')))} fulfilled orders per user over the "
+    from spillgauge.report.text import gte_sentence
+
+    gte = (f"True GTE {_e(gte_sentence(t, summary))} over the "
            "horizon" + (f" (Monte Carlo SE {_e(format_quantity(se))})" if se is not None else "")
            + f", over {summary['reps']:,} replications.")
     content = (f"{opening}{_e(verdict)}</p><p class=\"lead\">{_e(rec['reason'])}</p>"

@@ -13,7 +13,7 @@ import base64
 import html
 from pathlib import Path
 
-from spillgauge.formatting import format_value
+from spillgauge.formatting import OUTCOME_UNITS, format_value
 from spillgauge.report.figures import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
 from spillgauge.report.html import CAUTION, STYLE
 
@@ -43,7 +43,8 @@ def _colour(index: int) -> str:
     return PALETTE[index % len(PALETTE)]
 
 
-def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: float | None = None):
+def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: float | None = None,
+                      unit: str = "orders per user"):
     """Draw one metric of every design along a swept key, with Monte Carlo error bars.
 
     Parameters
@@ -116,7 +117,7 @@ def plot_sweep_metric(sweep_frame, key: str, metric: str, ax=None, *, alpha: flo
         ax.set_xticks(values)
         ax.set_xticklabels([format_value(v) for v in values])
     ax.set_xlabel(key)
-    ax.set_ylabel(_METRIC_NAMES.get(metric, metric))
+    ax.set_ylabel(_METRIC_NAMES.get(metric, metric).replace("orders per user", unit))
     name = _METRIC_NAMES.get(metric, metric).split(" (")[0]
     ax.set_title(f"{name[0].upper() + name[1:]} by {key}\n"
                  "bars: ±1 Monte Carlo SE; hollow marker: design not trusted; "
@@ -186,7 +187,10 @@ def save_sweep_figures(sweep, out: str | Path) -> list[Path]:
     out.mkdir(parents=True, exist_ok=True)
     frame = sweep.frame()
     keys = [axis.key for axis in sweep.axes]
-    jobs = ([(f"sweep_{m}.png", lambda ax, m=m: plot_sweep_metric(frame, keys[0], m, ax))
+    outcome = sweep.scenario.study.outcome
+    unit = "orders per user" if outcome == "orders" else OUTCOME_UNITS[outcome]
+    jobs = ([(f"sweep_{m}.png", lambda ax, m=m: plot_sweep_metric(frame, keys[0], m, ax,
+                                                                  unit=unit))
              for m in ("bias", "rmse", "coverage")] if len(keys) == 1 else
             [("sweep_grid.png", lambda ax: plot_recommendation_grid(frame, keys[0], keys[1],
                                                                     ax))])

@@ -3,16 +3,35 @@
 from __future__ import annotations
 
 from spillgauge.statistics.trust import few_replications_note
-from spillgauge.formatting import format_cell
+from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit
 
-__all__ = ["market_text", "truth_text", "study_text", "study_markdown", "design_rows",
+__all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
            "interference_lines", "launch_rows", "not_randomized_lines"]
 
 _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
             ("mean_estimate", "estimate", "{:.3f}"), ("bias", "bias", "{:+.3f}"),
             ("relative_bias", "rel.bias", "{:+.0%}"), ("sd", "SD", "{:.3f}"),
             ("rmse", "RMSE", "{:.3f}"), ("coverage", "coverage", "{:.0%}"),
-            ("power", "power", "{:.0%}")]
+            ("power", "power", "{:.0%}"),
+            # the effect as a share of the control mean, against the relative GTE
+            ("relative.mean_estimate", "rel.effect", "{:+.1%}"),
+            ("relative.bias", "rel.eff.bias", "{:+.1%}"),
+            ("relative.coverage", "rel.cov", "{:.0%}")]
+
+
+def design_value(design: dict, key: str) -> object:
+    """Return a design entry's value at ``key`` (``"relative.bias"`` reads a nested entry)."""
+    head, _, rest = key.partition(".")
+    value = design.get(head)
+    return (value or {}).get(rest) if rest else value
+
+
+def gte_sentence(truth: dict, summary: dict) -> str:
+    """Return "true GTE x <unit> (+y% of the control mean z)" for a summary's truth."""
+    relative = truth.get("gte_relative")
+    share = (f", {relative:+.1%} of the control mean {format_number(truth['control_mean'])}"
+             if relative is not None else "")
+    return f"{truth['gte']:.4f} {outcome_unit(summary)}{share}"
 
 
 def market_text(scenario, market: dict) -> str:
@@ -54,21 +73,30 @@ def market_text(scenario, market: dict) -> str:
     lines.append(f"clusters    {clusters}")
     lines.append("effect      lift {0.lift:+g}, peer lift {0.peer_lift:+g}, carryover half-life "
                  "{0.carryover_half_life_hours:g} h".format(scenario.effect))
+    if scenario.study.outcome != "orders":
+        users = scenario.users
+        basket = (f", basket value mean {users.basket_value_mean:g}, SD {users.basket_value_sd:g}"
+                  + (" (or the users file's basket_value)" if users.file else "")
+                  if scenario.study.outcome == "revenue" else "")
+        lines.append(f"outcome     {scenario.study.outcome}: "
+                     f"{OUTCOME_UNITS[scenario.study.outcome]}{basket}")
     lines.append("designs     " + ", ".join(d.label for d in scenario.designs))
     return "\n".join(lines)
 
 
-def truth_text(name: str, seed: int, truth) -> str:
-    """Describe the truth for ``spillgauge truth``."""
+def truth_text(name: str, seed: int, truth, outcome: str = "orders") -> str:
+    """Describe the truth for ``spillgauge truth`` (``outcome``: the scenario's study.outcome)."""
     t = truth
+    unit = outcome_unit({"scenario_settings": {"study": {"outcome": outcome}}})
     se = "n/a (one replication)" if t.gte_se != t.gte_se else f"{t.gte_se:.4f}"
-    rows = [("fulfilled orders / user", t.control_mean, t.treated_mean, "{:.4f}"),
+    rows = [("fulfilled orders / user", t.control_orders, t.treated_orders, "{:.4f}"),
             ("demanded orders / user", t.control_demanded, t.treated_demanded, "{:.4f}"),
             ("fill rate", t.control_fill_rate, t.treated_fill_rate, "{:.2%}"),
             ("lost-order share", t.control_lost_share, t.treated_lost_share, "{:.2%}")]
     lines = [f"scenario {name}: {t.reps} replications, seed {seed}", "",
-             f"GTE = {t.gte:.4f} fulfilled orders per user over the horizon "
-             f"(Monte Carlo SE {se})", "",
+             f"GTE = {t.gte:.4f} {unit} over the horizon (Monte Carlo SE {se}); "
+             f"{format_cell('{:+.2%}', t.gte_relative)} of the control mean "
+             f"{format_number(t.control_mean)}", "",
              f"{'':<26}{'all control':>14}{'all treated':>14}"]
     for label, c, tr, template in rows:
         lines.append(f"{label:<26}{format_cell(template, c):>14}{format_cell(template, tr):>14}")
@@ -86,7 +114,7 @@ def design_rows(summary: dict) -> list[list[str]]:
     rows = [[header for _, header, _ in _COLUMNS]]
     for design in summary["designs"]:
         if design.get("is_randomized", True):
-            rows.append([format_cell(template, design.get(key))
+            rows.append([format_cell(template, design_value(design, key))
                          for key, _, template in _COLUMNS])
     return rows
 
@@ -138,7 +166,7 @@ def study_text(study) -> str:
     se = truth.get("gte_se")
     lines = [f"scenario {summary['scenario']}: {summary['reps']} replications, "
              f"seed {summary['seed']}",
-             f"true GTE {truth['gte']:.4f} orders per user"
+             f"true GTE {gte_sentence(truth, summary)}"
              + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
     if len(design_rows(summary)) > 1:
         lines += _table(design_rows(summary))
@@ -178,7 +206,9 @@ def study_markdown(study) -> str:
     rows = design_rows(summary)
     lines = [f"# {summary['scenario']}: which randomization unit?", "",
              f"{summary['reps']} replications, seed {summary['seed']}. True GTE "
-             f"**{truth['gte']:.4f}** fulfilled orders per user over the horizon.", "",
+             f"**{gte_sentence(truth, summary)}** over the horizon. The last three "
+             "columns give the effect as a share of each design's own control mean "
+             "(delta-method interval) against the relative GTE.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
     for line in interference_lines(study):  # a paragraph each, after a blank line ending the table

@@ -194,7 +194,9 @@ def plot_switchback(study, ax=None):
                  "daily demand rhythm and stock, not a lag")
     ax.set_xlabel("hours since a switch (start of a block whose arm changed)"
                   + (f"; points average {bin_ticks * tick_hours} h" if bin_ticks > 1 else ""))
-    ax.set_ylabel("treated - control fulfilled orders\nper 1,000 users per hour")
+    flow = {"orders": "fulfilled orders", "revenue": "revenue",
+            "conversion": "first conversions"}[study.scenario.study.outcome]
+    ax.set_ylabel(f"treated - control {flow}\nper 1,000 users per hour")
     ax.set_title(title + "\n(band: \u00b12 Monte Carlo SE over replications)", fontsize=10.5)
     ax.legend(fontsize=8.5, framealpha=0.9, loc="best")
     ax.grid(color="#EEEEEE")

@@ -14,6 +14,7 @@ from spillgauge.errors import ScenarioError
 from spillgauge.scenario.keys import check as _check
 
 __all__ = [
+    "OUTCOMES",
     "GRAPH_MODEL_KEYS",
     "settings_in_use",
     "Calendar",
@@ -29,6 +30,7 @@ __all__ = [
 ]
 
 _STOCKOUT_RULES = ("lost", "substitute")
+OUTCOMES = ("orders", "conversion", "revenue")  # what the study measures per user
 CLUSTER_SOURCES = ("pools", "graph", "pools+graph")  # the clusterings a market offers
 _GRAPH_MODELS = ("none", "small_world", "pool_blocks", "communities", "edge_list")
 # The [graph] keys each model reads (besides `model`); the others are ignored.
@@ -98,10 +100,16 @@ class Users:
     orders_per_week: float = 2.0
     rate_shape: float = 2.0
     history_days: int = 14
+    basket_value_mean: float = 1.0
+    basket_value_sd: float = 0.0
     file: str | None = None
 
     def __post_init__(self) -> None:
         _check(1 <= self.count <= 10**10, "users.count", "an int in [1, 1e10]", self.count)
+        _check(0 < self.basket_value_mean <= 1e9, "users.basket_value_mean", "in (0, 1e9]",
+               self.basket_value_mean)
+        _check(0 <= self.basket_value_sd <= 1e9, "users.basket_value_sd", "in [0, 1e9]",
+               self.basket_value_sd)
         _check(0 < self.orders_per_week <= 10_000, "users.orders_per_week", "in (0, 10000]",
                self.orders_per_week)
         _check(0.001 <= self.rate_shape <= 1e6, "users.rate_shape", "in [0.001, 1e6]",
@@ -215,8 +223,11 @@ class Study:
     reps: int = 200
     seed: int = 0
     alpha: float = 0.05
+    outcome: str = "orders"
 
     def __post_init__(self) -> None:
+        _check(self.outcome in OUTCOMES, "study.outcome", "one of " + ", ".join(
+            f'"{o}"' for o in OUTCOMES), self.outcome)
         _check(1 <= self.reps <= 1_000_000, "study.reps", "an int in [1, 1000000]", self.reps)
         _check(0 <= self.seed < 2**63, "study.seed", "an int in [0, 2**63)", self.seed)
         _check(0 < self.alpha < 1, "study.alpha", "in (0, 1)", self.alpha)

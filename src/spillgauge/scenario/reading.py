@@ -174,6 +174,10 @@ def load_scenario(path: str | Path) -> Scenario:
     return parse_scenario(data, base_dir=path.parent, source=str(path))
 
 
+_LEFT_OUT_AT_DEFAULT = (("users", "basket_value_mean", 1.0), ("users", "basket_value_sd", 0.0),
+                        ("study", "outcome", "orders"))
+
+
 def scenario_to_dict(scenario: Scenario) -> dict:
     """Return the scenario as plain data; :func:`parse_scenario` reads it back.
 
@@ -186,6 +190,11 @@ def scenario_to_dict(scenario: Scenario) -> dict:
         out[key] = {k: v for k, v in dataclasses.asdict(getattr(scenario, key)).items()
                     if v is not None}
     users = out["users"]
+    # keys added with the study's outcome are left out at their defaults, so a scenario that
+    # does not use them keeps its settings (and its results folders' fingerprints)
+    for section, key, default in _LEFT_OUT_AT_DEFAULT:
+        if out[section].get(key) == default:
+            del out[section][key]
     if "file" in users:
         for key in ("count", "orders_per_week", "rate_shape"):
             users.pop(key, None)

@@ -87,7 +87,7 @@ class Recommendation:
 
 
 def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
-              alpha: float = 0.05) -> Recommendation:
+              alpha: float = 0.05, unit: str = "orders per user") -> Recommendation:
     """Choose the randomization unit to use and explain the trade-off in numbers.
 
     Parameters
@@ -98,6 +98,8 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
         Mean GTE over the replications (orders per user).
     gte_se : float
         Its Monte Carlo standard error (NaN when unknown).
+    unit : str, default "orders per user"
+        The outcome's unit in words, for the explanation.
     alpha : float, default 0.05
         Level of the designs' confidence intervals and tests.
 
@@ -135,13 +137,13 @@ def recommend(candidates: Iterable[Candidate], *, gte: float, gte_se: float,
     ranking = tuple(c.label for c in ranked)
     trusted = [c for c in ranked if _why_not(c, alpha) is None]
     if not trusted:
-        return Recommendation(label=None, reason=_explain_none(ranked, gte, alpha),
+        return Recommendation(label=None, reason=_explain_none(ranked, gte, alpha, unit),
                               is_trustworthy=False, trusted=(), ranking=ranking)
     best = trusted[0]
     near = [c for c in trusted if c is best or c.metrics.rmse - best.metrics.rmse
             <= 2 * math.hypot(_zero_nan(c.metrics.rmse_se), _zero_nan(best.metrics.rmse_se))]
     chosen = max(near, key=lambda c: (_zero_nan(c.n_units), -c.metrics.rmse))
-    reason = _explain_choice(chosen, best, ranked, gte, gte_se, alpha)
+    reason = _explain_choice(chosen, best, ranked, gte, gte_se, alpha, unit)
     return Recommendation(label=chosen.label, reason=reason, is_trustworthy=True,
                           trusted=tuple(c.label for c in trusted), ranking=ranking)
 
@@ -172,19 +174,19 @@ def _why_not(candidate: Candidate, alpha: float) -> str | None:
                         failure_note=candidate.failure_note).reason
 
 
-def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
+def _explain_choice(chosen, best, ranked, gte, gte_se, alpha, unit) -> str:
     m = chosen.metrics
     params = ", ".join(f"{k}={v}" for k, v in chosen.params.items())
     where = f"{chosen.label}: {params}" if params else chosen.label
     gte_text = f"{format_number(gte)} ± {format_number(gte_se)}" if math.isfinite(gte_se) else format_number(gte)
     sentences = [
         f"Randomize by {chosen.unit} ({where}): over {m.n_reps} replications its bias is "
-        f"{format_number(m.bias, sign=True)} orders per user ({format_percent(m.relative_bias, sign=True)} of the "
+        f"{format_number(m.bias, sign=True)} {unit} ({format_percent(m.relative_bias, sign=True)} of the "
         f"GTE of {gte_text}), SD {format_number(m.sd)}, RMSE {format_number(m.rmse)}, CI coverage "
         f"{m.coverage:.1%} against the nominal {1 - alpha:.0%}, and power {m.power:.0%}."]
     user = next((c for c in ranked if c.is_user_level and math.isfinite(c.metrics.rmse)), None)
     if user is not None and not chosen.is_user_level:
-        sentences += _versus_user(chosen, user, gte)
+        sentences += _versus_user(chosen, user, gte, unit)
     else:
         runner_up = next((c for c in ranked if c is not chosen and math.isfinite(c.metrics.rmse)),
                          None)
@@ -206,21 +208,21 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha) -> str:
     return " ".join(sentences)
 
 
-def _versus_user(chosen, user, gte) -> list[str]:
+def _versus_user(chosen, user, gte, unit) -> list[str]:
     u, m = user.metrics, chosen.metrics
     is_biased = abs(u.bias) > 2 * _zero_nan(u.bias_se)
     if not is_biased:
         first = (f"The user-level design ({user.label}) shows no clear bias "
-                 f"({format_number(u.bias, sign=True)} ± {format_number(u.bias_se)} orders per user) but has "
+                 f"({format_number(u.bias, sign=True)} ± {format_number(u.bias_se)} {unit}) but has "
                  f"RMSE {format_number(u.rmse)} against {format_number(m.rmse)}.")
     elif u.mean_estimate != 0 and 0 < u.bias / u.mean_estimate <= 1:
         first = (f"{u.bias / u.mean_estimate:.0%} of the user-level estimate of "
-                 f"{format_number(u.mean_estimate)} is spillover: bias {format_number(u.bias, sign=True)} orders "
-                 f"per user on a GTE of {format_number(gte)} ({format_percent(u.relative_bias, sign=True)}), and its "
+                 f"{format_number(u.mean_estimate)} is spillover: bias {format_number(u.bias, sign=True)} "
+                 f"{unit} on a GTE of {format_number(gte)} ({format_percent(u.relative_bias, sign=True)}), and its "
                  f"CI covers the GTE in {u.coverage:.1%} of replications.")
     else:
         first = (f"The user-level estimate of {format_number(u.mean_estimate)} is off by "
-                 f"{format_number(u.bias, sign=True)} orders per user on a GTE of {format_number(gte)} "
+                 f"{format_number(u.bias, sign=True)} {unit} on a GTE of {format_number(gte)} "
                  f"({format_percent(u.relative_bias, sign=True)}) because of spillover, and its CI covers "
                  f"the GTE in {u.coverage:.1%} of replications.")
     sd_ratio = m.sd / u.sd if u.sd > 0 else math.inf
@@ -236,7 +238,7 @@ def _versus_user(chosen, user, gte) -> list[str]:
     return [first, second]
 
 
-def _explain_none(ranked, gte, alpha) -> str:
+def _explain_none(ranked, gte, alpha, unit) -> str:
     problems = "; ".join(f"{c.label} {_why_not(c, alpha)}" for c in ranked)
     sentences = [f"No design can be trusted at the nominal {1 - alpha:.0%} level: {problems}."]
     least_bad = next((c for c in ranked if math.isfinite(c.metrics.rmse)), None)
@@ -247,7 +249,7 @@ def _explain_none(ranked, gte, alpha) -> str:
         m = least_bad.metrics
         sentences.append(
             f"If you must run one, {least_bad.label} (by {least_bad.unit}) has the lowest RMSE, "
-            f"{format_number(m.rmse)} orders per user on a GTE of {format_number(gte)}, with bias "
+            f"{format_number(m.rmse)} {unit} on a GTE of {format_number(gte)}, with bias "
             f"{format_number(m.bias, sign=True)} and CI coverage {m.coverage:.1%}; do not take its "
             f"confidence interval at face value.")
     return " ".join(sentences)

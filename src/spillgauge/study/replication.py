@@ -10,6 +10,7 @@ import numpy as np
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning
 from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic, LaunchDiagnostic
+from spillgauge.estimators.relative import relative_effect
 from spillgauge.files import nan_from_null
 from spillgauge.market.build import Market, build_market
 from spillgauge.panel import OutcomePanel
@@ -41,6 +42,9 @@ SAMPLE_POOLS = 4  # pools whose stock paths are kept for the report
 _SAVED_FIELDS = (("estimate", "point"), ("se", "standard_error"), ("ci_low", "ci_low"),
                  ("ci_high", "ci_high"), ("n_units", "n_units"))
 _SAVED_DIAGNOSTIC = ("delta", "delta_se", "statistic", "rejects", "rejects_chebyshev")
+_SAVED_CONTROL = ("control_mean", "control_mean_se", "control_covariance", "confidence",
+                  "degrees_of_freedom")
+_SAVED_RELATIVE = ("estimate_relative", "se_relative", "ci_low_relative", "ci_high_relative")
 
 
 @dataclass(frozen=True, slots=True)
@@ -86,6 +90,9 @@ class DesignRun:
             record.update({k: float(getattr(diagnostic, k)) for k in LaunchDiagnostic.__slots__})
         if not np.isnan(self.estimate.randomization_p_value):  # only designs that ask for it
             record["randomization_p_value"] = self.estimate.randomization_p_value
+        if not np.isnan(self.estimate.control_mean):  # estimators that give a control mean
+            record.update({name: getattr(self.estimate, name) for name in _SAVED_CONTROL})
+            record.update(zip(_SAVED_RELATIVE, relative_effect(self.estimate)))
         return record
 
     @classmethod
@@ -106,7 +113,8 @@ class DesignRun:
         estimate = Estimate(**{name: values[saved] for saved, name in _SAVED_FIELDS},
                             method="", diagnostic=diagnostic,
                             randomization_p_value=values.get("randomization_p_value",
-                                                             float("nan")))
+                                                             float("nan")),
+                            **{name: values.get(name, float("nan")) for name in _SAVED_CONTROL})
         return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]),
                    note=note, truth=values.get("truth", float("nan")),
                    left_out_effect=values.get("left_out_effect", float("nan")))
@@ -134,7 +142,10 @@ class ReplicationResult:
             rows.append({"replication": self.replication, "label": label,
                          **{saved: record[saved] for saved, _ in _SAVED_FIELDS},
                          "gte": self.truth.gte,
-                         "truth": record.get("truth", self.truth.gte)})
+                         "truth": record.get("truth", self.truth.gte),
+                         **{k: record.get(k, float("nan")) for k in
+                            ("estimate_relative", "ci_low_relative", "ci_high_relative")},
+                         "gte_relative": self.truth.gte_relative})
         return rows
 
 

@@ -15,7 +15,9 @@ import warnings
 import numpy as np
 
 from spillgauge.designs.registry import kind_of
+from spillgauge.estimators.relative import relative_effect
 from spillgauge.files import json_safe, nan_from_null
+from spillgauge.formatting import outcome_unit
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
 from spillgauge.estimators.estimate import InterferenceDiagnostic, LaunchDiagnostic
@@ -66,6 +68,11 @@ class DesignSummary:
         For a launch: the means over replications of its analysis's balance,
         overlap or pre-launch fit (:class:`~spillgauge.estimators.estimate.LaunchDiagnostic`
         fields that were measured); empty otherwise.
+    relative : DesignMetrics or None
+        The same metrics for the effect as a share of the control mean: each
+        replication's ``estimate_relative`` (with its delta-method interval) against
+        that replication's ``gte_relative``; None when the design's estimator gives
+        no control mean.
     """
 
     label: str
@@ -84,6 +91,7 @@ class DesignSummary:
     is_randomized: bool = True
     question: str = "the global treatment effect (GTE)"
     launch_fit: dict = field(default_factory=dict)
+    relative: DesignMetrics | None = None
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
@@ -98,6 +106,8 @@ class DesignSummary:
                 entry["fit_note"] = launch_fit_sentence(self.label, self.launch_fit)
         if self.interference is not None:
             entry["interference_test"] = json_safe(self.interference.to_dict())
+        if self.relative is not None:
+            entry["relative"] = json_safe(self.relative.to_dict())
         return entry
 
 
@@ -148,7 +158,9 @@ class StudyResult:
 
         rows = [row for rep in self.replications for row in rep.rows()]
         return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
-                                           "ci_high", "n_units", "gte", "truth"])
+                                           "ci_high", "n_units", "gte", "truth",
+                                           "estimate_relative", "ci_low_relative",
+                                           "ci_high_relative", "gte_relative"])
 
     def switch_profiles(self) -> dict:
         """Return each switchback's mean effect per user-tick by ticks since a switch."""
@@ -248,6 +260,13 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
     metrics = design_metrics(column["point"], column["standard_error"], column["ci_low"],
                              column["ci_high"], gte, alpha=alpha, outcome_scale=outcome_scale,
                              p_values=p_values)
+    relative = None
+    relatives = np.array([relative_effect(e) for e in estimates], dtype=float).reshape(-1, 4)
+    if kind.estimand == "gte" and np.isfinite(relatives[:, 0]).any():
+        truth_relative = np.array([r.truth.gte_relative for r in results], dtype=float)
+        relative = design_metrics(*relatives.T, truth_relative, alpha=alpha,
+                                  outcome_scale=float(np.nanmax(np.abs(truth_relative),
+                                                                initial=0.0)) or 1.0)
     notes = Counter(r.runs[spec.label].note for r in results if r.runs[spec.label].note)
     interference = None
     diagnostics = [e.diagnostic for e in estimates]
@@ -264,7 +283,7 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          failure_note=notes.most_common(1)[0][0] if notes else "",
                          estimand=kind.estimand, truth=float(np.mean(gte)),
                          left_out_effect=left_out, is_randomized=kind.is_randomized,
-                         question=kind.question,
+                         question=kind.question, relative=relative,
                          launch_fit=summarise_launch_fit(
                              [e.diagnostic if isinstance(e.diagnostic, LaunchDiagnostic) else None
                               for e in estimates]))
@@ -290,7 +309,9 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
                                     n_units=float(np.nanmean(randomized)), metrics=d.metrics,
                                     params=d.params, failure_note=d.failure_note))
     if candidates:
-        advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha)
+        unit = outcome_unit({"scenario_settings": {"study": {"outcome": scenario.study.outcome}}})
+        advice = recommend(candidates, gte=truth.gte, gte_se=truth.gte_se, alpha=alpha,
+                           unit="orders per user" if scenario.study.outcome == "orders" else unit)
     else:
         advice = Recommendation(label=None, reason="The scenario has no randomized design "
                                 "that can be recommended (only tests of interference or "

@@ -34,6 +34,7 @@ from spillgauge.market.calendar import (
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
+from spillgauge.worlds.outcome import outcome_tables
 from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
@@ -278,7 +279,13 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
                    None if substituted is None else substituted[w],
                    level_at_start[:, w, :], bounds, pool_tick=pool_tick,
                    pool_counts=(pool_counts[0][w], pool_counts[1][w]),
-                   user_counts=None if user_days else (user_counts[0][w], user_counts[1][w]))
+                   user_counts=None if user_days else (user_counts[0][w], user_counts[1][w]),
+                   outcome=outcome_tables(
+                       scenario.study.outcome, user=events.user, tick=events.tick,
+                       pool=events.pool, is_fulfilled=fulfilled[w],
+                       basket_value=market.population.basket_value,
+                       pool_of_user=population.pool_of_user, n_ticks=calendar.n_ticks,
+                       day_of_tick=day_of_tick(calendar) if user_days else None))
             for w in range(n_worlds)]
 
 
@@ -323,9 +330,10 @@ def _count_orders(index: np.ndarray, accepted: np.ndarray, fulfilled: np.ndarray
 def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
            fulfilled: np.ndarray, substituted: np.ndarray | None, level_at_start: np.ndarray,
            bounds: np.ndarray, *, pool_tick: np.ndarray, pool_counts: tuple,
-           user_counts: tuple | None) -> OutcomePanel:
+           user_counts: tuple | None, outcome: dict) -> OutcomePanel:
     """Return a world's panel; ``*_counts`` are its (placed, fulfilled) per pool tick and user,
-    ``user_counts`` None to keep each user's orders per day instead."""
+    ``user_counts`` None to keep each user's orders per day instead; ``outcome`` holds the
+    study's outcome tables (:func:`~spillgauge.worlds.outcome.outcome_tables`)."""
     calendar = market.scenario.calendar
     population = market.population
     n_users, n_pools, n_ticks = population.n_users, population.n_pools, calendar.n_ticks
@@ -359,4 +367,4 @@ def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
     return OutcomePanel(**users, pool_of_user=population.pool_of_user, history=population.history,
                         pool_fulfilled=pool_fulfilled, pool_demanded=pool_demanded,
                         pool_lost=pool_demanded - pool_fulfilled, pool_stock=stock,
-                        tick_hours=calendar.tick_hours)
+                        tick_hours=calendar.tick_hours, **outcome)

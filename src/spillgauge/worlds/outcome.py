@@ -1,0 +1,96 @@
+"""The outcome a study analyses, tallied from one world's fulfilled order events.
+
+``[study] outcome`` chooses what the estimators see per user:
+
+- ``"orders"``: fulfilled orders (the panel's own order tables; nothing is added);
+- ``"revenue"``: fulfilled orders times the user's basket value;
+- ``"conversion"``: 1 when the user had at least one fulfilled order, else 0.
+
+Each is kept as a *flow* that sums over time to the per-user outcome: orders and
+revenue per tick; for conversion, 1 at the tick of the user's first fulfilled
+order of the horizon. So any prefix of days sums to the outcome over those days
+(conversion within the first d days), and a design that compares periods (a
+switchback block, a rollout's pool-period) sees per period the users who
+converted for the first time in it, per user: summed over the horizon, the
+share of users who converted.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["outcome_tables"]
+
+
+def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np.ndarray,
+                   is_fulfilled: np.ndarray, basket_value: np.ndarray | None,
+                   pool_of_user: np.ndarray, n_ticks: int, day_of_tick: np.ndarray | None
+                   ) -> dict:
+    """Return the outcome's tables of one world as :class:`OutcomePanel` keyword arguments.
+
+    Parameters
+    ----------
+    outcome : {"orders", "revenue", "conversion"}
+    user, tick, pool : ndarray of int, shape (n_events,)
+        Each order event's user, tick and (home) pool.
+    is_fulfilled : ndarray of bool, shape (n_events,)
+        Whether the world fulfilled the event.
+    basket_value : ndarray of float, shape (n_users,), or None
+        Each user's order value (needed for revenue).
+    pool_of_user : ndarray of int, shape (n_users,)
+    n_ticks : int
+    day_of_tick : ndarray of int, shape (n_ticks,), or None
+        Day of each tick, to keep the per-user daily flow; None for totals only.
+
+    Returns
+    -------
+    dict
+        ``outcome_total`` (n_users,), ``pool_outcome`` (n_pools, n_ticks) and, with
+        ``day_of_tick``, ``outcome_days`` (n_users, n_days); empty for orders.
+
+    Examples
+    --------
+    Two users in one pool over three ticks (one tick a day); user 0's orders at
+    ticks 1 and 2 are fulfilled, user 1's order at tick 0 is not:
+
+    >>> kw = dict(user=np.array([0, 0, 1]), tick=np.array([1, 2, 0]), pool=np.zeros(3, int),
+    ...           is_fulfilled=np.array([True, True, False]), basket_value=np.array([2.0, 5.0]),
+    ...           pool_of_user=np.zeros(2, int), n_ticks=3, day_of_tick=np.arange(3))
+    >>> t = outcome_tables("conversion", **kw)
+    >>> t["outcome_total"].tolist(), t["pool_outcome"].tolist(), t["outcome_days"].tolist()
+    ([1.0, 0.0], [[0.0, 1.0, 0.0]], [[0.0, 1.0, 0.0], [0.0, 0.0, 0.0]])
+    >>> outcome_tables("revenue", **kw)["outcome_total"].tolist()
+    [4.0, 0.0]
+    """
+    if outcome == "orders":
+        return {}
+    n_users, n_pools = pool_of_user.size, int(pool_of_user.max(initial=-1)) + 1
+    n_pools = max(n_pools, int(pool.max(initial=-1)) + 1)
+    done_user, done_tick = user[is_fulfilled], tick[is_fulfilled]
+    if outcome == "revenue":
+        if basket_value is None:
+            raise ValueError("revenue needs each user's basket value")
+        weight = basket_value[done_user]
+        cell = pool[is_fulfilled] * n_ticks + done_tick
+        tables = {"outcome_total": np.bincount(done_user, minlength=n_users) * basket_value}
+        flow_user, flow_tick = done_user, done_tick
+    elif outcome == "conversion":
+        first = np.full(n_users, n_ticks, dtype=np.int64)
+        np.minimum.at(first, done_user, done_tick)
+        flow_user = np.flatnonzero(first < n_ticks)
+        flow_tick = first[flow_user]
+        weight = np.ones(flow_user.size)
+        cell = pool_of_user[flow_user] * n_ticks + flow_tick
+        tables = {"outcome_total": (first < n_ticks).astype(float)}
+    else:
+        raise ValueError(f"unknown outcome {outcome!r}")
+    tables["pool_outcome"] = np.bincount(cell, weights=weight, minlength=n_pools * n_ticks
+                                         ).reshape(n_pools, n_ticks)
+    if day_of_tick is not None:
+        n_days = int(day_of_tick[-1]) + 1 if day_of_tick.size else 0
+        index = flow_user * n_days + day_of_tick[flow_tick]
+        days = np.bincount(index, minlength=n_users * n_days).reshape(n_users, n_days)
+        # revenue: each user's daily orders times the user's value (as the totals are)
+        scale = basket_value[:, None] if outcome == "revenue" else 1.0
+        tables["outcome_days"] = days * scale
+    return tables
