@@ -15,7 +15,7 @@ import pytest
 
 from spillgauge.designs.registry import KINDS, kind_of, make_design_spec
 from spillgauge.errors import DegenerateEstimateWarning
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic
 from spillgauge.market.build import build_market
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
@@ -140,8 +140,11 @@ def test_analysis_returns_a_full_estimate(market, table):
         assert round(estimate.randomization_p_value * 20, 9) in range(1, 21)
     else:
         assert math.isnan(estimate.randomization_p_value)
-    # Only a randomized design that is not recommendable is a diagnostic (test of interference).
-    assert (estimate.diagnostic is not None) == (kind.is_randomized and not kind.is_recommendable)
+    # Only a randomized design that is not recommendable is a diagnostic (test of interference);
+    # a launch may carry its balance or fit instead.
+    is_test = isinstance(estimate.diagnostic, InterferenceDiagnostic)
+    assert is_test == (kind.is_randomized and not kind.is_recommendable)
+    assert estimate.diagnostic is None or is_test or not kind.is_randomized
 
 
 @pytest.mark.parametrize("table", VARIANTS, ids=_id)

@@ -197,7 +197,7 @@ def balance_and_overlap(history: np.ndarray, treated: np.ndarray, covariates: np
     unmatched = after = math.nan
     if adjustment == "matching":
         matched, match, _, _ = _match_on_score(np.log(p / (1 - p)), t, CALIPER_SD)
-        unmatched = 1.0 - matched.size / t.sum()
+        unmatched = float(1.0 - matched.size / t.sum())
         if scale > 0 and matched.size:
             after = float((history[matched].mean() - history[match].mean()) / scale)
     elif scale > 0:
