@@ -45,6 +45,10 @@ def test_selection_on_history_without_a_pre_period_is_refused_naming_both_keys()
     ({"kind": "regional_launch", "pools": 18}, r"pools\.count"),
     ({"kind": "regional_launch", "launch_day": 28}, r"design\[0\]\.launch_day"),
     ({"kind": "regional_launch", "pools": 1, "estimator": "did"}, r"design\[0\]\.pools"),
+    ({"kind": "regional_launch", "pools": 10, "estimator": "synthetic_did"},
+     r"pools\.count must be >= 2 x design\[0\]\.pools \+ 2 = 22"),
+    ({"kind": "regional_launch", "pools": 10, "estimator": "synthetic_control"},
+     r"pools\.count must be >= 2 x design\[0\]\.pools \+ 2 = 22"),
     ({"kind": "opt_in", "take_up": 1.0}, r"design\[0\]\.take_up"),
     ({"kind": "opt_in", "estimator": "lasso"}, r"design\[0\]\.estimator"),
 ])

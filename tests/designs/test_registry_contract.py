@@ -15,7 +15,7 @@ import pytest
 
 from spillgauge.designs.registry import KINDS, kind_of, make_design_spec
 from spillgauge.errors import DegenerateEstimateWarning
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic
 from spillgauge.market.build import build_market
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
@@ -40,6 +40,7 @@ VARIANTS = [{"kind": name} for name in KINDS] + [
     {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "did"},
     {"kind": "regional_launch", "launch_day": 3, "pools": 2, "choose": "random",
      "estimator": "pre_post"},
+    {"kind": "regional_launch", "launch_day": 4, "pools": 3, "estimator": "synthetic_did"},
 ] + [{"kind": name, "inference": "randomization", "permutations": 19}
      for name, kind in KINDS.items() if any(k.name == "inference" for k in kind.keys)] + [
     {"kind": "cluster", "exposure": "neighbourhood", "inference": "randomization",
@@ -58,7 +59,7 @@ def _id(table: dict) -> str:
 def market():
     scenario = make_scenario(
         users={"count": 240, "orders_per_week": 4.0, "history_days": 7},
-        pools={"count": 8, "stock_cover": 1.2}, calendar={"days": 8},
+        pools={"count": 12, "stock_cover": 1.2}, calendar={"days": 8},
         graph={"model": "pool_blocks", "mean_degree": 6},
         effect={"lift": 0.3, "peer_lift": 0.1},
         design=[{"kind": "user"}])
@@ -142,8 +143,11 @@ def test_analysis_returns_a_full_estimate(market, table):
         assert round(estimate.randomization_p_value * 20, 9) in range(1, 21)
     else:
         assert math.isnan(estimate.randomization_p_value)
-    # Only a randomized design that is not recommendable is a diagnostic (test of interference).
-    assert (estimate.diagnostic is not None) == (kind.is_randomized and not kind.is_recommendable)
+    # Only a randomized design that is not recommendable is a diagnostic (test of interference);
+    # a launch may carry its balance or fit instead.
+    is_test = isinstance(estimate.diagnostic, InterferenceDiagnostic)
+    assert is_test == (kind.is_randomized and not kind.is_recommendable)
+    assert estimate.diagnostic is None or is_test or not kind.is_randomized
 
 
 @pytest.mark.parametrize("table", VARIANTS, ids=_id)

@@ -136,6 +136,8 @@ CASES = {
     "launch_difference_in_differences": (estimators.launch_difference_in_differences,
                                          _launch_world),
     "synthetic_control": (estimators.synthetic_control, _launch_world),
+    "synthetic_difference_in_differences": (estimators.synthetic_difference_in_differences,
+                                            _launch_world),
 }
 
 

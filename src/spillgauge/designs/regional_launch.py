@@ -23,7 +23,8 @@ __all__ = ["draw_regional_launch_schedule", "RegionalLaunch", "LAUNCH_CHOICES",
 LAUNCH_CHOICES = ("largest", "smallest", "random")
 LAUNCH_ESTIMATORS = {"pre_post": "pre_post_difference",
                      "did": "launch_difference_in_differences",
-                     "synthetic_control": "synthetic_control"}
+                     "synthetic_control": "synthetic_control",
+                     "synthetic_did": "synthetic_difference_in_differences"}
 
 
 def draw_regional_launch_schedule(pool_of_user: np.ndarray, expected_demand: np.ndarray,
@@ -57,14 +58,15 @@ def draw_regional_launch_schedule(pool_of_user: np.ndarray, expected_demand: np.
 
 
 class RegionalLaunch(DesignKind):
-    """Chosen pools launch at one date; pre/post, DiD or synthetic control against the truth."""
+    """Chosen pools launch at one date; pre/post, DiD, synthetic control or synthetic DiD."""
 
     name = "regional_launch"
     summary = ("some pools launch first, chosen (not at random), and stay on; judged against "
                "the effect on the launched pools after the launch")
     keys = (
         DesignKey(name="pools", type=int, default=5, minimum=1, maximum=10_000,
-                  doc="how many pools launch (at least 3 others must stay off)"),
+                  doc="how many pools launch (at least 3 others must stay off; synthetic "
+                      "control and synthetic DiD need `pools.count >= 2 x pools + 2`)"),
         DesignKey(name="choose", type=str, default="largest", choices=LAUNCH_CHOICES,
                   doc="which pools: `\"largest\"`, `\"smallest\"` (by expected demand) or "
                       "`\"random\"`"),
@@ -74,7 +76,8 @@ class RegionalLaunch(DesignKind):
         DesignKey(name="estimator", type=str, default="synthetic_control",
                   choices=tuple(LAUNCH_ESTIMATORS),
                   doc="`\"pre_post\"` (launched pools after vs before), `\"did\"` (difference "
-                      "in differences against the other pools) or `\"synthetic_control\"`"),
+                      "in differences against the other pools), `\"synthetic_control\"` or "
+                      "`\"synthetic_did\"` (synthetic difference in differences)"),
     )
     shown_keys = ("pools", "choose", "launch_day", "estimator")
     estimand = "launched_pools"
@@ -89,6 +92,11 @@ class RegionalLaunch(DesignKind):
               "comparison)", scenario.pools.count)
         check(spec.launch_day < scenario.calendar.days, f"{spec.at}.launch_day",
               f"< calendar.days = {scenario.calendar.days}", spec.launch_day)
+        if spec.estimator in ("synthetic_control", "synthetic_did"):
+            check(scenario.has_pools(2 * spec.pools + 2), "pools.count",
+                  f">= 2 x {spec.at}.pools + 2 = {2 * spec.pools + 2} for estimator = "
+                  f"{spec.estimator!r} (placebo launches of as many pools among the others, "
+                  "with two donors left)", scenario.pools.count)
         if spec.estimator == "pre_post" or spec.estimator == "did":
             check(spec.pools >= 2, f"{spec.at}.pools",
                   f">= 2 for estimator = {spec.estimator!r} (pools are the clusters)",

@@ -37,6 +37,7 @@ from spillgauge.estimators.stratified import (
     stratified_difference_in_means,
     stratified_regression_adjusted_difference,
 )
+from spillgauge.estimators.synthetic_did import synthetic_difference_in_differences
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
@@ -74,4 +75,5 @@ __all__ = [
     "pre_post_difference",
     "launch_difference_in_differences",
     "synthetic_control",
+    "synthetic_difference_in_differences",
 ]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["Estimate", "InterferenceDiagnostic"]
+__all__ = ["Estimate", "InterferenceDiagnostic", "LaunchDiagnostic"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -38,6 +38,35 @@ class InterferenceDiagnostic:
 
 
 @dataclass(frozen=True, slots=True)
+class LaunchDiagnostic:
+    """What the analysis of a launch shows of its own footing (NaN where it does not apply).
+
+    Parameters
+    ----------
+    smd_before, smd_after : float
+        Standardized mean difference of the users' pre-period orders between those
+        who opted in and the others, before and after matching or weighting
+        (Austin 2009; ``|SMD| < 0.1`` is the usual rule for balance).
+    off_support_share : float
+        Share of opted-in users whose propensity score lies outside the range of
+        the others' scores (no overlap).
+    unmatched_share : float
+        Share of opted-in users left out by matching (no control inside the caliper).
+    pre_rmspe, post_rmspe : float
+        Root mean squared gap between the launched pools' daily orders per user and
+        their synthetic comparison before and after the launch (Abadie, Diamond &
+        Hainmueller 2010); a post/pre ratio near 1 means no visible effect.
+    """
+
+    smd_before: float = float("nan")
+    smd_after: float = float("nan")
+    off_support_share: float = float("nan")
+    unmatched_share: float = float("nan")
+    pre_rmspe: float = float("nan")
+    post_rmspe: float = float("nan")
+
+
+@dataclass(frozen=True, slots=True)
 class Estimate:
     """One design's estimate of its estimand in one world.
 
@@ -63,8 +92,8 @@ class Estimate:
         (``inf`` for a normal interval; NaN when not stated).
     p_value : float
         Two-sided p-value of "no effect" (NaN when not computed).
-    diagnostic : InterferenceDiagnostic, optional
-        A test of interference's statistics.
+    diagnostic : InterferenceDiagnostic or LaunchDiagnostic, optional
+        A test of interference's statistics, or a launch's balance and fit.
     randomization_p_value : float
         Fisher's randomization p-value of "no effect on anyone", from re-draws of the
         design's own assignment, when the design asks for ``inference =
@@ -88,7 +117,7 @@ class Estimate:
     confidence: float = float("nan")
     degrees_of_freedom: float = float("nan")
     p_value: float = float("nan")
-    diagnostic: InterferenceDiagnostic | None = None
+    diagnostic: InterferenceDiagnostic | LaunchDiagnostic | None = None
     randomization_p_value: float = float("nan")
     control_mean: float = float("nan")
     control_mean_se: float = float("nan")

@@ -9,6 +9,7 @@ launch added over the post-launch days.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import replace
 
@@ -18,14 +19,17 @@ from scipy import optimize
 from spillgauge.estimators._inference import (
     build_estimate,
     check_common_inputs,
+    cr2_arm_difference,
     degenerate_estimate,
 )
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, LaunchDiagnostic
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
-__all__ = ["pool_day_series", "synthetic_control_weights", "pre_post_difference",
-           "launch_difference_in_differences", "synthetic_control"]
+__all__ = ["pool_day_series", "synthetic_control_weights", "simplex_least_squares",
+           "placebo_sets", "placebo_variance", "placebo_rank_p_value", "group_series",
+           "pre_post_difference", "launch_difference_in_differences", "synthetic_control",
+           "PLACEBO_SETS"]
 
 
 def pool_day_series(panel: OutcomePanel, schedule: AssignmentSchedule, method: str):
@@ -99,9 +103,12 @@ def launch_difference_in_differences(panel: OutcomePanel, schedule: AssignmentSc
 
     ``(mean_launched D_p - mean_other D_p) x post days``, user-weighted, with
     ``D_p`` each pool's after-minus-before change: the two-way fixed-effects
-    estimate of a single launch date (Angrist & Pischke 2009, ch. 5). SE:
-    pools as clusters (Bertrand, Duflo & Mullainathan 2004), Welch's combination
-    of the two groups with Welch-Satterthwaite degrees of freedom.
+    estimate of a single launch date (Angrist & Pischke 2009, ch. 5). SE: pools
+    as clusters (Bertrand, Duflo & Mullainathan 2004) with the CR2 variance and
+    Bell-McCaffrey degrees of freedom of a difference of two user-weighted means
+    (:func:`~spillgauge.estimators._inference.cr2_arm_difference`; Bell &
+    McCaffrey 2002, Imbens & Kolesar 2016), which keep their level with few
+    launched pools of unequal size.
     """
     method = "launch_difference_in_differences"
     confidence, series, users, launched, n_pre = _check_inputs(panel, schedule, confidence,
@@ -111,13 +118,69 @@ def launch_difference_in_differences(panel: OutcomePanel, schedule: AssignmentSc
     g1, g0 = int(launched.sum()), int((~launched).sum())
     if g1 < 2 or g0 < 2:
         return degenerate_estimate(method, "fewer than two pools in a group", n_units=g1 + g0)
-    point = (_weighted_mean(change[launched], users[launched])
-             - _weighted_mean(change[~launched], users[~launched])) * n_post
-    v1 = _cluster_variance(change[launched], users[launched])
-    v0 = _cluster_variance(change[~launched], users[~launched])
-    df = (v1 + v0) ** 2 / (v1 ** 2 / (g1 - 1) + v0 ** 2 / (g0 - 1)) if v1 + v0 > 0 else g1 - 1
-    return build_estimate(point, (v1 + v0) * n_post ** 2, confidence=confidence, method=method,
-                          n_units=g1 + g0, df=df)
+    mean1 = _weighted_mean(change[launched], users[launched])
+    mean0 = _weighted_mean(change[~launched], users[~launched])
+    residual_sums = users * (change - np.where(launched, mean1, mean0))
+    variance, df = cr2_arm_difference(residual_sums, users, launched)
+    return build_estimate((mean1 - mean0) * n_post, variance * n_post ** 2,
+                          confidence=confidence, method=method, n_units=g1 + g0, df=df)
+
+
+PLACEBO_SETS = 200  # placebo launches per estimate (Arkhangelsky et al. 2021 use 200 too)
+_PLACEBO_SEED = 20_210_401  # a fixed table of random sets: the same data give the same answer
+
+
+def placebo_sets(n_units: int, size: int, *, count: int = PLACEBO_SETS) -> np.ndarray:
+    """Return sets of ``size`` of ``n_units`` units for placebo launches, shape ``(n, size)``.
+
+    Every set when there are at most ``count`` of them (in lexicographic order);
+    otherwise ``count`` sets drawn uniformly from a fixed seed, so an estimator
+    that uses them stays a deterministic function of its data.
+
+    >>> placebo_sets(4, 2).tolist()
+    [[0, 1], [0, 2], [0, 3], [1, 2], [1, 3], [2, 3]]
+    >>> placebo_sets(40, 5).shape
+    (200, 5)
+    """
+    if math.comb(n_units, size) <= count:
+        return np.array(list(itertools.combinations(range(n_units), size)),
+                        dtype=np.int64).reshape(-1, size)
+    rng = np.random.default_rng(_PLACEBO_SEED)
+    return np.sort(np.argsort(rng.random((count, n_units)), axis=1)[:, :size], axis=1)
+
+
+def simplex_least_squares(matrix: np.ndarray, rhs: np.ndarray, *, ridge: float = 0.0
+                          ) -> np.ndarray:
+    """Return ``w >= 0``, ``sum w = 1`` minimising ``||matrix w - rhs||^2 + ridge ||w||^2``.
+
+    Parameters
+    ----------
+    matrix : ndarray, shape (n_rows, n_weights)
+    rhs : ndarray, shape (n_rows,)
+    ridge : float
+        Non-negative ridge penalty on the weights.
+
+    Notes
+    -----
+    Non-negative least squares (Lawson & Hanson 1974; ``scipy.optimize.nnls``) on
+    the rows ``[matrix; sqrt(ridge) I]``, with the sum-to-one constraint as a heavily
+    weighted extra row, then rescaled to sum exactly to 1.
+
+    >>> simplex_least_squares(np.eye(2), np.array([1.0, 1.0])).round(9).tolist()
+    [0.5, 0.5]
+    """
+    matrix = np.asarray(matrix, dtype=float)
+    rhs = np.asarray(rhs, dtype=float)
+    n = matrix.shape[1]
+    scale = max(float(np.abs(matrix).max(initial=0.0)), float(np.abs(rhs).max(initial=0.0)),
+                math.sqrt(ridge), 1e-12)
+    penalty = 1e4 * scale * math.sqrt(matrix.shape[0])
+    rows = [matrix, math.sqrt(ridge) * np.eye(n)] if ridge > 0 else [matrix]
+    stacked = np.vstack([*rows, np.full(n, penalty)])
+    target = np.concatenate([rhs, np.zeros(n if ridge > 0 else 0), [penalty]])
+    weights, _ = optimize.nnls(stacked, target, maxiter=50 * n + 100)
+    total = weights.sum()
+    return weights / total if total > 0 else np.full(n, 1.0 / n)
 
 
 def synthetic_control_weights(target: np.ndarray, donors: np.ndarray) -> np.ndarray:
@@ -131,33 +194,72 @@ def synthetic_control_weights(target: np.ndarray, donors: np.ndarray) -> np.ndar
     Notes
     -----
     The constrained least squares of Abadie, Diamond & Hainmueller (2010) on the
-    pre-period outcomes, solved by non-negative least squares (Lawson & Hanson
-    1974; ``scipy.optimize.nnls``) with the sum-to-one constraint as a heavily
-    weighted extra row, then rescaled to sum exactly to 1.
+    pre-period outcomes, solved by :func:`simplex_least_squares`.
 
     >>> donors = np.array([[1.0, 2.0, 3.0], [3.0, 1.0, 0.0], [0.0, 0.0, 5.0]])
     >>> synthetic_control_weights(0.25 * donors[0] + 0.75 * donors[1], donors).round(6).tolist()
     [0.25, 0.75, 0.0]
     """
-    target = np.asarray(target, dtype=float)
-    donors = np.asarray(donors, dtype=float)
-    scale = max(float(np.abs(donors).max()), float(np.abs(target).max()), 1e-12)
-    penalty = 1e4 * scale * math.sqrt(target.size)
-    matrix = np.vstack([donors.T, np.full(donors.shape[0], penalty)])
-    rhs = np.append(target, penalty)
-    weights, _ = optimize.nnls(matrix, rhs, maxiter=50 * donors.shape[0] + 100)
-    total = weights.sum()
-    return weights / total if total > 0 else np.full(donors.shape[0], 1.0 / donors.shape[0])
+    return simplex_least_squares(np.asarray(donors, dtype=float).T, target)
+
+
+def group_series(series: np.ndarray, users: np.ndarray, members: np.ndarray) -> np.ndarray:
+    """Return the user-weighted mean daily series of the pools in ``members``."""
+    return (series[members] * users[members, None]).sum(axis=0) / users[members].sum()
 
 
 def _synthetic_gaps(series: np.ndarray, users: np.ndarray, treated: np.ndarray, n_pre: int
                     ) -> tuple[np.ndarray, float]:
     """Gaps (treated - synthetic) per day, and the pre-period RMSPE."""
-    target = (series[treated] * users[treated, None]).sum(axis=0) / users[treated].sum()
+    target = group_series(series, users, treated)
     donors = series[~treated]
     weights = synthetic_control_weights(target[:n_pre], donors[:, :n_pre])
     gaps = target - weights @ donors
     return gaps, float(np.sqrt(np.mean(gaps[:n_pre] ** 2)))
+
+
+def placebo_variance(point_of, series: np.ndarray, users: np.ndarray, launched: np.ndarray
+                     ) -> tuple[float, int]:
+    """Return the placebo variance of a launch estimator and the number of placebos.
+
+    Arkhangelsky et al. (2021), Algorithm 4: among the pools that did not launch,
+    as many as launched are made placebo-launched (:func:`placebo_sets`), the
+    estimator ``point_of(series, users, treated)`` is applied to the other pools'
+    data alone, and the variance is ``mean_b (tau_b - mean tau)^2``. It assumes
+    the launched group's noise is like that of a random group of the same size.
+    """
+    controls = np.flatnonzero(~launched)
+    points = []
+    for members in placebo_sets(controls.size, int(launched.sum())):
+        fake = np.zeros(controls.size, dtype=bool)
+        fake[members] = True
+        points.append(point_of(series[controls], users[controls], fake))
+    points = np.array(points)
+    return float(np.mean((points - points.mean()) ** 2)), int(points.size)
+
+
+def placebo_rank_p_value(statistic_of, series: np.ndarray, users: np.ndarray,
+                         launched: np.ndarray) -> float:
+    """Return the rank p-value of ``statistic_of`` among placebo launches of all pools.
+
+    The same statistic is computed for sets of as many pools as launched, drawn
+    from all pools (:func:`placebo_sets`), each against all the others:
+    ``p = (1 + #{b: T_b >= T}) / (1 + B)`` (when every set is listed, the real one
+    is left out of the ``B``). Under no effect and a launched set
+    chosen at random, the real set is one more draw from the same distribution, so
+    the test is exact (Fisher's randomization test; for synthetic control
+    Abadie, Diamond & Hainmueller 2010, section 2.4, and Firpo & Possebom 2018).
+    """
+    real = statistic_of(series, users, launched)
+    sets = placebo_sets(launched.size, int(launched.sum()))
+    if math.comb(launched.size, int(launched.sum())) <= PLACEBO_SETS:  # every set: all but the real
+        sets = sets[~(sets == np.flatnonzero(launched)).all(axis=1)]
+    higher = 0
+    for members in sets:
+        fake = np.zeros(launched.size, dtype=bool)
+        fake[members] = True
+        higher += statistic_of(series, users, fake) >= real - 1e-12 * abs(real)
+    return (1 + higher) / (1 + len(sets))
 
 
 def synthetic_control(panel: OutcomePanel, schedule: AssignmentSchedule, *,
@@ -169,43 +271,38 @@ def synthetic_control(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     (:func:`synthetic_control_weights`); the estimate is the mean post-launch gap
     times the post-launch days (Abadie, Diamond & Hainmueller 2010).
 
-    Inference is placebo-in-space (Abadie, Diamond & Hainmueller 2010, section
-    2.4): each other pool in turn is treated as launched, with the remaining
-    pools as donors. ``p_value`` is the share of all (placebo and real) whose
-    post/pre RMSPE ratio is at least the real one's. The standard error is the SD
-    of the placebo estimates (the placebo variance of Arkhangelsky et al. 2021,
-    Algorithm 4, with one pool per placebo, so conservative when several pools
-    launch), and the interval uses Student's t with ``n_placebos - 1`` df.
+    Inference: the standard error is the placebo standard error of Arkhangelsky
+    et al. (2021), Algorithm 4 (:func:`placebo_variance`: placebo launches of as
+    many pools as launched, among the others), with a normal interval.
+    ``p_value`` is the rank of the post/pre RMSPE ratio among placebo launches of
+    as many pools as launched (:func:`placebo_rank_p_value`; Abadie, Diamond &
+    Hainmueller 2010; Firpo & Possebom 2018), exact under no effect when the
+    launched pools are a random set.
     """
     method = "synthetic_control"
     confidence, series, users, launched, n_pre = _check_inputs(panel, schedule, confidence,
                                                                method)
     n_post = series.shape[1] - n_pre
     n_donors = int((~launched).sum())
-    if not launched.any() or n_donors < 3 or n_pre < 2:
-        return degenerate_estimate(method, "fewer than three donor pools or two pre-period "
-                                   "days", n_units=int(series.shape[0]))
-    gaps, pre_rmspe = _synthetic_gaps(series, users, launched, n_pre)
-    point = float(gaps[n_pre:].mean()) * n_post
+    if not launched.any() or n_donors < launched.sum() + 2 or n_pre < 2:
+        return degenerate_estimate(method, "fewer than two donor pools beyond the placebo "
+                                   "launches, or two pre-period days",
+                                   n_units=int(series.shape[0]))
 
-    def ratio(g: np.ndarray, pre: float) -> float:
-        post = float(np.sqrt(np.mean(g[n_pre:] ** 2)))
+    def point_of(s: np.ndarray, u: np.ndarray, treated: np.ndarray) -> float:
+        return float(_synthetic_gaps(s, u, treated, n_pre)[0][n_pre:].mean()) * n_post
+
+    def ratio_of(s: np.ndarray, u: np.ndarray, treated: np.ndarray) -> float:
+        gaps, pre = _synthetic_gaps(s, u, treated, n_pre)
+        post = float(np.sqrt(np.mean(gaps[n_pre:] ** 2)))
         return post / pre if pre > 0 else math.inf
 
-    placebo_points, placebo_ratios = [], []
-    donor_index = np.flatnonzero(~launched)
-    for j in donor_index:
-        keep = ~launched
-        fake = np.zeros(keep.sum(), dtype=bool)
-        fake[np.searchsorted(donor_index, j)] = True
-        g, pre = _synthetic_gaps(series[keep], users[keep], fake, n_pre)
-        placebo_points.append(float(g[n_pre:].mean()) * n_post)
-        placebo_ratios.append(ratio(g, pre))
-    real_ratio = ratio(gaps, pre_rmspe)
-    p_value = (1 + sum(r >= real_ratio for r in placebo_ratios)) / (1 + len(placebo_ratios))
-    placebo_points = np.array(placebo_points)
-    variance = float(np.var(placebo_points, ddof=1))
+    gaps, pre_rmspe = _synthetic_gaps(series, users, launched, n_pre)
+    point = float(gaps[n_pre:].mean()) * n_post
+    variance, _ = placebo_variance(point_of, series, users, launched)
     estimate = build_estimate(point, variance, confidence=confidence, method=method,
-                              n_units=int(series.shape[0]), df=len(placebo_points) - 1)
-    return replace(estimate, p_value=float(p_value))
-
+                              n_units=int(series.shape[0]))
+    p_value = placebo_rank_p_value(ratio_of, series, users, launched)
+    fit = LaunchDiagnostic(pre_rmspe=pre_rmspe,
+                           post_rmspe=float(np.sqrt(np.mean(gaps[n_pre:] ** 2))))
+    return replace(estimate, p_value=float(p_value), diagnostic=fit)

@@ -19,7 +19,7 @@ import pandas as pd
 
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning, ResultsError, ScenarioError
-from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic, LaunchDiagnostic
 from spillgauge.experiment.assignment import (
     ASSIGNMENT_REPLICATION,
     Assignment,
@@ -199,8 +199,10 @@ def analysis_record(analysis: ExperimentAnalysis) -> dict:
               "n_units": estimate.n_units, "note": analysis.note,
               "days_without_orders": analysis.empty_days}
     if estimate.diagnostic is not None:
-        record["interference_test"] = {k: getattr(estimate.diagnostic, k) for k in
-                                       estimate.diagnostic.__slots__}
+        name = ("launch_diagnostic" if isinstance(estimate.diagnostic, LaunchDiagnostic)
+                else "interference_test")
+        record[name] = {k: getattr(estimate.diagnostic, k) for k in
+                        estimate.diagnostic.__slots__}
     if analysis.context:
         record["study"] = analysis.context
     if analysis.truth.get("gte") is not None:
@@ -225,7 +227,7 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
         lines.append(f"  randomization p-value {format_number(estimate.randomization_p_value)} "
                      f"(Fisher's test of no effect on anyone, {assignment.spec.permutations} "
                      "re-draws of this design's assignment)")
-    if estimate.diagnostic is not None:
+    if isinstance(estimate.diagnostic, InterferenceDiagnostic):
         d = estimate.diagnostic
         lines.append(f"  test of interference: user half {format_number(d.user_arm_point)}, "
                      f"cluster half {format_number(d.cluster_arm_point)}, p-value "

@@ -203,6 +203,10 @@ def _launches(summary: dict) -> str:
              *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS[:6]),
              _e(format_quantity(d.get("left_out_effect"), "{:+.3f}"))] for d in launches]
     note = f"<p>{_e(summary.get('not_randomized', ''))}</p>"
+    fits = [f"<li>{_e(d['fit_note'])}</li>" for d in launches if d.get("fit_note")]
+    if fits:
+        note += ("<p>Balance, overlap and pre-launch fit (means over replications):</p>"
+                 f"<ul>{''.join(fits)}</ul>")
     return _section("launches", "If you do not randomize",
                     _grid(header, rows, text_columns=2) + note)
 

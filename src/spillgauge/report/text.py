@@ -44,6 +44,11 @@ def market_text(scenario, market: dict) -> str:
     lines += [
         f"calendar    {cal.days} days of {cal.n_ticks} ticks ({cal.tick_hours} h each), "
         f"diurnal amplitude {cal.diurnal_amplitude:g}",
+        f"demand      trend {cal.trend_per_week:+.1%} a week; daily shocks (log SD, AR(1)) "
+        f"market-wide {cal.daily_shock_sd:g} ({cal.daily_shock_autocorrelation:g}), per pool "
+        f"{scenario.pools.shock_sd:g} ({scenario.pools.shock_autocorrelation:g}); "
+        f"{scenario.pools.factor_count} shared pool factor(s), step SD "
+        f"{scenario.pools.factor_sd:g}",
         f"users       {market['users']:,}, {market['orders_per_user_week']:.2f} orders per user "
         "per week on average",
         f"pools       {market['pools']:,} ({users_per_pool['min']}-{users_per_pool['max']} users "
@@ -133,8 +138,14 @@ def not_randomized_lines(summary: dict, *, markdown: bool = False) -> list[str]:
     if markdown:
         table = ["| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
         table += ["| " + " | ".join(r) + " |" for r in rows[1:]]
-        return ["", f"## {title}", "", *table, "", summary.get("not_randomized", "")]
-    return ["", title + ":", *_table(rows), "", summary.get("not_randomized", "")]
+        fits = [f"- {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
+        return ["", f"## {title}", "", *table, "", summary.get("not_randomized", ""),
+                *(["", "Balance, overlap and pre-launch fit (means over replications):", "",
+                   *fits] if fits else [])]
+    fits = [f"  {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
+    return ["", title + ":", *_table(rows), "", summary.get("not_randomized", ""),
+            *(["", "Balance, overlap and pre-launch fit (means over replications):", *fits]
+              if fits else [])]
 
 
 def _table(rows: list[list[str]]) -> list[str]:

@@ -13,7 +13,10 @@ from dataclasses import dataclass
 from spillgauge.formatting import format_number, format_percent
 from spillgauge.statistics.metrics import DesignMetrics
 
-__all__ = ["LaunchRow", "not_randomizing_note"]
+__all__ = ["LaunchRow", "not_randomizing_note", "summarise_launch_fit", "launch_fit_sentence",
+           "BALANCE_SMD"]
+
+BALANCE_SMD = 0.1  # |SMD| below this: balanced (Austin 2009; common practice)
 
 
 @dataclass(frozen=True, slots=True)
@@ -96,3 +99,64 @@ def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | N
                          f"{format_percent(randomized_metrics.coverage)} coverage: that is "
                          "what randomizing buys.")
     return " ".join(sentences)
+
+
+def summarise_launch_fit(diagnostics: list) -> dict[str, float]:
+    """Return the mean over replications of each launch diagnostic field that was measured.
+
+    ``diagnostics`` holds one :class:`~spillgauge.estimators.estimate.LaunchDiagnostic`
+    per replication (None where the estimate failed); NaN fields are left out of
+    the means, and a field never measured is left out of the result.
+
+    >>> from types import SimpleNamespace as D
+    >>> summarise_launch_fit([D(pre_rmspe=1.0, post_rmspe=float("nan")), D(pre_rmspe=3.0,
+    ...                       post_rmspe=float("nan")), None])
+    {'pre_rmspe': 2.0}
+    """
+    names = ("smd_before", "smd_after", "off_support_share", "unmatched_share", "pre_rmspe",
+             "post_rmspe")
+    out = {}
+    for name in names:
+        values = [float(getattr(d, name, math.nan)) for d in diagnostics if d is not None]
+        values = [v for v in values if math.isfinite(v)]
+        if values:
+            out[name] = sum(values) / len(values)
+    return out
+
+
+def launch_fit_sentence(label: str, fit: dict[str, float]) -> str:
+    """Return one sentence on a launch analysis's balance, overlap or pre-launch fit.
+
+    Examples
+    --------
+    >>> launch_fit_sentence("opt-in-matching", {"smd_before": 0.62, "smd_after": 0.01,
+    ...                     "off_support_share": 0.003, "unmatched_share": 0.012})
+    'opt-in-matching: pre-period orders differ by SMD +0.62 before and +0.01 after adjustment (balanced: |SMD| < 0.1, Austin 2009); 0.3% of opted-in users have a propensity score outside the range of the others; matching leaves out 1.2% of them.'
+    >>> launch_fit_sentence("launch-sc", {"pre_rmspe": 0.02, "post_rmspe": 0.05})
+    'launch-sc: the comparison tracks the launched pools within 0.02 orders per user-day before the launch and 0.05 after (RMSPE; ratio 2.5).'
+    """
+    parts = []
+    if "smd_before" in fit:
+        after = fit.get("smd_after")
+        text = f"pre-period orders differ by SMD {format_number(fit['smd_before'], sign=True)}"
+        if after is not None:
+            verdict = ("balanced" if abs(after) < BALANCE_SMD else "not balanced")
+            text += (f" before and {format_number(after, sign=True)} after adjustment "
+                     f"({verdict}: |SMD| {'<' if abs(after) < BALANCE_SMD else '>='} "
+                     f"{BALANCE_SMD:g}, Austin 2009)")
+        parts.append(text)
+    if "off_support_share" in fit:
+        parts.append(f"{format_percent(fit['off_support_share'])} of opted-in users have a "
+                     "propensity score outside the range of the others")
+    if "unmatched_share" in fit:
+        parts.append(f"matching leaves out {format_percent(fit['unmatched_share'])} of them")
+    if "pre_rmspe" in fit:
+        text = (f"the comparison tracks the launched pools within "
+                f"{format_number(fit['pre_rmspe'])} orders per user-day before the launch")
+        if "post_rmspe" in fit:
+            ratio = (fit["post_rmspe"] / fit["pre_rmspe"] if fit["pre_rmspe"] > 0
+                     else math.inf)
+            text += (f" and {format_number(fit['post_rmspe'])} after (RMSPE; ratio "
+                     f"{format_number(ratio)})")
+        parts.append(text)
+    return f"{label}: " + "; ".join(parts) + "." if parts else ""

@@ -9,7 +9,7 @@ import numpy as np
 
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning
-from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic
+from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic, LaunchDiagnostic
 from spillgauge.estimators.relative import relative_effect
 from spillgauge.files import nan_from_null
 from spillgauge.market.build import Market, build_market
@@ -84,8 +84,10 @@ class DesignRun:
             record["truth"] = self.truth
             record["left_out_effect"] = self.left_out_effect
         diagnostic = self.estimate.diagnostic
-        if diagnostic is not None:
+        if isinstance(diagnostic, InterferenceDiagnostic):
             record.update({k: float(getattr(diagnostic, k)) for k in _SAVED_DIAGNOSTIC})
+        elif isinstance(diagnostic, LaunchDiagnostic):  # a launch's balance and fit
+            record.update({k: float(getattr(diagnostic, k)) for k in LaunchDiagnostic.__slots__})
         if not np.isnan(self.estimate.randomization_p_value):  # only designs that ask for it
             record["randomization_p_value"] = self.estimate.randomization_p_value
         if not np.isnan(self.estimate.control_mean):  # estimators that give a control mean
@@ -106,6 +108,8 @@ class DesignRun:
                 statistic=values["statistic"], p_value=float("nan"),
                 rejects=bool(values["rejects"]),
                 rejects_chebyshev=bool(values["rejects_chebyshev"]))
+        elif "pre_rmspe" in values:
+            diagnostic = LaunchDiagnostic(**{k: values[k] for k in LaunchDiagnostic.__slots__})
         estimate = Estimate(**{name: values[saved] for saved, name in _SAVED_FIELDS},
                             method="", diagnostic=diagnostic,
                             randomization_p_value=values.get("randomization_p_value",

@@ -20,7 +20,13 @@ from spillgauge.files import json_safe, nan_from_null
 from spillgauge.formatting import outcome_unit
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
-from spillgauge.statistics.launches import LaunchRow, not_randomizing_note
+from spillgauge.estimators.estimate import InterferenceDiagnostic, LaunchDiagnostic
+from spillgauge.statistics.launches import (
+    LaunchRow,
+    launch_fit_sentence,
+    not_randomizing_note,
+    summarise_launch_fit,
+)
 from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
 from spillgauge.statistics.metrics import DesignMetrics, design_metrics
 from spillgauge.statistics.recommend import Candidate, Recommendation, recommend
@@ -58,6 +64,10 @@ class DesignSummary:
         For a launch: the mean true effect on the users it left out (NaN otherwise).
     is_randomized : bool
         False for a launch (shown apart, never recommended).
+    launch_fit : dict
+        For a launch: the means over replications of its analysis's balance,
+        overlap or pre-launch fit (:class:`~spillgauge.estimators.estimate.LaunchDiagnostic`
+        fields that were measured); empty otherwise.
     relative : DesignMetrics or None
         The same metrics for the effect as a share of the control mean: each
         replication's ``estimate_relative`` (with its delta-method interval) against
@@ -80,6 +90,7 @@ class DesignSummary:
     left_out_effect: float = float("nan")
     is_randomized: bool = True
     question: str = "the global treatment effect (GTE)"
+    launch_fit: dict = field(default_factory=dict)
     relative: DesignMetrics | None = None
 
     def to_dict(self) -> dict:
@@ -90,6 +101,9 @@ class DesignSummary:
                  "is_randomized": self.is_randomized, **json_safe(self.metrics.to_dict())}
         if not self.is_randomized:
             entry["left_out_effect"] = json_safe(self.left_out_effect)
+            if self.launch_fit:
+                entry["balance_and_fit"] = json_safe(self.launch_fit)
+                entry["fit_note"] = launch_fit_sentence(self.label, self.launch_fit)
         if self.interference is not None:
             entry["interference_test"] = json_safe(self.interference.to_dict())
         if self.relative is not None:
@@ -256,7 +270,7 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
     notes = Counter(r.runs[spec.label].note for r in results if r.runs[spec.label].note)
     interference = None
     diagnostics = [e.diagnostic for e in estimates]
-    if diagnostics and all(d is not None for d in diagnostics):
+    if diagnostics and all(isinstance(d, InterferenceDiagnostic) for d in diagnostics):
         interference = summarise_interference_test(
             [d.statistic for d in diagnostics], [d.rejects for d in diagnostics],
             [d.rejects_chebyshev for d in diagnostics], [d.delta for d in diagnostics],
@@ -269,7 +283,10 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          failure_note=notes.most_common(1)[0][0] if notes else "",
                          estimand=kind.estimand, truth=float(np.mean(gte)),
                          left_out_effect=left_out, is_randomized=kind.is_randomized,
-                         question=kind.question, relative=relative)
+                         question=kind.question, relative=relative,
+                         launch_fit=summarise_launch_fit(
+                             [e.diagnostic if isinstance(e.diagnostic, LaunchDiagnostic) else None
+                              for e in estimates]))
 
 
 def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResult],
