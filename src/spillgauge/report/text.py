@@ -185,6 +185,8 @@ def interference_lines(study) -> list[str]:
     """Describe each test-of-interference design's verdict (decided by the statistics) in a sentence."""
     lines = []
     alpha = study.scenario.study.alpha
+    outcome = study.scenario.study.outcome
+    unit = "orders per user" if outcome == "orders" else OUTCOME_UNITS[outcome]
     for design in study.designs.values():
         test = design.interference
         if test is None or not test.n_reps:
@@ -194,8 +196,8 @@ def interference_lines(study) -> list[str]:
                    "no sign of interference beyond the test's false-alarm rate")
         lines.append(f"\n{design.label}: the user-level half and the cluster-level half "
                      f"disagree in {test.rejection_rate:.0%} of replications (level {alpha:.0%}; "
-                     f"mean difference {format_cell('{:+.3f}', test.mean_delta)} orders per "
-                     f"user): {verdict}.")
+                     f"mean difference {format_cell('{:+.3f}', test.mean_delta)} {unit}): "
+                     f"{verdict}.")
     return lines
 
 
