@@ -15,6 +15,7 @@ from spillgauge.estimators._inference import (
     check_common_inputs,
     check_static,
     degenerate_estimate,
+    satterthwaite_df,
 )
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.estimators.relative import with_control_mean
@@ -65,8 +66,8 @@ def _stratified_neyman(values: np.ndarray, is_treated: np.ndarray, strata: np.nd
                           minlength=2 * n_strata).reshape(n_strata, 2)
     parts = weight[:, None] ** 2 * squares / (n - 1) / n  # each (stratum, arm) cell's share
     variance = float(parts.sum())
-    spread = float(np.sum(parts**2 / (n - 1)))
-    df = variance**2 / spread if spread > 0 else None  # Satterthwaite (1946), vectorized
+    df = (satterthwaite_df(list(zip(parts.ravel().tolist(), (n - 1).ravel().tolist())))
+          if variance > 0 else None)
     estimate = build_estimate(point, variance, confidence=confidence, method=method,
                               n_units=n_users, df=df)
     # the control mean sum_s w_s mean_0s, its variance sum_s w_s^2 s_0s^2 / n_0s, and
