@@ -37,6 +37,12 @@ from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
 from spillgauge.worlds.arrival_order import arrival_order
 from spillgauge.worlds.memory import keep_freed_memory
 from spillgauge.worlds.outcome import outcome_tables
+from spillgauge.worlds.serving import (
+    group_starts,
+    lost_orders,
+    orders_per_group,
+    tally_worlds,
+)
 from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
@@ -237,16 +243,25 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
     n_worlds, n_pools = len(schedules), population.n_pools
-    accepted = np.stack([accepted_in_world(market, events, s) for s in schedules]) \
-        if n_worlds else np.zeros((0, events.n_events), dtype=bool)
-    served = np.zeros_like(accepted)
+    accepted = [accepted_in_world(market, events, s) for s in schedules]
+    positions = [np.flatnonzero(a) for a in accepted]  # each world's orders
     substitute = events.substitute_pool is not None
-    substituted = np.zeros_like(accepted) if substitute else None
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
     order_up_to = population.order_up_to
     bounds = events.segment_bounds
     n_segments = bounds.size - 1
     level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
+    if substitute:  # lost orders move to other pools, so serving goes event by event
+        stacked = np.stack(accepted) if n_worlds else np.zeros((0, events.n_events), bool)
+        served = np.zeros_like(stacked)
+        substituted = np.zeros_like(stacked)
+    else:  # each world's orders per (segment, pool), served from the counts (worlds/serving.py)
+        starts = group_starts(events.pool, events.segment_starts, n_pools)
+        groups = [orders_per_group(p, starts) for p in positions]
+        orders = np.stack([g[1] for g in groups]) if n_worlds else \
+            np.zeros((0, n_segments, n_pools), dtype=np.int64)
+        served_orders = np.empty_like(orders)
+        substituted = None
 
     env = simpy.Environment()
     start_hour = 0
@@ -271,32 +286,47 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         while env.peek() <= start_hour:
             env.step()
         level_at_start[s] = level
+        if not substitute:
+            # the first min(orders, level) of a pool's orders are served (the level is >= 0)
+            sold = np.minimum(orders[:, s], level, out=served_orders[:, s])
+            level -= sold
+            continue
         lo, hi = events.segment_starts[s], events.segment_starts[s + 1]
         if hi == lo:
             continue
         home = events.pool[lo:hi]
-        done, sold = _serve_in_order(accepted[:, lo:hi], home, level)
+        done, sold = _serve_in_order(stacked[:, lo:hi], home, level)
         served[:, lo:hi] = done
         level -= sold
-        if substitute:
-            _substitute(events, accepted, served, substituted, level, lo, hi, pools)
+        _substitute(events, stacked, served, substituted, level, lo, hi, pools)
     if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
-    fulfilled = served if substituted is None else served | substituted
+    if substitute:
+        fulfilled = list(served | substituted)
+        lost = [np.flatnonzero(a & ~f) for a, f in zip(accepted, fulfilled)]
+    else:
+        lost = [lost_orders(p, before, o, done)
+                for p, (before, _), o, done in zip(positions, groups, orders, served_orders)]
+        fulfilled = None  # each world's mask, built only where a table needs it
+        if user_days or scenario.study.outcome != "orders":
+            fulfilled = [a.copy() for a in accepted]
+            for f, gone in zip(fulfilled, lost):
+                f[gone] = False
     pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of the pool tallies
     tallies = [(pool_tick, n_pools * calendar.n_ticks)]
     if not user_days:
         tallies.append((events.user, population.n_users))
-    pool_counts, *rest = _count_orders(tallies, accepted, fulfilled)
+    pool_counts, *rest = tally_worlds(tallies, accepted, positions, lost)
     user_counts = rest[0] if rest else None
-    return [_panel(market, events, accepted[w], fulfilled[w],
+    return [_panel(market, events, accepted[w], None if fulfilled is None else fulfilled[w],
                    None if substituted is None else substituted[w],
                    level_at_start[:, w, :], bounds, pool_tick=pool_tick,
                    pool_counts=(pool_counts[0][w], pool_counts[1][w]),
                    user_counts=None if user_days else (user_counts[0][w], user_counts[1][w]),
                    outcome=outcome_tables(
                        scenario.study.outcome, user=events.user, tick=events.tick,
-                       pool=events.pool, is_fulfilled=fulfilled[w],
+                       pool=events.pool,
+                       is_fulfilled=None if fulfilled is None else fulfilled[w],
                        basket_value=market.population.basket_value,
                        pool_of_user=population.pool_of_user, n_ticks=calendar.n_ticks,
                        day_of_tick=day_of_tick(calendar) if user_days else None))
@@ -317,34 +347,6 @@ def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
     got[:, order] = done
     substituted[:, lo:hi] = got
     level -= sold
-
-
-def _count_orders(tallies: list[tuple[np.ndarray, int]], accepted: np.ndarray,
-                  fulfilled: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
-    """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
-
-    ``tallies`` holds ``(index, n_bins)`` pairs, ``index`` giving each event's
-    bin; one pair of tables is returned per pair. Orders placed in every world
-    are counted once; a world adds its other placed orders, and its fulfilled
-    orders are its placed ones less its lost ones (fulfilled orders are placed
-    orders), so each world counts only the events where it differs from the rest
-    or lost the sale, found once for all the tallies.
-    """
-    n_worlds = accepted.shape[0]
-    tables = [(np.empty((n_worlds, n_bins), dtype=np.int64),
-               np.empty((n_worlds, n_bins), dtype=np.int64)) for _, n_bins in tallies]
-    if n_worlds == 0:
-        return tables
-    everywhere = np.logical_and.reduce(accepted, axis=0)
-    elsewhere = np.flatnonzero(~everywhere)  # the events some world does not place
-    common = [np.bincount(index[everywhere], minlength=n_bins) for index, n_bins in tallies]
-    for w in range(n_worlds):
-        extra = elsewhere[accepted[w, elsewhere]]
-        lost = np.flatnonzero(accepted[w] & ~fulfilled[w])
-        for (index, n_bins), (placed, done), base in zip(tallies, tables, common):
-            placed[w] = base + np.bincount(index[extra], minlength=n_bins)
-            done[w] = placed[w] - np.bincount(index[lost], minlength=n_bins)
-    return tables
 
 
 def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
