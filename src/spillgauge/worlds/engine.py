@@ -39,11 +39,12 @@ from spillgauge.worlds.memory import keep_freed_memory
 from spillgauge.worlds.outcome import outcome_tables
 from spillgauge.worlds.serving import (
     group_starts,
+    kept_mask,
     lost_orders,
     orders_per_group,
     tally_worlds,
 )
-from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
+from spillgauge.worlds.thinning import LiveEvents, live_events, unkept_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
 
@@ -243,8 +244,8 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
     n_worlds, n_pools = len(schedules), population.n_pools
-    accepted = [accepted_in_world(market, events, s) for s in schedules]
-    positions = [np.flatnonzero(a) for a in accepted]  # each world's orders
+    unkept = [unkept_events(market, events, s) for s in schedules]  # the rest are orders
+    accepted = [kept_mask(events.n_events, u.events) for u in unkept]
     substitute = events.substitute_pool is not None
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
     order_up_to = population.order_up_to
@@ -257,7 +258,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         substituted = np.zeros_like(stacked)
     else:  # each world's orders per (segment, pool), served from the counts (worlds/serving.py)
         starts = group_starts(events.pool, events.segment_starts, n_pools)
-        groups = [orders_per_group(p, starts) for p in positions]
+        groups = [orders_per_group(u.events, starts) for u in unkept]
         orders = np.stack([g[1] for g in groups]) if n_worlds else \
             np.zeros((0, n_segments, n_pools), dtype=np.int64)
         served_orders = np.empty_like(orders)
@@ -305,8 +306,8 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         fulfilled = list(served | substituted)
         lost = [np.flatnonzero(a & ~f) for a, f in zip(accepted, fulfilled)]
     else:
-        lost = [lost_orders(p, before, o, done)
-                for p, (before, _), o, done in zip(positions, groups, orders, served_orders)]
+        lost = [lost_orders(u.events, a, starts, before, o, done) for u, a, (before, _), o, done
+                in zip(unkept, accepted, groups, orders, served_orders)]
         fulfilled = None  # each world's mask, built only where a table needs it
         if user_days or scenario.study.outcome != "orders":
             fulfilled = [a.copy() for a in accepted]
@@ -316,7 +317,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     tallies = [(pool_tick, n_pools * calendar.n_ticks)]
     if not user_days:
         tallies.append((events.user, population.n_users))
-    pool_counts, *rest = tally_worlds(tallies, accepted, positions, lost)
+    pool_counts, *rest = tally_worlds(tallies, unkept, lost, events.differ)
     user_counts = rest[0] if rest else None
     return [_panel(market, events, accepted[w], None if fulfilled is None else fulfilled[w],
                    None if substituted is None else substituted[w],

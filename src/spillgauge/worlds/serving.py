@@ -1,27 +1,27 @@
-"""Serving every world's orders from stock, and tallying them, from the positions of its orders.
+"""Serving every world's orders from stock, and tallying them, from the events it does not keep.
 
 The live events are sorted by (segment, home pool, arrival), so a world's orders
 of one pool in one segment (the hours between two stock events) are the
-world's accepted events between two event indices: a *group*. A pool serves a
+world's orders among the events of an index range: a *group*. A pool serves a
 group's orders in arrival order while it has stock, so of a group's ``d``
 orders, with stock ``L`` at the segment's start, the first ``min(d, L)`` are
-served and the others lost. Once a world's accepted events are listed (one
-pass over its events), each group's orders are counted by a binary search of
-the group's bounds in that list, the segment loop runs on the (worlds x pools)
-counts, and the lost orders are read off the tails of the groups that ran out:
-the cost per world is one pass plus work in proportion to its lost orders,
-where a running count per event costs several passes.
+served and the others lost. A world is given by the sorted live events it does
+not keep (``unkept``; with doses 0 and 1 a few of the events where the shared
+comparisons differ): its orders before an event index are the index less the
+unkept events before it (a binary search), so each group's orders are counted
+from its bounds, the segment loop runs on the (worlds x pools) counts, and the
+lost orders are read off the tails of the groups that ran out. The cost per
+world grows with its unkept events and its lost orders, not with all its orders.
 
-Each world's tallies (placed and fulfilled orders per bin: pool tick, user)
-count whichever of its accepted or unaccepted events are fewer, against a
-tally of all live events made once, and subtract its lost orders.
+Each world's tallies (placed and fulfilled orders per bin: pool tick, user) are
+a tally of all live events, made once, less its unkept events and its lost orders.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["group_starts", "lost_orders", "orders_per_group", "tally_worlds"]
+__all__ = ["group_starts", "kept_mask", "lost_orders", "orders_per_group", "tally_worlds"]
 
 
 def group_starts(pool: np.ndarray, segment_starts: np.ndarray, n_pools: int) -> np.ndarray:
@@ -45,79 +45,113 @@ def group_starts(pool: np.ndarray, segment_starts: np.ndarray, n_pools: int) -> 
     return starts
 
 
-def orders_per_group(positions: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def kept_mask(n_events: int, unkept: np.ndarray) -> np.ndarray:
+    """Return which of ``n_events`` live events a world keeps, from the ones it does not."""
+    kept = np.ones(n_events, dtype=bool)
+    kept[unkept] = False
+    return kept
+
+
+def orders_per_group(unkept: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Return each group's number of earlier orders and its orders, each ``(n_segments, n_pools)``.
 
-    ``positions`` lists one world's accepted events (sorted event indices); the
-    group ``(s, p)`` holds the world's orders ``positions[before[s, p]:before[s, p] + orders[s, p]]``.
-    """
-    below = np.searchsorted(positions, starts.ravel()).reshape(starts.shape)
-    return below[:, :-1], np.diff(below, axis=1)
-
-
-def lost_orders(positions: np.ndarray, before: np.ndarray, orders: np.ndarray,
-                served: np.ndarray) -> np.ndarray:
-    """Return the events of one world's lost orders (sorted): each group's orders after its served ones.
-
-    ``before`` and ``orders`` come from :func:`orders_per_group`; ``served`` is the
-    number of each group's orders served (its first ones), same shape.
+    ``unkept`` lists the live events one world does not keep (sorted); ``starts``
+    comes from :func:`group_starts`. The world's orders before event ``i`` are
+    ``i`` less its unkept events before ``i``.
 
     Examples
     --------
-    >>> lost_orders(np.array([1, 4, 5, 8, 9]), np.array([[0, 3]]), np.array([[3, 2]]),
-    ...             np.array([[1, 2]])).tolist()
-    [4, 5]
+    Events 0-2 are pool 0's, 3-4 pool 1's; the world does not keep events 1 and 3:
+
+    >>> before, orders = orders_per_group(np.array([1, 3]), np.array([[0, 3, 5]]))
+    >>> before.tolist(), orders.tolist()
+    ([[0, 2]], [[2, 1]])
     """
-    length = (orders - served).ravel()
-    first = (before + served).ravel()
-    keep = length > 0
-    first, length = first[keep], length[keep]
-    if not length.size:
-        return positions[:0]
-    # concatenated ranges first[k] : first[k] + length[k]
-    offset = np.repeat(first - (np.cumsum(length) - length), length)
-    offset += np.arange(offset.size)
-    return positions[offset]
+    below = starts - np.searchsorted(unkept, starts.ravel()).reshape(starts.shape)
+    return below[:, :-1], np.diff(below, axis=1)
 
 
-def tally_worlds(tallies: list[tuple[np.ndarray, int]], accepted: list[np.ndarray],
-                 positions: list[np.ndarray], lost: list[np.ndarray]
-                 ) -> list[tuple[np.ndarray, np.ndarray]]:
+def lost_orders(unkept: np.ndarray, kept: np.ndarray, starts: np.ndarray, before: np.ndarray,
+                orders: np.ndarray, served: np.ndarray) -> np.ndarray:
+    """Return the events of one world's lost orders (sorted): each group's orders after its served ones.
+
+    Parameters
+    ----------
+    unkept : ndarray of int
+        The live events the world does not keep (sorted).
+    kept : ndarray of bool, shape (n_events,)
+        ``kept_mask(n_events, unkept)``.
+    starts : ndarray of int, shape (n_segments, n_pools + 1)
+        From :func:`group_starts`.
+    before, orders : ndarray of int, shape (n_segments, n_pools)
+        From :func:`orders_per_group`.
+    served : ndarray of int, shape (n_segments, n_pools)
+        How many of each group's orders were served (its first ones).
+
+    Notes
+    -----
+    The world's order of rank ``r`` (counted from 0 over all its orders) is
+    event ``r + k``, where ``k`` counts the unkept events ``u_j`` (j-th, from 0)
+    with ``u_j - j <= r``: ``u_j - j`` orders come before ``u_j``, a nondecreasing
+    sequence, so ``k`` is one binary search. A group's lost orders are its kept
+    events from its first lost order to its end.
+
+    Examples
+    --------
+    Events 0-4 are one group; the world does not keep event 1, so its orders are
+    events 0, 2, 3, 4; with two served, events 3 and 4 are lost:
+
+    >>> unkept = np.array([1])
+    >>> lost_orders(unkept, kept_mask(5, unkept), np.array([[0, 5]]), np.array([[0]]),
+    ...             np.array([[4]]), np.array([[2]])).tolist()
+    [3, 4]
+    """
+    short = np.flatnonzero((orders > served).ravel())
+    if not short.size:
+        return np.zeros(0, dtype=np.int64)
+    rank = (before + served).ravel()[short]
+    first = rank + np.searchsorted(unkept - np.arange(unkept.size), rank, side="right")
+    length = starts[:, 1:].ravel()[short] - first
+    # the events first[k] : first[k] + length[k], concatenated
+    event = np.repeat(first - (np.cumsum(length) - length), length)
+    event += np.arange(event.size)
+    return event.take(np.flatnonzero(kept.take(event)))
+
+
+def tally_worlds(tallies: list[tuple[np.ndarray, int]], unkept: list, lost: list[np.ndarray],
+                 differ: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
 
     Parameters
     ----------
     tallies : list of (index, n_bins)
         ``index`` gives each live event's bin; one pair of tables is returned per pair.
-    accepted : list of ndarray of bool, shape (n_events,)
-        Each world's orders.
-    positions : list of ndarray of int
-        ``np.flatnonzero(accepted[w])``.
+    unkept : list of Unkept
+        The live events each world does not keep (``worlds.thinning.unkept_events``).
     lost : list of ndarray of int
-        The events of each world's lost orders (a subset of its orders).
+        The events of each world's lost orders.
+    differ : ndarray of int
+        ``LiveEvents.differ``; a world's unkept events given by their place in it
+        take their bins from the bins of ``differ``, a short array.
 
     Notes
     -----
-    A world whose orders are most of the live events counts its other events and
-    subtracts them from a tally of all live events (made once, and only when
-    some world needs it); the counts are integers, so both ways give the same
-    table.
+    A world's placed orders per bin are the tally of all live events (made once)
+    less the tally of its unkept events; counts are integers, so this equals
+    counting its orders.
     """
-    n_worlds = len(accepted)
+    n_worlds = len(unkept)
     tables = [(np.empty((n_worlds, n_bins), dtype=np.int64),
                np.empty((n_worlds, n_bins), dtype=np.int64)) for _, n_bins in tallies]
-    everything = None
-    for w in range(n_worlds):
-        n = accepted[w].size
-        counted = positions[w]
-        if 2 * counted.size > n:
-            counted = np.flatnonzero(~accepted[w])
-            if everything is None:
-                everything = [np.bincount(index, minlength=n_bins) for index, n_bins in tallies]
+    if not n_worlds:
+        return tables
+    everything = [np.bincount(index, minlength=n_bins) for index, n_bins in tallies]
+    on_differ = [index.take(differ) for index, _ in tallies] \
+        if any(u.in_differ is not None for u in unkept) else None
+    for w, (events, in_differ) in enumerate(unkept):
         for k, ((index, n_bins), (placed, done)) in enumerate(zip(tallies, tables)):
-            counts = np.bincount(index[counted], minlength=n_bins)
-            if counted is not positions[w]:
-                np.subtract(everything[k], counts, out=counts)
-            placed[w] = counts
-            done[w] = counts - np.bincount(index[lost[w]], minlength=n_bins)
+            dropped = index.take(events) if in_differ is None else on_differ[k].take(in_differ)
+            np.subtract(everything[k], np.bincount(dropped, minlength=n_bins), out=placed[w])
+            np.subtract(placed[w], np.bincount(index.take(lost[w]), minlength=n_bins),
+                        out=done[w])
     return tables

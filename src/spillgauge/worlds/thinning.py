@@ -10,13 +10,17 @@ no world keeps changes no number, and a large share of the candidates goes.
 When a world's doses are all 0 or 1 and peers do not count, its kept events are
 one of two comparisons shared by every world (``uniform < base_accept`` and
 ``uniform < base_accept * (1 + lift)``), picked per event by whether the event's
-user is treated at the event's tick (:func:`accepted_in_world`); otherwise the
-world's probabilities are computed event by event.
+user is treated at the event's tick; otherwise the world's probabilities are
+computed event by event. A world is described by the live events it does *not*
+keep (:func:`unkept_events`): with doses 0 and 1 they are a part of the events
+where the two comparisons differ, far fewer than its orders.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
+from typing import NamedTuple
 
 import numpy as np
 
@@ -28,14 +32,14 @@ from spillgauge.worlds.treatment import (
     unit_dose,
 )
 
-__all__ = ["LiveEvents", "live_events", "accepted_in_world"]
+__all__ = ["LiveEvents", "Unkept", "live_events", "unkept_events"]
 
 # Head room on the bound of every world's acceptance probability, far above the rounding of
 # the two products that make a world's probability (a few units of 2**-53).
 _BOUND_MARGIN = 1.0 + 2.0**-30
 
 
-@dataclass(frozen=True, eq=False, slots=True)
+@dataclass(frozen=True, eq=False)
 class LiveEvents:
     """The candidate events that some world of the replication may keep, in the candidates' order.
 
@@ -45,40 +49,57 @@ class LiveEvents:
 
     Attributes
     ----------
+    candidates : CandidateEvents
+    index : ndarray of int, shape (n_live,)
+        Each live event's index among the candidates.
     user, pool, tick : ndarray of int, shape (n_live,)
-    base_accept, uniform : ndarray of float, shape (n_live,)
     hour, substitute_uniform : ndarray of float, shape (n_live,), or None
     substitute_pool : ndarray of int, shape (n_live,), or None
     segment_bounds : ndarray of int, shape (n_segments + 1,)
     segment_starts : ndarray of int, shape (n_segments + 1,)
     kept_untreated : ndarray of bool, shape (n_live,)
         ``uniform < base_accept``: the events an untreated, unexposed user keeps.
-    kept_treated : ndarray of bool, shape (n_live,)
-        ``uniform < base_accept * (1 + lift)``: those a treated, unexposed user keeps.
     differ : ndarray of int, shape (n_differ,)
-        The live events where ``kept_untreated`` and ``kept_treated`` differ: the
-        only ones where a world of doses 0 and 1 without peers has to look up
-        whether the event's user is treated.
+        The live events where ``kept_untreated`` and ``uniform < base_accept * (1 +
+        lift)`` (what a treated, unexposed user keeps) differ: the only ones where a
+        world of doses 0 and 1 without peers has to look up whether the event's
+        user is treated.
+    differ_user, differ_tick : ndarray of int, shape (n_differ,)
+        ``user[differ]`` and ``tick[differ]``.
+    base_accept, uniform : ndarray of float, shape (n_live,)
+        Taken from the candidates when first asked for (only worlds whose
+        probabilities are computed event by event need them).
     """
 
+    candidates: object
+    index: np.ndarray
     user: np.ndarray
     pool: np.ndarray
     tick: np.ndarray
-    base_accept: np.ndarray
-    uniform: np.ndarray
     hour: np.ndarray | None
     substitute_uniform: np.ndarray | None
     substitute_pool: np.ndarray | None
     segment_bounds: np.ndarray
     segment_starts: np.ndarray
     kept_untreated: np.ndarray
-    kept_treated: np.ndarray
     differ: np.ndarray
+    differ_user: np.ndarray
+    differ_tick: np.ndarray
 
     @property
     def n_events(self) -> int:
         """Number of live events."""
         return int(self.user.size)
+
+    @cached_property
+    def base_accept(self) -> np.ndarray:
+        """``base_accept`` of each live event."""
+        return self.candidates.base_accept[self.index]
+
+    @cached_property
+    def uniform(self) -> np.ndarray:
+        """The thinning uniform of each live event."""
+        return self.candidates.uniform[self.index]
 
 
 def _peer_counts(market: Market) -> bool:
@@ -86,61 +107,84 @@ def _peer_counts(market: Market) -> bool:
 
 
 def live_events(market: Market, events) -> LiveEvents:
-    """Return the candidate events that some world may keep (``events``: ``CandidateEvents``)."""
+    """Return the candidate events that some world may keep (``events``: ``CandidateEvents``).
+
+    Without peers every world's probability lies between ``base_accept`` and
+    ``base_accept * (1 + lift)`` in floating point too (``1 + lift * d`` is
+    monotone in ``d`` and rounds to ``1 + lift`` at ``d = 1``), so the live events
+    are exactly those that one of the two shared comparisons keeps; with peers
+    the bound has head room for the rounding of two products.
+    """
     effect = market.scenario.effect
-    bound = max(1.0, 1.0 + effect.lift) * _BOUND_MARGIN
+    uniform, base_accept = events.uniform, events.base_accept
+    bound = max(1.0, 1.0 + effect.lift)
     if _peer_counts(market):
-        bound *= max(1.0, 1.0 + effect.peer_lift)
-    index = np.flatnonzero(events.uniform < events.base_accept * bound)
+        bound *= max(1.0, 1.0 + effect.peer_lift) * _BOUND_MARGIN
+    live = uniform < base_accept * bound
+    # the two shared comparisons, over the candidates (cheaper than gathering their operands)
+    untreated = live if bound == 1.0 else uniform < base_accept
+    treated = live if bound == 1.0 + effect.lift else uniform < base_accept * (1.0 + effect.lift)
+    index = np.flatnonzero(live)
+    del live
     substitute = events.substitute_pool is not None
-    base_accept, uniform = events.base_accept[index], events.uniform[index]
+    user, tick = events.user.take(index), events.tick.take(index)
+    untreated = untreated.take(index)
+    differ = np.flatnonzero(untreated != treated.take(index))
     return LiveEvents(
-        user=events.user[index], pool=events.pool[index], tick=events.tick[index],
-        base_accept=base_accept, uniform=uniform,
+        candidates=events, index=index, user=user, pool=events.pool.take(index), tick=tick,
         hour=events.hour[index] if substitute else None,
         substitute_uniform=events.substitute_uniform[index] if substitute else None,
         substitute_pool=events.substitute_pool[index] if substitute else None,
         segment_bounds=events.segment_bounds,
         segment_starts=np.searchsorted(index, events.segment_starts),
-        kept_untreated=(untreated := uniform < base_accept),
-        kept_treated=(treated := uniform < base_accept * (1.0 + effect.lift)),
-        differ=np.flatnonzero(untreated != treated))
+        kept_untreated=untreated, differ=differ,
+        differ_user=user.take(differ), differ_tick=tick.take(differ))
 
 
-def accepted_in_world(market: Market, live: LiveEvents, schedule: AssignmentSchedule
-                      ) -> np.ndarray:
-    """Return which live events become orders in a world, shape ``(n_live,)``.
+class Unkept(NamedTuple):
+    """The live events a world does not keep (sorted), and where they are in ``differ``.
+
+    ``in_differ`` is None when the world's probabilities were computed event by
+    event; otherwise ``events == live.differ[in_differ]``.
+    """
+
+    events: np.ndarray
+    in_differ: np.ndarray | None
+
+
+def unkept_events(market: Market, live: LiveEvents, schedule: AssignmentSchedule) -> Unkept:
+    """Return the live events that do not become orders in a world.
 
     The probability is ``base_accept * (1 + lift * d) * (1 + peer_lift * e)``,
     computed in that order; with ``d`` in {0, 1} and no peer term it equals one
-    of the two shared comparisons exactly (``1 + lift * 0 == 1``).
+    of the two shared comparisons exactly (``1 + lift * 0 == 1``), and every
+    live event is kept by one of them (:func:`live_events`), so the world drops
+    only events of ``differ``: those of treated users when the lift is negative,
+    of untreated users otherwise.
     """
     effect = market.scenario.effect
     calendar = market.scenario.calendar
     if schedule.n_users != market.n_users or schedule.n_ticks != calendar.n_ticks:
         raise ValueError("the schedule does not match the market (users or ticks differ)")
-    if not schedule.is_treated.any():
-        return live.kept_untreated
+    peers = _peer_counts(market)
+    if not schedule.is_treated.any() and peers:
+        return Unkept(np.flatnonzero(~live.kept_untreated), None)
     dose = unit_dose(schedule, half_life_hours=effect.carryover_half_life_hours,
                      tick_hours=calendar.tick_hours)
-    if not _peer_counts(market) and np.all((dose == 0.0) | (dose == 1.0)):
+    if not peers and np.all((dose == 0.0) | (dose == 1.0)):
         treated = dose == 1.0
-        if treated.all():
-            return live.kept_treated
-        differ = live.differ  # elsewhere both comparisons agree
-        user = live.user[differ]
         if treated.shape[1] == 1:
-            is_on = treated[:, 0][schedule.unit_of_user][user]
+            is_on = treated[:, 0][schedule.unit_of_user].take(live.differ_user)
         else:
-            is_on = treated.ravel()[schedule.unit_of_user[user] * treated.shape[1]
-                                    + live.tick[differ]]
-        accepted = live.kept_untreated.copy()
-        accepted[differ] = np.where(is_on, live.kept_treated[differ], live.kept_untreated[differ])
-        return accepted
+            is_on = treated.ravel().take(schedule.unit_of_user.take(live.differ_user)
+                                         * treated.shape[1] + live.differ_tick)
+        # on ``differ`` the treated comparison keeps the event iff the lift is positive
+        in_differ = np.flatnonzero(~is_on if effect.lift > 0 else is_on)
+        return Unkept(live.differ.take(in_differ), in_differ)
     probability = live.base_accept * (1.0 + effect.lift * own_dose_of_events(
         dose, schedule.unit_of_user, live.user, live.tick))
-    if _peer_counts(market):
+    if peers:
         exposure = peer_exposure_of_events(market.adjacency, schedule.unit_of_user, dose,
                                            live.user, live.tick)
         probability = probability * (1.0 + effect.peer_lift * exposure)
-    return live.uniform < probability
+    return Unkept(np.flatnonzero(~(live.uniform < probability)), None)
