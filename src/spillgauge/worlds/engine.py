@@ -378,10 +378,12 @@ def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
                               + events.tick[substituted])
     else:
         sold = pool_fulfilled
-    stock = np.empty((n_pools, n_ticks), dtype=np.int64)
-    for s in range(bounds.size - 1):
-        a, b = bounds[s], bounds[s + 1]
-        stock[:, a:b] = level_at_start[s][:, None] - np.cumsum(sold[:, a:b], axis=1)
+    # stock after each tick: the segment's starting level less the sales so far in the segment
+    running = np.cumsum(sold, axis=1)
+    segment = np.repeat(np.arange(bounds.size - 1), np.diff(bounds))
+    before = np.concatenate([np.zeros((n_pools, 1), dtype=running.dtype), running[:, :-1]],
+                            axis=1)[:, bounds[:-1]]
+    stock = level_at_start.T[:, segment] - (running - before[:, segment])
     if user_counts is None:
         users = {"fulfilled": per_user_day(fulfilled), "demanded": per_user_day(accepted)}
     else:

@@ -152,6 +152,12 @@ class Unkept(NamedTuple):
     in_differ: np.ndarray | None
 
 
+def _all_or_none_of_differ(live: LiveEvents, every: bool) -> Unkept:
+    if every:
+        return Unkept(live.differ, np.arange(live.differ.size))
+    return Unkept(live.differ[:0], np.arange(0))
+
+
 def unkept_events(market: Market, live: LiveEvents, schedule: AssignmentSchedule) -> Unkept:
     """Return the live events that do not become orders in a world.
 
@@ -167,12 +173,19 @@ def unkept_events(market: Market, live: LiveEvents, schedule: AssignmentSchedule
     if schedule.n_users != market.n_users or schedule.n_ticks != calendar.n_ticks:
         raise ValueError("the schedule does not match the market (users or ticks differ)")
     peers = _peer_counts(market)
-    if not schedule.is_treated.any() and peers:
-        return Unkept(np.flatnonzero(~live.kept_untreated), None)
-    dose = unit_dose(schedule, half_life_hours=effect.carryover_half_life_hours,
-                     tick_hours=calendar.tick_hours)
-    if not peers and np.all((dose == 0.0) | (dose == 1.0)):
-        treated = dose == 1.0
+    if not schedule.is_treated.any():  # doses 0: every event of ``differ`` or none is dropped
+        if peers:
+            return Unkept(np.flatnonzero(~live.kept_untreated), None)
+        return _all_or_none_of_differ(live, effect.lift > 0)
+    if schedule.is_static:  # doses 0 and 1 (``unit_dose``)
+        dose, treated = None, schedule.is_treated
+    else:
+        dose = unit_dose(schedule, half_life_hours=effect.carryover_half_life_hours,
+                         tick_hours=calendar.tick_hours)
+        treated = dose == 1.0 if np.all((dose == 0.0) | (dose == 1.0)) else None
+    if not peers and treated is not None:
+        if treated.all():  # doses 1: the other way round
+            return _all_or_none_of_differ(live, effect.lift < 0)
         if treated.shape[1] == 1:
             is_on = treated[:, 0][schedule.unit_of_user].take(live.differ_user)
         else:
@@ -181,6 +194,8 @@ def unkept_events(market: Market, live: LiveEvents, schedule: AssignmentSchedule
         # on ``differ`` the treated comparison keeps the event iff the lift is positive
         in_differ = np.flatnonzero(~is_on if effect.lift > 0 else is_on)
         return Unkept(live.differ.take(in_differ), in_differ)
+    if dose is None:
+        dose = schedule.is_treated.astype(float)
     probability = live.base_accept * (1.0 + effect.lift * own_dose_of_events(
         dose, schedule.unit_of_user, live.user, live.tick))
     if peers:
