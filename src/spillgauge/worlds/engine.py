@@ -38,13 +38,17 @@ from spillgauge.worlds.arrival_order import arrival_order
 from spillgauge.worlds.memory import keep_freed_memory
 from spillgauge.worlds.outcome import outcome_tables
 from spillgauge.worlds.serving import (
-    group_starts,
     kept_mask,
     lost_orders,
     orders_per_group,
     tally_worlds,
 )
-from spillgauge.worlds.thinning import LiveEvents, live_events, unkept_events
+from spillgauge.worlds.thinning import (
+    LiveEvents,
+    computes_probabilities,
+    live_events,
+    unkept_events,
+)
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
 
@@ -239,7 +243,9 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     check_rng(rng)
     if events is None:
         events = draw_candidates(market, rng=rng)
-    events = live_events(market, events)  # the events no world keeps change no number
+    # the events no world keeps change no number
+    events = live_events(market, events,
+                         probabilities=computes_probabilities(market, schedules))
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
@@ -257,7 +263,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         served = np.zeros_like(stacked)
         substituted = np.zeros_like(stacked)
     else:  # each world's orders per (segment, pool), served from the counts (worlds/serving.py)
-        starts = group_starts(events.pool, events.segment_starts, n_pools)
+        starts = events.group_starts
         groups = [orders_per_group(u.events, starts) for u in unkept]
         orders = np.stack([g[1] for g in groups]) if n_worlds else \
             np.zeros((0, n_segments, n_pools), dtype=np.int64)

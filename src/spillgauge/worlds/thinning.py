@@ -19,27 +19,27 @@ where the two comparisons differ, far fewer than its orders.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cached_property
 from typing import NamedTuple
 
 import numpy as np
 
 from spillgauge.market.build import Market
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.serving import group_starts
 from spillgauge.worlds.treatment import (
     own_dose_of_events,
     peer_exposure_of_events,
     unit_dose,
 )
 
-__all__ = ["LiveEvents", "Unkept", "live_events", "unkept_events"]
+__all__ = ["LiveEvents", "Unkept", "computes_probabilities", "live_events", "unkept_events"]
 
 # Head room on the bound of every world's acceptance probability, far above the rounding of
 # the two products that make a world's probability (a few units of 2**-53).
 _BOUND_MARGIN = 1.0 + 2.0**-30
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, slots=True)
 class LiveEvents:
     """The candidate events that some world of the replication may keep, in the candidates' order.
 
@@ -57,6 +57,9 @@ class LiveEvents:
     substitute_pool : ndarray of int, shape (n_live,), or None
     segment_bounds : ndarray of int, shape (n_segments + 1,)
     segment_starts : ndarray of int, shape (n_segments + 1,)
+    group_starts : ndarray of int, shape (n_segments, n_pools + 1)
+        The first live event of each pool in each segment, then the segment's end
+        (``worlds.serving.group_starts``).
     kept_untreated : ndarray of bool, shape (n_live,)
         ``uniform < base_accept``: the events an untreated, unexposed user keeps.
     differ : ndarray of int, shape (n_differ,)
@@ -66,21 +69,22 @@ class LiveEvents:
         user is treated.
     differ_user, differ_tick : ndarray of int, shape (n_differ,)
         ``user[differ]`` and ``tick[differ]``.
-    base_accept, uniform : ndarray of float, shape (n_live,)
-        Taken from the candidates when first asked for (only worlds whose
-        probabilities are computed event by event need them).
+    base_accept, uniform : ndarray of float, shape (n_live,), or None
+        Kept only when a world's probabilities are computed event by event
+        (:func:`computes_probabilities`).
     """
 
-    candidates: object
-    index: np.ndarray
     user: np.ndarray
     pool: np.ndarray
     tick: np.ndarray
+    base_accept: np.ndarray | None
+    uniform: np.ndarray | None
     hour: np.ndarray | None
     substitute_uniform: np.ndarray | None
     substitute_pool: np.ndarray | None
     segment_bounds: np.ndarray
     segment_starts: np.ndarray
+    group_starts: np.ndarray
     kept_untreated: np.ndarray
     differ: np.ndarray
     differ_user: np.ndarray
@@ -91,23 +95,23 @@ class LiveEvents:
         """Number of live events."""
         return int(self.user.size)
 
-    @cached_property
-    def base_accept(self) -> np.ndarray:
-        """``base_accept`` of each live event."""
-        return self.candidates.base_accept[self.index]
-
-    @cached_property
-    def uniform(self) -> np.ndarray:
-        """The thinning uniform of each live event."""
-        return self.candidates.uniform[self.index]
-
 
 def _peer_counts(market: Market) -> bool:
     return market.scenario.effect.peer_lift != 0 and bool(market.adjacency.nnz)
 
 
-def live_events(market: Market, events) -> LiveEvents:
+def computes_probabilities(market: Market, schedules: list[AssignmentSchedule]) -> bool:
+    """Whether some world's probabilities are computed event by event: peers count, or doses
+    between 0 and 1 (carryover after a unit leaves treatment) may occur."""
+    half_life = market.scenario.effect.carryover_half_life_hours
+    return _peer_counts(market) or any(not s.is_static and half_life > 0 for s in schedules)
+
+
+def live_events(market: Market, events, *, probabilities: bool = True) -> LiveEvents:
     """Return the candidate events that some world may keep (``events``: ``CandidateEvents``).
+
+    ``probabilities``: keep each live event's ``base_accept`` and ``uniform``
+    (needed when :func:`computes_probabilities`).
 
     Without peers every world's probability lies between ``base_accept`` and
     ``base_accept * (1 + lift)`` in floating point too (``1 + lift * d`` is
@@ -125,18 +129,30 @@ def live_events(market: Market, events) -> LiveEvents:
     untreated = live if bound == 1.0 else uniform < base_accept
     treated = live if bound == 1.0 + effect.lift else uniform < base_accept * (1.0 + effect.lift)
     index = np.flatnonzero(live)
-    del live
     substitute = events.substitute_pool is not None
     user, tick = events.user.take(index), events.tick.take(index)
-    untreated = untreated.take(index)
-    differ = np.flatnonzero(untreated != treated.take(index))
+    # each (segment, pool) group of the candidates, and so of the live events, is one pool's
+    n_pools = market.population.n_pools
+    starts = np.searchsorted(index, group_starts(events.pool, events.segment_starts, n_pools))
+    pool = np.repeat(np.tile(np.arange(n_pools), starts.shape[0]), np.diff(starts, axis=1).ravel())
+    if treated is live:  # every live event is kept by the treated comparison
+        untreated = untreated.take(index)
+        differ = np.flatnonzero(~untreated)
+    elif untreated is live:
+        differ = np.flatnonzero(~treated.take(index))
+        untreated = np.ones(index.size, dtype=bool)
+    else:
+        untreated = untreated.take(index)
+        differ = np.flatnonzero(untreated != treated.take(index))
     return LiveEvents(
-        candidates=events, index=index, user=user, pool=events.pool.take(index), tick=tick,
+        user=user, pool=pool, tick=tick,
+        base_accept=base_accept.take(index) if probabilities else None,
+        uniform=uniform.take(index) if probabilities else None,
         hour=events.hour[index] if substitute else None,
         substitute_uniform=events.substitute_uniform[index] if substitute else None,
         substitute_pool=events.substitute_pool[index] if substitute else None,
         segment_bounds=events.segment_bounds,
-        segment_starts=np.searchsorted(index, events.segment_starts),
+        segment_starts=np.searchsorted(index, events.segment_starts), group_starts=starts,
         kept_untreated=untreated, differ=differ,
         differ_user=user.take(differ), differ_tick=tick.take(differ))
 
@@ -194,6 +210,8 @@ def unkept_events(market: Market, live: LiveEvents, schedule: AssignmentSchedule
         # on ``differ`` the treated comparison keeps the event iff the lift is positive
         in_differ = np.flatnonzero(~is_on if effect.lift > 0 else is_on)
         return Unkept(live.differ.take(in_differ), in_differ)
+    if live.uniform is None:
+        raise ValueError("these live events were taken without the probabilities' operands")
     if dose is None:
         dose = schedule.is_treated.astype(float)
     probability = live.base_accept * (1.0 + effect.lift * own_dose_of_events(
