@@ -11,7 +11,11 @@ deliveries after the lead time; ``calendar.start_stock_calendar``), and the
 segments that group the order events are read from that same calendar
 (``calendar.segment_bounds``); between two stock events the arithmetic is
 vectorized numpy over all order events and all worlds at once, so the cost
-grows with the number of order events, not with users x ticks.
+grows with the number of order events, not with users x ticks. Each world is
+held as the live events it does not keep (``worlds.thinning``), and its orders
+are served from per-(segment, pool) counts (``worlds.serving``), so beyond the
+passes shared by all worlds a world costs in proportion to the events where it
+differs from the others and to its lost orders.
 """
 
 from __future__ import annotations

@@ -25,7 +25,7 @@ __all__ = ["group_starts", "kept_mask", "lost_orders", "orders_per_group", "tall
 
 
 def group_starts(pool: np.ndarray, segment_starts: np.ndarray, n_pools: int) -> np.ndarray:
-    """Return the index of each (segment, pool) group's first event, shape ``(n_segments, n_pools + 1)``.
+    """Return the first event of each (segment, pool) group, shape ``(n_segments, n_pools + 1)``.
 
     ``pool`` is sorted within each segment ``segment_starts[s]:segment_starts[s + 1]``;
     row ``s`` ends with the segment's end, so group ``(s, p)`` is
@@ -73,7 +73,7 @@ def orders_per_group(unkept: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray
 
 def lost_orders(unkept: np.ndarray, kept: np.ndarray, starts: np.ndarray, before: np.ndarray,
                 orders: np.ndarray, served: np.ndarray) -> np.ndarray:
-    """Return the events of one world's lost orders (sorted): each group's orders after its served ones.
+    """Return the events of one world's lost orders (sorted): each group's orders after the served.
 
     Parameters
     ----------
