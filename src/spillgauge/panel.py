@@ -8,7 +8,25 @@ import numpy as np
 
 from spillgauge.schedule import read_only_view
 
-__all__ = ["OutcomePanel"]
+__all__ = ["OutcomePanel", "sum_days_in_order"]
+
+
+def sum_days_in_order(days: np.ndarray) -> np.ndarray:
+    """Return each row's sum over days, added left to right (day 0 first).
+
+    A fixed order of additions makes a float outcome's total (revenue) the same
+    bit for bit wherever it is summed: from the world's order events (which skip
+    days without orders; adding 0.0 changes nothing), from a team's daily rows, or
+    over a prefix of days. Integer tables give the plain sum.
+
+    >>> sum_days_in_order(np.array([[0.1, 0.2, 0.3], [1.0, 0.0, 2.0]])).tolist()
+    [0.6000000000000001, 3.0]
+    """
+    days = np.asarray(days)
+    total = np.zeros(days.shape[0], dtype=days.dtype if days.dtype.kind == "f" else np.int64)
+    for d in range(days.shape[1]):
+        total = total + days[:, d]
+    return total
 
 
 @dataclass(frozen=True, eq=False, slots=True)
@@ -89,7 +107,8 @@ class OutcomePanel:
             raise ValueError("fulfilled_total and demanded_total are needed without daily tables")
         if self.outcome_total is None:  # the orders themselves, or the sum of the days
             object.__setattr__(self, "outcome_total", self.fulfilled_total
-                               if self.outcome_days is None else self.outcome_days.sum(axis=1))
+                               if self.outcome_days is None
+                               else sum_days_in_order(self.outcome_days))
         for name, default in (("outcome_days", self.fulfilled),
                               ("pool_outcome", self.pool_fulfilled)):
             if getattr(self, name) is None:

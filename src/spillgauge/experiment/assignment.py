@@ -102,6 +102,9 @@ class Assignment:
         Pre-period orders of each user (the users file's ``history_orders``, else simulated).
     scenario_name, fingerprint : str
         The scenario and :func:`market_fingerprint` of its market.
+    outcome : str, default "orders"
+        The scenario's ``study.outcome``: what ``analyze`` estimates the effect on
+        (fulfilled orders, conversion or revenue per user over the horizon).
     """
 
     spec: DesignSpec
@@ -117,6 +120,7 @@ class Assignment:
     history: np.ndarray
     scenario_name: str
     fingerprint: str
+    outcome: str = "orders"
 
     @property
     def n_ticks(self) -> int:
@@ -210,4 +214,5 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
                       pool_of_user=np.asarray(population.pool_of_user, dtype=np.int64),
                       history=np.asarray(population.history, dtype=float),
                       scenario_name=scenario.name,
-                      fingerprint=market_fingerprint(scenario_fingerprint(scenario, seed)))
+                      fingerprint=market_fingerprint(scenario_fingerprint(scenario, seed)),
+                      outcome=scenario.study.outcome)

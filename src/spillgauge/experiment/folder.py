@@ -31,6 +31,7 @@ from spillgauge.experiment.assignment import Assignment
 from spillgauge.experiment.balance import assignment_balance
 from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
 from spillgauge.files import dumps, write_atomic
+from spillgauge.scenario.config import OUTCOMES
 from spillgauge.scenario.reading import design_to_dict
 from spillgauge.schedule import AssignmentSchedule
 
@@ -79,7 +80,7 @@ def assignment_record(assignment: Assignment) -> dict:
             "design": design_to_dict(assignment.spec), "estimator": assignment.estimator_name(),
             "seed": assignment.seed, "start": assignment.start.isoformat(),
             "tick_hours": assignment.tick_hours, "days": assignment.days,
-            "confidence": assignment.confidence,
+            "confidence": assignment.confidence, "outcome": assignment.outcome,
             "schedule": {"unit_kind": schedule.unit_kind,
                          "randomization": schedule.randomization,
                          "treated_probability": schedule.treated_probability,
@@ -192,9 +193,12 @@ def read_assignment(folder: str | Path) -> Assignment:
         pool_ids = np.array([str(p) for p in record["pool_ids"]], dtype=object)
         start = datetime.fromisoformat(record["start"])
         tick_hours, days = int(record["tick_hours"]), int(record["days"])
+        outcome = str(record.get("outcome", "orders"))  # files before outcomes hold orders
     except (OSError, json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
         raise ScenarioError(str(record_path), "an assignment.json written by `spillgauge "
                             "assign`", f"{type(exc).__name__}: {exc}") from None
+    if outcome not in OUTCOMES:
+        raise ScenarioError(f"{record_path} outcome", "one of " + ", ".join(OUTCOMES), outcome)
     n_ticks = days * 24 // tick_hours
     users_path = folder / _USERS
     users = _read_csv(users_path, ("user_id", "pool_id", "pre_period_orders", "unit"))
@@ -208,7 +212,7 @@ def read_assignment(folder: str | Path) -> Assignment:
                          confidence=float(record["confidence"]), user_ids=user_ids,
                          pool_ids=pool_ids, pool_of_user=pool_of_user, history=history,
                          scenario_name=str(record["scenario"]),
-                         fingerprint=str(record["scenario_fingerprint"]))
+                         fingerprint=str(record["scenario_fingerprint"]), outcome=outcome)
     kind = info["unit_kind"]
     n_units = int(info["n_units"])
     labels = (user_ids if kind == "user" else pool_ids[:n_units] if kind == "pool"

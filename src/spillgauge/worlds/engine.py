@@ -299,7 +299,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
                        pool=events.pool, is_fulfilled=fulfilled[w],
                        basket_value=market.population.basket_value,
                        pool_of_user=population.pool_of_user, n_ticks=calendar.n_ticks,
-                       day_of_tick=day_of_tick(calendar) if user_days else None))
+                       day_of_tick=day_of_tick(calendar), keep_days=user_days))
             for w in range(n_worlds)]
 
 
