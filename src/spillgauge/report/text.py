@@ -273,7 +273,8 @@ def study_markdown(study) -> str:
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
     lines += ["", SD_RMSE_NOTE]
-    lines += [f"_Note: {note[0].upper()}{note[1:]}_" for note in table_notes(summary)]
+    for note in table_notes(summary):
+        lines += ["", f"_Note: {note[0].upper()}{note[1:]}_"]
     for line in interference_lines(study):  # a paragraph each, after a blank line ending the table
         lines += ["", "Diagnostic, " + line.strip()]
     lines += not_randomized_lines(summary, markdown=True)
