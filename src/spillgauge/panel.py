@@ -72,6 +72,11 @@ class OutcomePanel:
         The outcome's flow per pool tick summed over the pool's users (conversion:
         users whose first fulfilled order fell in the tick); defaults to
         ``pool_fulfilled``.
+    pre_outcome : ndarray of float, shape (n_users,), optional
+        The outcome's pre-period analogue, the covariate of regression adjustment
+        (CUPED): pre-period orders (the default, ``history`` itself), their value
+        (revenue: pre-period orders x basket value) or whether the user ordered in
+        the pre-period (conversion).
     """
 
     fulfilled: np.ndarray | None
@@ -88,6 +93,7 @@ class OutcomePanel:
     outcome_total: np.ndarray | None = None
     outcome_days: np.ndarray | None = None
     pool_outcome: np.ndarray | None = None
+    pre_outcome: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         n_users = self.pool_of_user.shape[0]
@@ -122,13 +128,18 @@ class OutcomePanel:
             raise ValueError("outcome_days must have the shape of fulfilled")
         if self.pool_of_user.shape != (n_users,) or self.history.shape != (n_users,):
             raise ValueError("pool_of_user and history must have shape (n_users,)")
+        if self.pre_outcome is None:
+            object.__setattr__(self, "pre_outcome", self.history)
+        elif self.pre_outcome.shape != (n_users,):
+            raise ValueError("pre_outcome must have shape (n_users,)")
         shape = self.pool_fulfilled.shape
         for name in ("pool_demanded", "pool_lost", "pool_stock", "pool_outcome"):
             if getattr(self, name).shape != shape:
                 raise ValueError(f"{name} must have the shape of pool_fulfilled {shape}")
         for name in ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
                      "pool_demanded", "pool_lost", "pool_stock", "fulfilled_total",
-                     "demanded_total", "outcome_total", "outcome_days", "pool_outcome"):
+                     "demanded_total", "outcome_total", "outcome_days", "pool_outcome",
+                     "pre_outcome"):
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, read_only_view(getattr(self, name)))
 

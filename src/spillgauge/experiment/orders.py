@@ -34,7 +34,7 @@ import pandas as pd
 
 from spillgauge.errors import ScenarioError
 from spillgauge.experiment.assignment import Assignment
-from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
+from spillgauge.experiment.csv_checks import column_codes, column_floats, file_error, refuse_first
 from spillgauge.panel import OutcomePanel
 
 __all__ = ["read_orders", "panel_from_counts"]
@@ -47,14 +47,6 @@ def _numbers(column: pd.Series) -> np.ndarray:
     try:
         return column.astype(np.int64).to_numpy(dtype=float)
     except (ValueError, TypeError, OverflowError):
-        return pd.to_numeric(column, errors="coerce").to_numpy(float)
-
-
-def _floats(column: pd.Series) -> np.ndarray:
-    """Return a column as floats parsed exactly (Python's reading of each text; NaN if none)."""
-    try:
-        return column.to_numpy(dtype=str).astype(np.float64)
-    except ValueError:
         return pd.to_numeric(column, errors="coerce").to_numpy(float)
 
 
@@ -83,6 +75,7 @@ def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick
     pool_tick = np.asarray(pool_tick).astype(np.int64)
     return OutcomePanel(fulfilled=user_day, demanded=user_day,
                         pool_of_user=assignment.pool_of_user, history=assignment.history,
+                        pre_outcome=assignment.covariate,
                         pool_fulfilled=pool_tick, pool_demanded=pool_tick,
                         pool_lost=np.zeros_like(pool_tick), pool_stock=np.zeros_like(pool_tick),
                         tick_hours=assignment.tick_hours, outcome_days=outcome_days,
@@ -194,7 +187,7 @@ def _revenue_flows(path: Path, frame: pd.DataFrame, assignment: Assignment,
                    user: np.ndarray | None, pool: np.ndarray, day: np.ndarray, tick: np.ndarray
                    ) -> dict:
     """Return revenue per user-day (user rows) and per pool-tick from the ``revenue`` column."""
-    value = _floats(frame["revenue"])
+    value = column_floats(frame["revenue"])
     refuse_first(path, frame, ~np.isfinite(value) | (value < 0), "revenue",
                  "a number >= 0 (the value of the row's fulfilled orders)")
     user_days = np.zeros((assignment.user_ids.size, assignment.days))

@@ -19,7 +19,33 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["outcome_tables"]
+__all__ = ["outcome_tables", "pre_period_outcome"]
+
+
+def pre_period_outcome(outcome: str, history: np.ndarray, basket_value: np.ndarray | None
+                       ) -> np.ndarray:
+    """Return the outcome's pre-period analogue per user: the covariate CUPED adjusts for.
+
+    Orders: the pre-period orders themselves (the same array); revenue: pre-period
+    orders x the user's basket value; conversion: 1 when the user ordered in the
+    pre-period, else 0. Regression adjustment on the same metric measured before
+    the experiment is the choice of Deng, Xu, Kohavi & Walker (2013).
+
+    >>> h = np.array([0.0, 2.0, 5.0])
+    >>> pre_period_outcome("revenue", h, np.array([3.0, 1.5, 2.0])).tolist()
+    [0.0, 3.0, 10.0]
+    >>> pre_period_outcome("conversion", h, None).tolist()
+    [0.0, 1.0, 1.0]
+    """
+    if outcome == "orders":
+        return history
+    if outcome == "revenue":
+        if basket_value is None:
+            raise ValueError("revenue needs each user's basket value")
+        return np.asarray(history, dtype=float) * basket_value
+    if outcome == "conversion":
+        return (np.asarray(history) > 0).astype(float)
+    raise ValueError(f"unknown outcome {outcome!r}")
 
 
 def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np.ndarray,
