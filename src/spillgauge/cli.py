@@ -415,7 +415,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("dir", metavar="DIR", help="a folder written by `spillgauge assign` or "
                    "`spillgauge simulate`")
     p.add_argument("--orders", metavar="FILE", help="the orders CSV (default DIR/orders.csv, "
-                   "or DIR/pool_orders.csv for designs whose arms change over time)")
+                   "or DIR/pool_orders.csv for designs whose arms change over time); with "
+                   "the outcome revenue each row needs `revenue`, and pool rows for "
+                   "conversion need `conversions`")
     p.add_argument("--study", metavar="DIR", help="a results folder of `spillgauge run` on "
                    "the same scenario, for context")
     p.add_argument("--json", action="store_true", help="print one JSON object")
