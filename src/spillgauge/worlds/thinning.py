@@ -4,7 +4,8 @@ Every world keeps a candidate event when its uniform falls below the world's
 acceptance probability ``base_accept * (1 + lift * d) * (1 + peer_lift * e)``
 (thinning; Lewis & Shedler 1979), with the dose ``d`` and the exposure ``e`` in
 [0, 1]. No world can keep an event whose uniform is at or above
-``base_accept * max(1, 1 + lift) * max(1, 1 + peer_lift)``, so the worlds are
+``base_accept * max(1, 1 + lift) * max(1, 1 + peer_lift)`` (the last factor
+only when peers count), so the worlds are
 simulated on the other events only (:func:`live_events`): dropping events that
 no world keeps changes no number, and a large share of the candidates goes.
 When a world's doses are all 0 or 1 and peers do not count, its kept events are
@@ -49,9 +50,6 @@ class LiveEvents:
 
     Attributes
     ----------
-    candidates : CandidateEvents
-    index : ndarray of int, shape (n_live,)
-        Each live event's index among the candidates.
     user, pool, tick : ndarray of int, shape (n_live,)
     hour, substitute_uniform : ndarray of float, shape (n_live,), or None
     substitute_pool : ndarray of int, shape (n_live,), or None
