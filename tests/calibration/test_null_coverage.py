@@ -90,25 +90,20 @@ def test_horvitz_thompson_cluster_covers_under_the_null(n_clusters):
                                        200 + n_clusters))
 
 
-# Conservative, measured (3000 replications): 96.4% at 18 h burn-in with share 0.5 (two-sided
-# binomtest p = 0.0003). The variance's mean is right (mean variance / squared error 1.03) and
-# the t reference is the working model's exact one (Imhof 1961); under that model itself
-# coverage is 95.9% at 18 h, the rest is the Poisson hours and the lognormal shocks. strict:
-# a fix makes it pass.
-_WIDE = pytest.mark.xfail(strict=True, reason="switchback coverage 96.4% at 18 h, see comment")
-
-
 @pytest.mark.slow
 @pytest.mark.parametrize(("share", "burn_in_ticks"), [
-    (0.5, 0), (0.5, 6), (0.5, 12), pytest.param(0.5, 18, marks=_WIDE),
+    (0.5, 0), (0.5, 6), (0.5, 12), (0.5, 18),
     (0.3, 0), (0.3, 6), (0.3, 12), (0.3, 18)])
 def test_switchback_burn_in_covers_under_the_null(share, burn_in_ticks):
     # 14 daily blocks with AR(1) daily shocks and a diurnal rhythm; sharp null. The burn-in
     # hours of an unswitched block share the previous block's arm, so the variance adds the
     # lag-1 products of consecutive blocks' scores (the design's joint exposures: Aronow &
     # Samii 2017; Bojinov, Simchi-Levi & Zhao 2023); the t reference is the studentized
-    # estimate's exact distribution under the working model (Imhof 1961). Before: 93.3% and
-    # 92.0% at 12 and 18 h (share 0.5), 92.1-93.2% at share 0.3.
+    # estimate's exact distribution under the working model (Imhof 1961), among the draws
+    # whose variance estimate is positive (a draw without one gives no interval and is not
+    # counted here). Before: 93.3% and 92.0% at 12 and 18 h (share 0.5), 92.1-93.2% at share
+    # 0.3; then 96.4% at 18 h (share 0.5) while the quantile counted the 1.6% of draws
+    # without an interval as misses (0.949 / 0.984).
     assert_covers_95(*switchback_coverage(14, burn_in_ticks, share, 3000, burn_in_ticks))
 
 
@@ -154,20 +149,18 @@ ROLLOUT_WORLDS = {
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("world", [
-    "null", "daily shocks",
-    # measured 93.3% (1500 replications; 93.1% before the baseline ratio's delta-method
-    # terms): the mean variance is 0.85 of the mean squared error, median df 8. The working
-    # model takes pool-period rates as independent, but with 6 h periods under a strong rhythm
-    # a pool's level difference moves every period's change d_pk together (level x rhythm),
-    # so the small-sample factor and the df from that model are too optimistic.
-    pytest.param("diurnal, 6 h periods", marks=pytest.mark.xfail(
-        strict=True, reason="staggered rollout coverage 93.3% under a strong diurnal rhythm"))])
+@pytest.mark.parametrize("world", ["null", "daily shocks", "diurnal, 6 h periods"])
 def test_staggered_rollout_covers_and_is_unbiased(world):
     # Coverage at least 95% (one-sided binomtest: the extrapolation term for the all-control
-    # period is conservative, 97% was measured under strong daily shocks) and mean error
-    # within 4 Monte Carlo SE of 0: the staggered comparison is design-unbiased for each
-    # period's effect (Callaway & Sant'Anna 2021).
+    # period is conservative) and mean error within 4 Monte Carlo SE of 0: the staggered
+    # comparison is design-unbiased for each period's effect (Callaway & Sant'Anna 2021).
+    # The small-sample factor and df come from a working model with a pool level shared by
+    # the pool's periods (CR2-type, Bell & McCaffrey 2002; Pustejovsky & Tipton 2018).
+    # Measured (1500 replications, seed 7): null 96.9%, daily shocks 98.0%, diurnal with
+    # 6 h periods 96.5% (mean variance / squared error 0.96, median df 4.5). With the
+    # working model of independent pool-period rates the diurnal case covered 93.3%
+    # (variance 0.85 of the squared error, median df 8): under a rhythm a pool's level
+    # moves every period's change d_pk together.
     hits, total, errors = rollout_coverage(1500, 7, **ROLLOUT_WORLDS[world])
     assert stats.binomtest(hits, total, 0.95, alternative="less").pvalue > 0.001, hits / total
     assert abs(errors.mean()) < 4 * errors.std(ddof=1) / np.sqrt(errors.size)

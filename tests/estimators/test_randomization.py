@@ -41,9 +41,19 @@ def test_cluster_p_value_agrees_with_randomization(seed):
     assert abs(analytic - exact) < 0.05, (analytic, exact)
 
 
-@pytest.mark.parametrize("burn_in_ticks", [0, pytest.param(12, marks=pytest.mark.xfail(
-    strict=True, reason="burn-in p-values still differ from the randomization reference "
-    "(mean gap 0.105, mean p 0.31 analytic vs 0.29 exact; see tests/calibration)"))])
+# At 12 h burn-in the gap is per world, not a shift: over these 6 worlds the mean analytic
+# and exact p-values are both 0.288 (signed gaps -0.16 to +0.17, mean absolute 0.104); over
+# 20 worlds of the same stream the mean absolute gap is 0.068 (0.424 vs 0.441). The t test is
+# calibrated over worlds (95% null coverage, tests/calibration), the randomization test given
+# one world's outcomes: with half of every block estimated from the 3-4 unswitched blocks of
+# an arm, which days are high decides the exact p-value in a way the t reference averages
+# over. docs/designs.md (switchback) gives the derivation and the first block's part.
+_BURN_IN_GAP = pytest.mark.xfail(strict=True, reason=(
+    "burn-in p-values differ per world from the randomization reference (mean gap 0.104 over "
+    "6 worlds, no shift: mean p 0.288 both); see the comment above"))
+
+
+@pytest.mark.parametrize("burn_in_ticks", [0, pytest.param(12, marks=_BURN_IN_GAP)])
 def test_switchback_p_value_agrees_with_randomization(burn_in_ticks):
     # Bojinov, Simchi-Levi & Zhao (2023): exact p-values for switchbacks by re-drawing the
     # blocks' Bernoulli arms. Averaged over worlds the analytic p-value should track the

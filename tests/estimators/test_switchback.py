@@ -357,3 +357,30 @@ def test_working_model_df_of_equal_blocks_is_the_exact_t():
     series = blocks.ravel()
     est = switchback_difference(_one_user_panel(series), _market_schedule(arms, 3))
     assert est.degrees_of_freedom == pytest.approx(8.0, rel=1e-6)
+
+
+def test_working_model_quantile_covers_among_draws_with_an_interval():
+    # Derivation (on paper): with estimate a'u and an indefinite variance estimate u'Ku
+    # (u standard normal), a draw gives an interval only when u'Ku > 0; the quantile q
+    # must give P(|a'u| <= q sqrt(u'Ku) | u'Ku > 0) = 0.95. Checked by Monte Carlo
+    # against the t quantile of the returned df (binomial error, scipy.stats.binomtest).
+    from scipy import stats
+
+    from spillgauge.estimators._switchback_inference import working_model_df
+
+    rng = np.random.default_rng(4)
+    n = 6
+    loading = np.ones(n) / n                  # the mean of n blocks
+    residual = np.eye(n) - np.ones((n, n)) / n
+    lag = np.eye(n, k=1) + np.eye(n, k=-1)    # lag-1 products: not positive definite
+    kernel = residual @ (np.eye(n) + 0.9 * lag) @ residual / (n * (n - 1))
+    assert np.linalg.eigvalsh(kernel).min() < 0
+    df = working_model_df([(loading, kernel)], 0.95, fallback=float(n - 1))
+    q = stats.t.ppf(0.975, df)
+    u = rng.standard_normal((200_000, n))
+    variance = np.einsum("ri,ij,rj->r", u, kernel, u)
+    has_interval = variance > 0
+    assert 0.05 < 1 - has_interval.mean() < 0.5           # some draws give no interval
+    assert np.isfinite(df)
+    hits = int(np.sum((u @ loading) ** 2 <= q * q * variance))
+    assert stats.binomtest(hits, int(has_interval.sum()), 0.95).pvalue > 0.001

@@ -186,6 +186,14 @@ def working_model_df(forms: list[tuple[np.ndarray, np.ndarray]], confidence: flo
     degrees of freedom with that quantile (infinite when ``q`` is at most the
     normal quantile). Equal arms of equal blocks without burn-in give ``B - 2``,
     the exact t.
+
+    A variance estimate that is not positive gives no interval, so the quantile is
+    the one of the draws that give one: ``P(estimate^2 <= q^2 variance) =
+    confidence * P(variance > 0)`` (an estimate within ``q`` standard errors implies a
+    positive variance). Asking for ``confidence`` unconditionally counted the draws
+    without an interval as misses and over-covered among the rest: at 18 h burn-in
+    of 14 daily blocks 1.6% of draws have no interval, and coverage among the others
+    was 96.4% = 0.949 / 0.984.
     """
     loading = np.concatenate([a for a, _ in forms])
     size = loading.size
@@ -196,9 +204,10 @@ def working_model_df(forms: list[tuple[np.ndarray, np.ndarray]], confidence: flo
         kernel[start:stop, start:stop] = matrix
         start = stop
     outer = np.outer(loading, loading)
+    target = confidence * probability_not_positive(-np.linalg.eigvalsh(kernel))  # P(V >= 0)
 
     def shortfall(q: float) -> float:
-        return probability_not_positive(np.linalg.eigvalsh(outer - q * q * kernel)) - confidence
+        return probability_not_positive(np.linalg.eigvalsh(outer - q * q * kernel)) - target
 
     level = (1.0 + confidence) / 2.0
     low, high = float(stats.norm.ppf(level)), float(stats.t.ppf(level, 0.5))

@@ -10,6 +10,8 @@ as a named alternative; its implicit period weights differ from the GTE's
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from spillgauge.estimators._inference import (
@@ -18,6 +20,10 @@ from spillgauge.estimators._inference import (
     check_over_time,
     degenerate_estimate,
     satterthwaite_df,
+)
+from spillgauge.estimators._rollout_inference import (
+    small_sample_correction,
+    working_model,
 )
 from spillgauge.estimators.estimate import Estimate
 from spillgauge.estimators.relative import with_control_mean
@@ -178,10 +184,16 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
     baseline, which no pool is treated in, get the identified hours' mean effect.
 
     Variance: the linearization over pools ``psi_p`` (each period's residual of
-    ``d_pk`` about its arm's mean, weighted as in the point), with a small-sample
-    factor and Satterthwaite degrees of freedom from the working model of
-    independent pool-period rates with variance ``1 / (N_p L_k)`` (Bell &
-    McCaffrey 2002; Pustejovsky & Tipton 2018). Market-wide shocks cancel inside
+    ``d_pk`` about its arm's mean, weighted as in the point, summed over the pool's
+    periods: clustered by pool), with a small-sample factor and Satterthwaite degrees
+    of freedom from a working model in which a pool's level is shared by all its
+    periods: ``Cov(y_p) = s_a^2 g_p g_p' + diag(s_e^2 mu_pk / (N_p L_k))``, ``g_pk`` the
+    market's level for the pool's arm in period ``k`` from a Poisson log-linear fit
+    (Bell & McCaffrey 2002; Pustejovsky & Tipton 2018; see ``_rollout_inference``).
+    Under a rhythm the level does not cancel in ``d_pk``: it moves every period's
+    change of the pool together (a working model of independent pool-period rates
+    gave variances 0.85 of the squared error and 93.3% coverage with 6 h periods
+    under a strong rhythm). Market-wide shocks cancel inside
     each period's comparison but move the effect from period to period; the
     baseline's effect is extrapolated as the identified hours' relative effect
     ``rho = sum_k L_k tau_k / sum_k L_k Ybar_off,k`` times the baseline's level, a ratio
@@ -212,6 +224,70 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
     method = "staggered_difference_in_differences"
     confidence = _check_inputs(panel, schedule, confidence, method)
     rates, users, lengths, treated = _pool_period_rates(panel, schedule)
+    n_pools = rates.shape[0]
+    lin = _linearize(rates, users, lengths, treated, float(schedule.n_ticks))
+    if lin is None:
+        return degenerate_estimate(method, "no period after the first has pools in both arms",
+                                   n_units=n_pools)
+    point, theta, psi_maps = lin.point, lin.theta, lin.psi_maps
+    effects, used_lengths, levels, maps = lin.effects, lin.used_lengths, lin.levels, lin.maps
+    missing_hours, missing_level = lin.missing_hours, lin.missing_level
+    control_orders, period_variances = lin.control_orders, lin.period_variances
+    psi = np.einsum("kpq,qk->p", psi_maps, rates)
+    factor, df_pools = small_sample_correction(theta, psi_maps,
+                                               *working_model(rates, users, lengths, treated))
+    if not np.isfinite(factor):
+        return degenerate_estimate(method, "an arm of every period holds a single pool, so "
+                                   "the pool-level variance is undefined", n_units=n_pools,
+                                   point=point)
+    variance = factor * float(np.sum(psi ** 2))
+    parts = [(variance, df_pools)]
+    if missing_hours > 0 and effects.size >= 2 and np.all(levels > 0):
+        share = used_lengths / used_lengths.sum()
+        relative = effects / levels
+        spread = float(share @ (relative - share @ relative) ** 2) * effects.size / (
+            effects.size - 1)
+        sampling = float(share @ (np.array(period_variances) / levels ** 2))
+        between = max(spread - sampling, 0.0)
+        extrapolation = (missing_hours * missing_level) ** 2 * (1 + 1 / effects.size) * between
+        if extrapolation > 0:
+            parts.append((extrapolation, effects.size - 1.0))
+            variance += extrapolation
+    df = satterthwaite_df(parts) if len(parts) > 1 else parts[0][1]
+    estimate = build_estimate(point, variance, confidence=confidence, method=method,
+                              n_units=n_pools, df=df)
+    # The control mean is the horizon's counterfactual level the point is scaled by: the
+    # not-yet-switched pools' rate in each identified period, the baseline's rate in the
+    # others, so point / control mean = sum_k L_k tau_k / sum_k L_k Ybar_off,k. Its pool
+    # contributions phi_p (residuals about each mean) give its variance and covariance
+    # with the point by the same linearization over pools.
+    phi = np.zeros(n_pools)
+    for (k, on, _), length, level in zip(maps, used_lengths, levels):
+        off = ~on
+        phi[off] += length * users[off] / users[off].sum() * (rates[off, k] - level)
+    if missing_hours > 0:
+        phi += missing_hours * users / users.sum() * (rates[:, 0] - missing_level)
+    return with_control_mean(estimate, control_orders + missing_hours * missing_level,
+                             factor * float(phi @ phi), factor * float(psi @ phi))
+
+
+class _Linearization(NamedTuple):
+    point: float
+    theta: np.ndarray          # (pools, periods): point = sum theta * rates
+    psi_maps: np.ndarray       # (periods, pools, pools): psi = sum_k R_k rates[:, k]
+    effects: np.ndarray
+    used_lengths: np.ndarray
+    levels: np.ndarray
+    maps: list
+    period_variances: list
+    missing_hours: float
+    missing_level: float
+    control_orders: float
+
+
+def _linearize(rates: np.ndarray, users: np.ndarray, lengths: np.ndarray, treated: np.ndarray,
+               horizon: float) -> _Linearization | None:
+    """Return the staggered point and its linearization over pools (None if unidentified)."""
     n_pools, n_periods = rates.shape
     change = rates - rates[:, :1]
     effects, used_lengths, levels, maps = [], [], [], []
@@ -225,10 +301,8 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
         levels.append(float(users[off] @ rates[off, k] / users[off].sum()))
         maps.append((k, on, weight))
     if not effects:
-        return degenerate_estimate(method, "no period after the first has pools in both arms",
-                                   n_units=n_pools)
+        return None
     effects, used_lengths, levels = np.array(effects), np.array(used_lengths), np.array(levels)
-    horizon = float(schedule.n_ticks)
     # hours without a comparison (the all-control baseline) get the identified hours' effect
     # relative to the control level, applied to their own level: the effect per hour moves
     # with demand (a lift multiplies it) and the baseline's demand is observed
@@ -272,45 +346,8 @@ def staggered_difference_in_differences(panel: OutcomePanel, schedule: Assignmen
             theta[:, k] -= ratio * length * share_off
             psi_maps[k] -= ratio * length * share_off[:, None] * (
                 off[:, None] * (np.eye(n_pools) - share_off[None, :]))
-    psi = np.einsum("kpq,qk->p", psi_maps, rates)
-    noise = 1.0 / (users[:, None] * lengths[None, :])          # working Var(y_pk)
-    covariance = np.einsum("kpq,qk,krq->pr", psi_maps, noise, psi_maps)
-    target = float(np.sum(theta ** 2 * noise))
-    trace = float(np.trace(covariance))
-    if not trace > 1e-12 * target:
-        return degenerate_estimate(method, "an arm of every period holds a single pool, so "
-                                   "the pool-level variance is undefined", n_units=n_pools,
-                                   point=point)
-    factor = target / trace
-    variance = factor * float(np.sum(psi ** 2))
-    parts = [(variance, trace ** 2 / float(np.sum(covariance ** 2)))]
-    if missing_hours > 0 and effects.size >= 2 and np.all(levels > 0):
-        share = used_lengths / used_lengths.sum()
-        relative = effects / levels
-        spread = float(share @ (relative - share @ relative) ** 2) * effects.size / (
-            effects.size - 1)
-        sampling = float(share @ (np.array(period_variances) / levels ** 2))
-        between = max(spread - sampling, 0.0)
-        extrapolation = (missing_hours * missing_level) ** 2 * (1 + 1 / effects.size) * between
-        if extrapolation > 0:
-            parts.append((extrapolation, effects.size - 1.0))
-            variance += extrapolation
-    df = satterthwaite_df(parts) if len(parts) > 1 else parts[0][1]
-    estimate = build_estimate(point, variance, confidence=confidence, method=method,
-                              n_units=n_pools, df=df)
-    # The control mean is the horizon's counterfactual level the point is scaled by: the
-    # not-yet-switched pools' rate in each identified period, the baseline's rate in the
-    # others, so point / control mean = sum_k L_k tau_k / sum_k L_k Ybar_off,k. Its pool
-    # contributions phi_p (residuals about each mean) give its variance and covariance
-    # with the point by the same linearization over pools.
-    phi = np.zeros(n_pools)
-    for (k, on, _), length, level in zip(maps, used_lengths, levels):
-        off = ~on
-        phi[off] += length * users[off] / users[off].sum() * (rates[off, k] - level)
-    if missing_hours > 0:
-        phi += missing_hours * users / users.sum() * (rates[:, 0] - missing_level)
-    return with_control_mean(estimate, control_orders + missing_hours * missing_level,
-                             factor * float(phi @ phi), factor * float(psi @ phi))
+    return _Linearization(point, theta, psi_maps, effects, used_lengths, levels, maps,
+                          period_variances, missing_hours, missing_level, control_orders)
 
 
 def two_way_fixed_effects_period_weights(is_treated: np.ndarray, users: np.ndarray,
