@@ -237,10 +237,22 @@ def test_nan_replications_are_dropped_and_counted():
     se = np.array([0.5, 0.5, np.nan, 0.5])
     m = design_metrics(est, se, est - 1, est + 1, np.full(4, 2.0))
     clean = design_metrics(est[[0, 3]], se[[0, 3]], est[[0, 3]] - 1, est[[0, 3]] + 1, [2.0, 2.0])
-    assert m.n_reps == 2 and m.n_dropped == 2
+    assert m.n_reps == 2 and m.n_dropped == 2 and m.n_estimates == 3
     assert m.usable_share == 0.5 and m.usable_share_se == pytest.approx(0.25)  # sqrt(.5*.5/4)
-    usable = {"n_dropped": 0, "usable_share": 1.0, "usable_share_se": 0.0}
-    assert m.to_dict() | usable == pytest.approx(clean.to_dict(), nan_ok=True)
+    # The interval metrics are those of the two replications with an interval ...
+    interval = ("coverage", "coverage_se", "ci_width", "ci_width_se", "power", "power_se",
+                "mean_se", "mean_se_se", "n_significant")
+    assert {k: m.to_dict()[k] for k in interval} == pytest.approx(
+        {k: clean.to_dict()[k] for k in interval}, nan_ok=True)
+    # ... the point metrics those of the three finite estimates, the one without a standard
+    # error included (leaving it out would select on its noise).
+    kept = [0, 2, 3]
+    points = design_metrics(est[kept], [0.5] * 3, est[kept] - 1, est[kept] + 1, [2.0] * 3)
+    point = ("mean_estimate", "mean_estimate_se", "bias", "bias_se", "sd", "sd_se", "rmse",
+             "rmse_se", "error_sd", "error_sd_se", "relative_bias", "relative_bias_se")
+    assert {k: m.to_dict()[k] for k in point} == pytest.approx(
+        {k: points.to_dict()[k] for k in point}, nan_ok=True)
+    assert m.bias == pytest.approx(0.0) and m.rmse == pytest.approx(math.sqrt(2 / 3))
 
 
 def test_all_nan_gives_nan_metrics():

@@ -79,6 +79,7 @@ class DesignMetrics:
     usable_share_se: float = math.nan
     error_sd: float = math.nan
     error_sd_se: float = math.nan
+    n_estimates: int = 0
 
     def to_dict(self) -> dict[str, float | int]:
         """Return the fields as a dict of plain ``int`` (counts) and ``float`` (NaN allowed).
@@ -228,8 +229,12 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     Returns
     -------
     DesignMetrics
-        With ``n`` used replications, errors ``d_r = estimate_r - gte_r`` and
-        ``g_bar = mean(gte)``:
+        The point metrics (mean_estimate, bias, relative_bias, sd, error_sd,
+        rmse) use the ``n_estimates`` replications with a finite estimate and GTE,
+        also those whose standard error or interval is missing; the interval
+        metrics (coverage, ci_width, power, type_s, type_m, mean_se) use the
+        ``n = n_reps`` of them that also have an interval. With errors
+        ``d_r = estimate_r - gte_r`` and ``g_bar = mean(gte)``:
 
         - mean_estimate = mean(estimate); SE sd / sqrt(n)
         - bias = mean(d); SE sd(d) / sqrt(n)
@@ -266,9 +271,11 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
 
     Notes
     -----
-    A replication is dropped (and counted in ``n_dropped``) when its estimate is not
-    finite or its standard error, CI bounds or GTE is NaN. Type S and Type M follow
-    Gelman & Carlin (2014), with the mean realised GTE as the true effect.
+    A replication is dropped from the interval metrics (and counted in ``n_dropped``)
+    when its estimate is not finite or its standard error, CI bounds or GTE is NaN;
+    it still counts in the point metrics when its estimate and GTE are finite. Type S
+    and Type M follow Gelman & Carlin (2014), with the mean realised GTE as the true
+    effect.
 
     Examples
     --------
@@ -276,47 +283,75 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     ...                    [2.0, 3.0, 4.0, 1.0], [1.5] * 4)
     >>> m.n_reps, m.n_dropped, m.bias, m.coverage
     (3, 1, 0.5, 0.6666666666666666)
+
+    An estimate whose variance gave no interval still counts in the bias:
+
+    >>> m = design_metrics([1.0, 2.0, 4.0], [0.5, 0.5, np.nan], [0.0, 1.0, np.nan],
+    ...                    [2.0, 3.0, np.nan], [1.5] * 3)
+    >>> m.n_estimates, m.n_reps, m.bias, m.coverage
+    (3, 2, 0.8333333333333334, 1.0)
     """
     _check_alpha(alpha)
     est, se, low, high, g = _check_inputs(estimates, standard_errors, ci_low, ci_high, gte)
     fisher = None if p_values is None else np.broadcast_to(np.asarray(p_values, float), est.shape)
-    is_used = np.isfinite(est) & ~np.isnan(se) & ~np.isnan(low) & ~np.isnan(high) & ~np.isnan(g)
+    has_estimate = np.isfinite(est) & ~np.isnan(g)
+    is_used = has_estimate & ~np.isnan(se) & ~np.isnan(low) & ~np.isnan(high)
     n_dropped = int(est.size - is_used.sum())
+    usable_share, usable_share_se = _share(is_used) if is_used.size else (math.nan, math.nan)
+    if not has_estimate.any():
+        return _empty_metrics(n_dropped, usable_share, usable_share_se)
+    # The point metrics use every replication with an estimate, also those whose variance
+    # gave no interval (leaving them out would select on the estimate's own noise).
+    point, point_gte = est[has_estimate], g[has_estimate]
+    n_estimates = point.size
     est, se, low, high, g = (a[is_used] for a in (est, se, low, high, g))
     fisher = None if fisher is None else fisher[is_used]
     n = est.size
-    usable_share, usable_share_se = _share(is_used) if is_used.size else (math.nan, math.nan)
-    if n == 0:
-        return _empty_metrics(n_dropped, usable_share, usable_share_se)
     if outcome_scale is None:
-        outcome_scale = float(max(np.abs(est).max(), np.abs(g).max(),
+        outcome_scale = float(max(np.abs(point).max(), np.abs(point_gte).max(),
                                   np.abs(low[np.isfinite(low)]).max(initial=0.0),
                                   np.abs(high[np.isfinite(high)]).max(initial=0.0)))
     tol = TOLERANCE * max(float(outcome_scale), np.finfo(float).tiny)
 
-    error = est - g
-    g_bar = float(g.mean())
+    error = point - point_gte
+    g_bar = float(point_gte.mean())
     bias = float(error.mean())
-    sd = _sd(est)
+    sd = _sd(point)
     error_sd = _sd(error)
-    g_bar_se = _sd(g) / math.sqrt(n) if n > 1 else 0.0
+    g_bar_se = _sd(point_gte) / math.sqrt(n_estimates) if n_estimates > 1 else 0.0
     is_zero_gte = abs(g_bar) <= max(2 * g_bar_se, tol)
     rmse = math.sqrt(float(np.mean(error**2)))
     if rmse > 0:
-        rmse_se = _sd(error**2) / (2 * rmse * math.sqrt(n))
+        rmse_se = _sd(error**2) / (2 * rmse * math.sqrt(n_estimates))
     else:
-        rmse_se = 0.0 if n > 1 else math.nan
+        rmse_se = 0.0 if n_estimates > 1 else math.nan
 
     if not is_zero_gte:
         ratio = bias / g_bar
-        if n > 1:
-            cov = np.cov(error, g, ddof=1)
+        if n_estimates > 1:
+            cov = np.cov(error, point_gte, ddof=1)
             ratio_var = cov[0, 0] - 2 * ratio * cov[0, 1] + ratio**2 * cov[1, 1]
-            relative_bias_se = math.sqrt(max(float(ratio_var), 0.0) / n) / abs(g_bar)
+            relative_bias_se = (math.sqrt(max(float(ratio_var), 0.0) / n_estimates)
+                                / abs(g_bar))
         else:
             relative_bias_se = math.nan
     else:
         ratio, relative_bias_se = math.nan, math.nan
+
+    if n == 0:
+        interval = dict.fromkeys(("coverage", "coverage_se", "ci_width", "ci_width_se", "power",
+                                  "power_se", "type_s", "type_s_se", "type_m", "type_m_se",
+                                  "mean_se", "mean_se_se"), math.nan)
+        return DesignMetrics(
+            n_reps=0, n_dropped=n_dropped, n_significant=0, n_estimates=n_estimates,
+            mean_estimate=float(point.mean()), mean_estimate_se=sd / math.sqrt(n_estimates),
+            bias=bias, bias_se=error_sd / math.sqrt(n_estimates),
+            relative_bias=ratio, relative_bias_se=relative_bias_se,
+            sd=sd, sd_se=sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
+            rmse=rmse, rmse_se=rmse_se, usable_share=usable_share,
+            usable_share_se=usable_share_se, error_sd=error_sd,
+            error_sd_se=(error_sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1
+                         else math.nan), **interval)
 
     is_covered = (low - tol <= g) & (g <= high + tol)
     if fisher is None:
@@ -338,11 +373,11 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         type_s = type_s_se = type_m = type_m_se = math.nan
 
     return DesignMetrics(
-        n_reps=n, n_dropped=n_dropped, n_significant=n_significant,
-        mean_estimate=float(est.mean()), mean_estimate_se=sd / math.sqrt(n),
-        bias=bias, bias_se=_sd(error) / math.sqrt(n),
+        n_reps=n, n_dropped=n_dropped, n_significant=n_significant, n_estimates=n_estimates,
+        mean_estimate=float(point.mean()), mean_estimate_se=sd / math.sqrt(n_estimates),
+        bias=bias, bias_se=error_sd / math.sqrt(n_estimates),
         relative_bias=ratio, relative_bias_se=relative_bias_se,
-        sd=sd, sd_se=sd / math.sqrt(2 * (n - 1)) if n > 1 else math.nan,
+        sd=sd, sd_se=sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
         rmse=rmse, rmse_se=rmse_se,
         coverage=coverage, coverage_se=coverage_se,
         ci_width=float(width.mean()), ci_width_se=_sd(width) / math.sqrt(n),
@@ -350,7 +385,8 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         type_s=type_s, type_s_se=type_s_se, type_m=type_m, type_m_se=type_m_se,
         mean_se=float(se.mean()), mean_se_se=_sd(se) / math.sqrt(n),
         usable_share=usable_share, usable_share_se=usable_share_se,
-        error_sd=error_sd, error_sd_se=error_sd / math.sqrt(2 * (n - 1)) if n > 1 else math.nan,
+        error_sd=error_sd,
+        error_sd_se=error_sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
     )
 
 
@@ -389,6 +425,6 @@ def _share(is_event: np.ndarray) -> tuple[float, float]:
 def _empty_metrics(n_dropped: int, usable_share: float, usable_share_se: float
                    ) -> DesignMetrics:
     values = {f.name: math.nan for f in dataclasses.fields(DesignMetrics)}
-    values.update(n_reps=0, n_dropped=n_dropped, n_significant=0, usable_share=usable_share,
-                  usable_share_se=usable_share_se)
+    values.update(n_reps=0, n_dropped=n_dropped, n_significant=0, n_estimates=0,
+                  usable_share=usable_share, usable_share_se=usable_share_se)
     return DesignMetrics(**values)

@@ -179,11 +179,13 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha, unit) -> str:
     params = ", ".join(f"{k}={v}" for k, v in chosen.params.items())
     where = f"{chosen.label}: {params}" if params else chosen.label
     gte_text = f"{format_number(gte)} ± {format_number(gte_se)}" if math.isfinite(gte_se) else format_number(gte)
+    n_point = max(m.n_estimates, m.n_reps)  # metrics saved before n_estimates carry 0
+    among = "" if n_point == m.n_reps else f" (in the {m.n_reps} that gave an interval)"
     sentences = [
-        f"Randomize by {chosen.unit} ({where}): over {m.n_reps} replications its bias is "
+        f"Randomize by {chosen.unit} ({where}): over {n_point} replications its bias is "
         f"{format_number(m.bias, sign=True)} {unit} ({format_percent(m.relative_bias, sign=True)} of the "
         f"GTE of {gte_text}), SD {format_number(m.sd)}, RMSE {format_number(m.rmse)}, CI coverage "
-        f"{m.coverage:.1%} against the nominal {1 - alpha:.0%}, and power {m.power:.0%}."]
+        f"{m.coverage:.1%}{among} against the nominal {1 - alpha:.0%}, and power {m.power:.0%}."]
     user = next((c for c in ranked if c.is_user_level and math.isfinite(c.metrics.rmse)), None)
     if user is not None and not chosen.is_user_level:
         sentences += _versus_user(chosen, user, gte, unit)
