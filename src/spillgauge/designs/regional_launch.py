@@ -135,7 +135,9 @@ class RegionalLaunch(DesignKind):
 
     def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
                  confidence: float, tick_hours: int):
-        from spillgauge.estimators.synthetic_did import synthetic_difference_in_differences
+        from spillgauge.estimators.synthetic_did import (
+            synthetic_difference_in_differences,
+        )
 
         if spec.estimator == "synthetic_did" and spec.variance != "placebo":
             return synthetic_difference_in_differences(panel, schedule, confidence=confidence,

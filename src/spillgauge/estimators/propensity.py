@@ -166,14 +166,13 @@ def aipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray, *
     jacobian[1:k + 1, 1:k + 1] = -(x * wc[:, None]).T @ x / n
     jacobian[1:k + 1, k + 1:] = (x * (wc * residual)[:, None]).T @ x / n
     jacobian[k + 1:, k + 1:] = -(x * (p * (1 - p))[:, None]).T @ x / n
+    cov = _sandwich(moments, jacobian)
     if full:  # append mu1 = mean_T(y): moment t (y - mu1), d/d mu1 = -mean(t)
         mu1 = float(y[t].mean())
-        moments = np.column_stack([moments, tf * (y - mu1)])
         jacobian = np.pad(jacobian, ((0, 1), (0, 1)))
         jacobian[-1, -1] = -tf.mean()
-    cov = _sandwich(moments, jacobian)
-    if full:
-        v_tau, v_mu1, c_mu1_tau = cov[0, 0], cov[-1, -1], cov[0, -1]
+        joint = _sandwich(np.column_stack([moments, tf * (y - mu1)]), jacobian)
+        v_tau, v_mu1, c_mu1_tau = cov[0, 0], joint[-1, -1], joint[0, -1]
         return (tau, float(math.sqrt(max(v_tau, 0.0))), mu1 - tau,
                 v_mu1 + v_tau - 2 * c_mu1_tau, c_mu1_tau - v_tau)
     return tau, float(math.sqrt(max(cov[0, 0], 0.0)))
