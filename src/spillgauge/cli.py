@@ -259,7 +259,7 @@ def _cmd_assign(args) -> int:
 
 def _cmd_simulate(args) -> int:
     from spillgauge.experiment.simulate import simulate_experiment, write_experiment
-    from spillgauge.formatting import format_number
+    from spillgauge.formatting import OUTCOME_UNITS, format_number
 
     scenario = _load(args.scenario)
     experiment = simulate_experiment(scenario, args.design, seed=args.seed, start=args.start)
@@ -267,7 +267,8 @@ def _cmd_simulate(args) -> int:
     truth = experiment.truth
     print(f"{experiment.assignment.spec.label}: one synthetic experiment, seed "
           f"{experiment.assignment.seed}; true effect (GTE) {format_number(truth.gte, sign=True)} "
-          f"orders per user ({format_number(truth.control_mean)} all control, "
+          f"{OUTCOME_UNITS[experiment.assignment.outcome]} "
+          f"({format_number(truth.control_mean)} all control, "
           f"{format_number(truth.treated_mean)} all treated)")
     print(f"wrote {args.out}/ ({', '.join(p.name for p in written)})")
     print(f"next: spillgauge analyze {args.out}")
@@ -414,7 +415,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("dir", metavar="DIR", help="a folder written by `spillgauge assign` or "
                    "`spillgauge simulate`")
     p.add_argument("--orders", metavar="FILE", help="the orders CSV (default DIR/orders.csv, "
-                   "or DIR/pool_orders.csv for designs whose arms change over time)")
+                   "or DIR/pool_orders.csv for designs whose arms change over time); with "
+                   "the outcome revenue each row needs `revenue`, and pool rows for "
+                   "conversion need `conversions`")
     p.add_argument("--study", metavar="DIR", help="a results folder of `spillgauge run` on "
                    "the same scenario, for context")
     p.add_argument("--json", action="store_true", help="print one JSON object")

@@ -8,7 +8,25 @@ import numpy as np
 
 from spillgauge.schedule import read_only_view
 
-__all__ = ["OutcomePanel"]
+__all__ = ["OutcomePanel", "sum_days_in_order"]
+
+
+def sum_days_in_order(days: np.ndarray) -> np.ndarray:
+    """Return each row's sum over days, added left to right (day 0 first).
+
+    A fixed order of additions makes a float outcome's total (revenue) the same
+    bit for bit wherever it is summed: from the world's order events (which skip
+    days without orders; adding 0.0 changes nothing), from a team's daily rows, or
+    over a prefix of days. Integer tables give the plain sum.
+
+    >>> sum_days_in_order(np.array([[0.1, 0.2, 0.3], [1.0, 0.0, 2.0]])).tolist()
+    [0.6000000000000001, 3.0]
+    """
+    days = np.asarray(days)
+    total = np.zeros(days.shape[0], dtype=days.dtype if days.dtype.kind == "f" else np.int64)
+    for d in range(days.shape[1]):
+        total = total + days[:, d]
+    return total
 
 
 @dataclass(frozen=True, eq=False, slots=True)
@@ -54,6 +72,11 @@ class OutcomePanel:
         The outcome's flow per pool tick summed over the pool's users (conversion:
         users whose first fulfilled order fell in the tick); defaults to
         ``pool_fulfilled``.
+    pre_outcome : ndarray of float, shape (n_users,), optional
+        The outcome's pre-period analogue, the covariate of regression adjustment
+        (CUPED): pre-period orders (the default, ``history`` itself), their value
+        (revenue: pre-period orders x basket value) or whether the user ordered in
+        the pre-period (conversion).
     """
 
     fulfilled: np.ndarray | None
@@ -70,6 +93,7 @@ class OutcomePanel:
     outcome_total: np.ndarray | None = None
     outcome_days: np.ndarray | None = None
     pool_outcome: np.ndarray | None = None
+    pre_outcome: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         n_users = self.pool_of_user.shape[0]
@@ -89,7 +113,8 @@ class OutcomePanel:
             raise ValueError("fulfilled_total and demanded_total are needed without daily tables")
         if self.outcome_total is None:  # the orders themselves, or the sum of the days
             object.__setattr__(self, "outcome_total", self.fulfilled_total
-                               if self.outcome_days is None else self.outcome_days.sum(axis=1))
+                               if self.outcome_days is None
+                               else sum_days_in_order(self.outcome_days))
         for name, default in (("outcome_days", self.fulfilled),
                               ("pool_outcome", self.pool_fulfilled)):
             if getattr(self, name) is None:
@@ -103,13 +128,18 @@ class OutcomePanel:
             raise ValueError("outcome_days must have the shape of fulfilled")
         if self.pool_of_user.shape != (n_users,) or self.history.shape != (n_users,):
             raise ValueError("pool_of_user and history must have shape (n_users,)")
+        if self.pre_outcome is None:
+            object.__setattr__(self, "pre_outcome", self.history)
+        elif self.pre_outcome.shape != (n_users,):
+            raise ValueError("pre_outcome must have shape (n_users,)")
         shape = self.pool_fulfilled.shape
         for name in ("pool_demanded", "pool_lost", "pool_stock", "pool_outcome"):
             if getattr(self, name).shape != shape:
                 raise ValueError(f"{name} must have the shape of pool_fulfilled {shape}")
         for name in ("fulfilled", "demanded", "pool_of_user", "history", "pool_fulfilled",
                      "pool_demanded", "pool_lost", "pool_stock", "fulfilled_total",
-                     "demanded_total", "outcome_total", "outcome_days", "pool_outcome"):
+                     "demanded_total", "outcome_total", "outcome_days", "pool_outcome",
+                     "pre_outcome"):
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, read_only_view(getattr(self, name)))
 

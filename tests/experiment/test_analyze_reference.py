@@ -91,3 +91,85 @@ def test_rows_in_any_order_and_zero_rows_give_the_same_estimate(scenario, tmp_pa
     shuffled.to_csv(tmp_path / "shuffled.csv", index=False)
     again = analyze_experiment(tmp_path, orders=tmp_path / "shuffled.csv").estimate
     assert (again.point, again.standard_error) == (first.point, first.standard_error)
+
+
+def _outcome_assignment(tmp_path, outcome: str):
+    scenario = make_scenario(name="hand_made", calendar={"days": 3},
+                             users={"count": 60, "history_days": 7}, pools={"count": 8},
+                             study={"outcome": outcome}, design=[{"kind": "user"}])
+    write_assignment(assign_design(scenario, "user", seed=8, start="2027-03-01"), tmp_path)
+    return pd.read_csv(tmp_path / "assignment.csv", dtype={"user_id": str, "pool_id": str})
+
+
+def _hand_made_rows(users: pd.DataFrame, seed: int) -> pd.DataFrame:
+    """Hourly user rows with orders and revenue (zero rows left out)."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for u, p, arm in zip(users["user_id"], users["pool_id"], users["arm"]):
+        for date in ("2027-03-01", "2027-03-02", "2027-03-03"):
+            for hour in rng.choice(24, size=2, replace=False):
+                n = int(rng.poisson(0.15 + 0.15 * (arm == "treatment")))
+                rows.append((u, p, date, int(hour), n, round(n * rng.gamma(2.0, 7.5), 2)))
+    frame = pd.DataFrame(rows, columns=["user_id", "pool_id", "date", "hour", "orders",
+                                        "revenue"])
+    return frame[frame["orders"] > 0]
+
+
+def _ols_hc2(users: pd.DataFrame, y: np.ndarray):
+    z = (users["arm"] == "treatment").to_numpy(float)
+    return sm.OLS(y, sm.add_constant(z)).fit(cov_type="HC2"), z
+
+
+@pytest.mark.parametrize("outcome", ["conversion", "revenue"])
+def test_other_outcomes_equal_ols_with_hc2_on_the_derived_outcome(tmp_path, outcome):
+    # The outcome per user computed directly with pandas (conversion: any row with orders > 0;
+    # revenue: the sum of the user's revenue), then difference in means = OLS slope with HC2
+    # (Samii & Aronow 2012, Statistics & Probability Letters 82, 365-370).
+    users = _outcome_assignment(tmp_path, outcome)
+    rows = _hand_made_rows(users, seed=4)
+    rows.to_csv(tmp_path / "orders.csv", index=False)
+    if outcome == "conversion":
+        per_user = rows.groupby("user_id")["orders"].sum() > 0
+    else:
+        per_user = rows.groupby("user_id")["revenue"].sum()
+    y = users["user_id"].map(per_user).fillna(0).to_numpy(float)
+    assert 0 < y.mean() and (outcome != "conversion" or y.mean() < 1)
+    fit, z = _ols_hc2(users, y)
+    analysis = analyze_experiment(tmp_path)
+    estimate = analysis.estimate
+    assert estimate.point == pytest.approx(fit.params[1], rel=1e-12)
+    assert estimate.standard_error == pytest.approx(fit.bse[1], rel=1e-10)
+    # The relative effect: delta method for a ratio of independent arm means (Casella & Berger
+    # 2002, 5.5.4): R = m1/m0 - 1, Var(R) = [s1^2/n1 + (m1/m0)^2 s0^2/n0] / m0^2.
+    y1, y0 = y[z == 1], y[z == 0]
+    m1, m0 = y1.mean(), y0.mean()
+    variance = (y1.var(ddof=1) / y1.size + (m1 / m0) ** 2 * y0.var(ddof=1) / y0.size) / m0 ** 2
+    from spillgauge.experiment.analyze import analysis_record
+
+    relative = analysis_record(analysis)["relative_effect"]
+    assert relative["point"] == pytest.approx(m1 / m0 - 1, rel=1e-10)
+    assert relative["standard_error"] == pytest.approx(np.sqrt(variance), rel=1e-8)
+
+
+def test_conversion_falls_in_the_period_of_the_first_order(tmp_path):
+    # The simulation's definition (worlds/outcome.py): a user converts in the tick of the first
+    # fulfilled order. Checked against pandas' minimum timestamp per user.
+    from spillgauge.experiment.orders import read_orders
+    from spillgauge.experiment.folder import read_assignment
+
+    users = _outcome_assignment(tmp_path, "conversion")
+    rows = _hand_made_rows(users, seed=5).sample(frac=1.0, random_state=1)  # any row order
+    rows.to_csv(tmp_path / "orders.csv", index=False)
+    assignment = read_assignment(tmp_path)
+    panel = read_orders(tmp_path / "orders.csv", assignment)
+    stamp = pd.to_datetime(rows["date"]) + pd.to_timedelta(rows["hour"], unit="h")
+    first = stamp.groupby(rows["user_id"]).min()
+    hours = ((first - pd.Timestamp("2027-03-01")) / pd.Timedelta(hours=1)).astype(int)
+    index = pd.Index(assignment.user_ids).get_indexer(first.index)
+    expected_days = np.zeros((users.shape[0], 3))
+    expected_days[index, hours.to_numpy() // 24] = 1
+    np.testing.assert_array_equal(panel.outcome_days, expected_days)
+    expected_pool = np.zeros_like(panel.pool_outcome)
+    np.add.at(expected_pool, (assignment.pool_of_user[index],
+                              hours.to_numpy() // assignment.tick_hours), 1)
+    np.testing.assert_array_equal(panel.pool_outcome, expected_pool)

@@ -200,3 +200,53 @@ def test_a_switchback_needs_the_hour(capsys, scenario, tmp_path):
                                 str(tmp_path / "orders.csv")])
     assert "orders.csv line 1 column hour must be a column of the header: this design's " \
         "arms change within a day" in message
+
+
+def _simulated(tmp_path: Path, outcome: str, label: str) -> Path:
+    users = {"count": 600, "orders_per_week": 4.0, "history_days": 14,
+             "basket_value_mean": 20.0, "basket_value_sd": 5.0}
+    scenario = small_market(users=users, study={"reps": 4, "seed": 11, "outcome": outcome})
+    out = tmp_path / f"{outcome}-{label}"
+    write_experiment(simulate_experiment(scenario, label, seed=3, start="2027-03-01"), out)
+    return out
+
+
+@pytest.mark.parametrize("outcome, label, file, edit, line, column, value", [
+    ("revenue", "user", "orders.csv", _edit(4, 4, "-3.5"), 5, "revenue", "-3.5"),
+    ("revenue", "user", "orders.csv", _edit(6, 4, "lots"), 7, "revenue", "lots"),
+    ("revenue", "user", "orders.csv", _edit(2, 4, "inf"), 3, "revenue", "inf"),
+    ("revenue", "user", "orders.csv", lambda rows: [r[:4] for r in rows], 1, "revenue", None),
+    ("revenue", "switchback-12h", "pool_orders.csv", _edit(3, 4, "NaN"), 4, "revenue", "NaN"),
+    ("conversion", "switchback-12h", "pool_orders.csv", _edit(5, 4, "0.5"), 6, "conversions",
+     "0.5"),
+    ("conversion", "switchback-12h", "pool_orders.csv", _edit(2, 4, "-1"), 3, "conversions",
+     "-1"),
+    ("conversion", "switchback-12h", "pool_orders.csv", _edit(1, 4, "100000"), 2,
+     "conversions", "100000"),
+    ("conversion", "switchback-12h", "pool_orders.csv", lambda rows: [r[:4] for r in rows], 1,
+     "conversions", None),
+])
+def test_bad_outcome_columns_are_refused_by_line(capsys, tmp_path, outcome, label, file, edit,
+                                                 line, column, value):
+    # Revenue is a number >= 0 per row; conversions (pool rows) a whole number of users, at
+    # most the pool's users over its rows (a user converts once). Common practice, no source.
+    folder = _simulated(tmp_path, outcome, label)
+    with open(folder / file, newline="") as handle:
+        rows = list(csv.reader(handle))
+    assert rows[0][4] == column
+    bad = _write(tmp_path / "bad.csv", edit(rows))
+    message = _refused(capsys, ["analyze", str(folder), "--orders", str(bad)])
+    assert f"{bad} line {line} column {column} " in message
+    if value is not None:
+        assert f"got '{value}'" in message
+
+
+def test_conversion_user_rows_need_no_more_than_orders(capsys, tmp_path):
+    # An orders file without revenue or conversions serves conversion: it is derived from orders.
+    folder = _simulated(tmp_path, "conversion", "user")
+    with open(folder / "orders.csv", newline="") as handle:
+        assert next(csv.reader(handle)) == ["user_id", "pool_id", "date", "orders"]
+    assert main(["analyze", str(folder)]) == 0
+    out = capsys.readouterr().out
+    assert "effect on share of users with a fulfilled order over 6 days" in out
+    assert "relative to the control mean" in out

@@ -39,3 +39,41 @@ def test_intervals_from_files_cover_a_null_effect(tmp_path, label):
     assert usable == N_SEEDS
     print(f"{label}: {covered}/{N_SEEDS} intervals cover 0")
     assert stats.binomtest(covered, usable, 0.95).pvalue > 1e-3
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("outcome", ["conversion", "revenue"])
+@pytest.mark.parametrize("label", ["user", "switchback-24h"])
+def test_other_outcomes_from_files_cover_a_null_effect(tmp_path, outcome, label):
+    # As above, for conversion (derived from the orders file, or the pool rows' conversions)
+    # and revenue (lognormal basket values): with no effect the GTE is exactly 0, so each 95%
+    # interval should cover 0 in 95% of experiments, and so should the relative interval
+    # (delta method, Casella & Berger 2002, 5.5.4) cover a relative effect of 0 (binomial test,
+    # 1e-3 level; STYLE.md section 8 null calibration).
+    from spillgauge.estimators.relative import relative_effect
+
+    scenario = make_scenario(
+        name="null_market", calendar={"days": 16, "tick_hours": 4},
+        users={"count": 400, "orders_per_week": 1.0, "basket_value_mean": 25.0,
+               "basket_value_sd": 20.0},
+        pools={"count": 20, "stock_cover": 3.0}, effect={"lift": 0.0},
+        study={"outcome": outcome},
+        design=[{"kind": "user"}, {"kind": "switchback", "block_hours": 24}])
+    covered = relative_covered = usable = 0
+    for seed in range(N_SEEDS):
+        out = tmp_path / str(seed)
+        experiment = simulate_experiment(scenario, label, seed=seed, start="2027-03-01")
+        assert experiment.truth.gte == 0.0
+        write_experiment(experiment, out)
+        estimate = analyze_experiment(out).estimate
+        relative = relative_effect(estimate)
+        if estimate.ci_low == estimate.ci_low and relative.ci_low == relative.ci_low:
+            usable += 1
+            covered += estimate.ci_low <= 0.0 <= estimate.ci_high
+            relative_covered += relative.ci_low <= 0.0 <= relative.ci_high
+    assert usable == N_SEEDS
+    print(f"{outcome} {label}: {covered}/{N_SEEDS} intervals cover 0, relative "
+          f"{relative_covered}/{N_SEEDS}; p = {stats.binomtest(covered, usable, 0.95).pvalue:.3f}"
+          f", {stats.binomtest(relative_covered, usable, 0.95).pvalue:.3f}")
+    assert stats.binomtest(covered, usable, 0.95).pvalue > 1e-3
+    assert stats.binomtest(relative_covered, usable, 0.95).pvalue > 1e-3

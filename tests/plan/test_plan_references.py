@@ -128,18 +128,21 @@ def test_cluster_variance_inflation_matches_the_design_effect():
     assert rows["cluster-pools"]["effective_n"] == pytest.approx(8000 / measured, rel=1e-9)
 
 
-def test_cuped_variance_reduction_matches_one_minus_rho_squared():
+@pytest.mark.parametrize("outcome", ["orders", "revenue", "conversion"])
+def test_cuped_variance_reduction_matches_one_minus_rho_squared(outcome):
     # Regression adjustment on the pre-period keeps 1 - rho^2 of the variance of the
     # difference in means (Deng, Xu, Kohavi & Walker 2013, WSDM), rho the correlation of
-    # pre-period orders and experiment orders; the plan measures rho in the all-control
-    # world. The lift (5%) changes the treated arm's variance by about 2L = 10% of half the
-    # total, and the adjusted SE's own Monte Carlo error is below 1%: a 6% band.
+    # the outcome's pre-period analogue (the covariate the estimator adjusts for) and the
+    # outcome; the plan measures rho in the all-control world. The lift (5%) changes the
+    # treated arm's variance by about 2L = 10% of half the total, and the adjusted SE's own
+    # Monte Carlo error is below 1%: a 6% band.
     scenario = make_scenario(
-        users={"count": 6000, "orders_per_week": 2.0, "rate_shape": 2.0, "history_days": 28},
+        users={"count": 6000, "orders_per_week": 2.0, "rate_shape": 2.0, "history_days": 28,
+               "basket_value_mean": 30.0, "basket_value_sd": 20.0},
         pools={"count": 4, "stock_cover": 1000.0}, calendar={"days": 28},
         graph={"model": "none"}, effect={"lift": 0.05},
         design=[{"kind": "user"}, {"kind": "user", "adjust": True}],
-        study={"reps": 10, "seed": 2})
+        study={"reps": 10, "seed": 2, "outcome": outcome})
     plan = plan_study(scenario, days=(7, 28))
     rows = {(r["label"], r["days"]): r for r in plan.rows}
     for entry in plan.cuped:
@@ -175,3 +178,47 @@ def test_stratification_variance_share_matches_the_measured_ratio():
         assert entry["strata_pre_period"] < 0.9  # the check has teeth: strata help here
     assert "Stratified randomization of users would keep about" in plan.answer()
     print(plan.answer())
+
+
+@pytest.mark.parametrize("outcome", ["orders", "revenue", "conversion"])
+def test_cuped_rho_and_strata_shares_use_the_outcome_and_its_pre_period_analogue(outcome):
+    # Computed directly from the all-control world's daily orders and the market's pre-period
+    # orders and basket values: revenue = orders x basket value (pre-period the same),
+    # conversion = any fulfilled order (pre-period: any order). rho is numpy's corrcoef and
+    # its square the R^2 of statsmodels' OLS of the outcome on the covariate (simple
+    # regression: R^2 = rho^2); the strata share is sum_s (n_s/n) S_s^2 / S^2 from pandas'
+    # group variances (Cochran 1977, 5.6 [from memory]). Orders stay exactly as before.
+    import pandas as pd
+    import statsmodels.api as sm
+
+    from spillgauge.designs.registry import make_design_spec
+    from spillgauge.designs.user_level import market_strata
+    from spillgauge.plan.replication import run_plan_replication
+    from spillgauge.study.replication import simulate_replication_worlds
+
+    scenario = make_scenario(
+        users={"count": 1500, "orders_per_week": 1.5, "rate_shape": 1.5, "history_days": 14,
+               "basket_value_mean": 30.0, "basket_value_sd": 25.0},
+        pools={"count": 5, "stock_cover": 1.5, "demand_spread": 0.6}, calendar={"days": 14},
+        graph={"model": "none"}, effect={"lift": 0.1},
+        design=[{"kind": "user"}], study={"reps": 2, "seed": 4, "outcome": outcome})
+    market = build_market(scenario, 4)
+    result = run_plan_replication(scenario, 4, 1, (7, 14), market=market)
+    _, panels = simulate_replication_worlds(market, scenario.designs, 4, 1, user_days=True)
+    history, value = np.asarray(market.history), np.asarray(market.basket_value)
+    for d in (7, 14):
+        orders = panels[0].fulfilled[:, :d].sum(axis=1).astype(float)
+        y, x = {"orders": (orders, history), "revenue": (orders * value, history * value),
+                "conversion": ((orders > 0) * 1.0, (history > 0) * 1.0)}[outcome]
+        rho = np.corrcoef(x, y)[0, 1]
+        if outcome == "orders":
+            assert result.history_correlation[d] == rho  # bit for bit, as before
+        assert result.history_correlation[d] == pytest.approx(rho, rel=1e-9)
+        r2 = sm.OLS(y, sm.add_constant(x)).fit().rsquared
+        assert result.history_correlation[d] ** 2 == pytest.approx(r2, rel=1e-9)
+        for source in ("pre_period", "pools"):
+            strata = market_strata(market, make_design_spec("user", {"strata": source}))
+            groups = pd.Series(y).groupby(strata)
+            share = float((groups.size() / y.size * groups.var(ddof=1)).sum() / y.var(ddof=1))
+            assert result.strata_within_share[d][source] == pytest.approx(share, rel=1e-9)
+    assert 0.05 < result.history_correlation[14] < 0.95  # the covariate predicts, not perfectly

@@ -157,8 +157,6 @@ def test_conversion_flows_sum_to_the_users_conversion():
      'study.outcome must be one of "orders", "conversion", "revenue"; got \'sales\''),
     ("[users]\nbasket_value_sd = -2\n", "check", "users.basket_value_sd must be in [0, 1e9]; "
                                                  "got -2"),
-    ('[study]\noutcome = "conversion"\n', "simulate", "study.outcome must be \"orders\" for "
-                                                      "simulate"),
 ])
 def test_command_line_refuses_bad_outcome_input_in_one_line(tmp_path, extra, command, needle):
     import subprocess

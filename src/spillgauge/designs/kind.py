@@ -107,6 +107,10 @@ class DesignKind:
         spillover against it.
     keeps_switch_profile : bool
         Whether the report draws its effect by ticks since a switch.
+    compares_periods : bool
+        Whether its estimator compares periods of time (a switchback's blocks, a
+        rollout's pool-periods), so it reads the outcome's flow per period; the
+        report then says what a per-user outcome such as conversion is per period.
     needs_user_days : bool
         Whether its analysis reads each user's orders per day
         (``OutcomePanel.fulfilled`` / ``demanded``). Worlds keep those tables only
@@ -124,6 +128,7 @@ class DesignKind:
     is_randomized: ClassVar[bool] = True
     is_user_level: ClassVar[bool] = False
     keeps_switch_profile: ClassVar[bool] = False
+    compares_periods: ClassVar[bool] = False
     needs_user_days: ClassVar[bool] = False
 
     def analysis_clusters(self, spec: DesignSpec, scenario: Scenario) -> int:

@@ -89,6 +89,7 @@ class Rollout(DesignKind):
     """Pools switch on at random times in waves and stay on."""
 
     name = "rollout"
+    compares_periods = True
     summary = ("staggered rollout: pools switch on at random in waves after an all-control "
                "first period; one group never switches")
     keys = (

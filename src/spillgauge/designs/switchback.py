@@ -77,6 +77,7 @@ class Switchback(DesignKind):
     )
     shown_keys = ("block_hours", "per")
     keeps_switch_profile = True
+    compares_periods = True
 
     def check(self, spec: DesignSpec, scenario: Scenario) -> None:
         check(spec.burn_in_hours < spec.block_hours, f"{spec.at}.burn_in_hours",

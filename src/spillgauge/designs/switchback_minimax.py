@@ -56,6 +56,7 @@ class SwitchbackMinimax(DesignKind):
     """A switchback randomized at the minimax points for the scenario's carryover."""
 
     name = "switchback_minimax"
+    compares_periods = True
     summary = ("the market, or each pool, redraws its arm at the minimax-optimal points for "
                "the carryover (Bojinov, Simchi-Levi & Zhao 2023)")
     keys = (

@@ -222,4 +222,5 @@ def _sub_panel(panel: OutcomePanel, users: np.ndarray) -> OutcomePanel:
                                     pool_of_user=np.unique(panel.pool_of_user[users],
                                                            return_inverse=True)[1],
                                     history=panel.history[users], tick_hours=panel.tick_hours,
+                                    pre_outcome=panel.pre_outcome[users],
                                     outcome_total=np.asarray(panel.outcome_total)[users])

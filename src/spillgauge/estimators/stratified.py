@@ -154,8 +154,8 @@ def stratified_regression_adjusted_difference(panel: OutcomePanel,
                                               confidence: float = 0.95) -> Estimate:
     """Estimate the GTE by the stratified difference in means after CUPED within strata.
 
-    As :func:`stratified_difference_in_means`, on the outcome adjusted for
-    pre-period orders ``X = panel.history``:
+    As :func:`stratified_difference_in_means`, on the outcome adjusted for its
+    pre-period analogue ``X = panel.pre_outcome`` (pre-period orders by default):
     ``Y_cv = Y - theta * (X - mean_s(X))`` with ``theta`` the pooled
     within-stratum slope (the OLS slope of Y on X with stratum fixed effects),
     the regression adjustment of Deng, Xu, Kohavi & Walker (2013) inside each
@@ -178,7 +178,7 @@ def stratified_regression_adjusted_difference(panel: OutcomePanel,
     confidence = _check_inputs(panel, schedule, confidence, method)
     outcome = panel.user_outcome()
     strata = user_strata(schedule)
-    history = np.asarray(panel.history, dtype=float)
+    history = np.asarray(panel.pre_outcome, dtype=float)
     if outcome.size:
         counts = np.bincount(strata).astype(float)
         centred = history - (np.bincount(strata, weights=history) / counts)[strata]

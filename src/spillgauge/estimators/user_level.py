@@ -113,7 +113,8 @@ def regression_adjusted_difference(panel: OutcomePanel, schedule: AssignmentSche
     ----------
     panel : OutcomePanel
         Outcomes of the world; the outcome is ``panel.user_outcome()`` and the
-        covariate is ``panel.history`` (orders before the experiment).
+        covariate is ``panel.pre_outcome``, the outcome's pre-period analogue
+        (orders before the experiment by default).
     schedule : AssignmentSchedule
         A static schedule (one period) for the same users.
     confidence : float, default 0.95
@@ -165,7 +166,7 @@ def regression_adjusted_difference(panel: OutcomePanel, schedule: AssignmentSche
     method = "regression_adjusted_difference"
     confidence = _check_inputs(panel, schedule, confidence, method)
     outcome = panel.user_outcome()
-    history = np.asarray(panel.history, dtype=float)
+    history = np.asarray(panel.pre_outcome, dtype=float)
     if outcome.size and np.any(history != history[0]):
         centred = history - history.mean()
         theta = float(np.dot(centred, outcome - outcome.mean()) / np.dot(centred, centred))

@@ -20,6 +20,7 @@ import pandas as pd
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import DegenerateEstimateWarning, ResultsError, ScenarioError
 from spillgauge.estimators.estimate import Estimate, InterferenceDiagnostic, LaunchDiagnostic
+from spillgauge.estimators.relative import relative_effect
 from spillgauge.experiment.assignment import (
     ASSIGNMENT_REPLICATION,
     Assignment,
@@ -29,7 +30,7 @@ from spillgauge.experiment.folder import read_assignment
 from spillgauge.experiment.orders import read_orders
 from spillgauge.experiment.simulate import ORDERS, POOL_ORDERS, TRUTH
 from spillgauge.files import json_safe
-from spillgauge.formatting import format_number, format_percent
+from spillgauge.formatting import OUTCOME_UNITS, format_number, format_percent
 from spillgauge.panel import OutcomePanel
 from spillgauge.seeding import RANDOMIZATION_TEST, design_key, stream
 
@@ -52,7 +53,8 @@ class ExperimentAnalysis:
     ----------
     assignment : Assignment
     estimate : Estimate
-        The design's estimate of the GTE (orders per user over the horizon).
+        The design's estimate of the GTE (the assignment's outcome per user over the
+        horizon: orders, conversion or revenue).
     note : str
         The estimator's warning when the data were degenerate, else empty.
     orders : Path or None
@@ -122,9 +124,10 @@ def study_context(study: str | Path, assignment: Assignment) -> dict:
                             f"this one is of {saved.get('scenario')!r} or other settings)",
                             str(study))
     outcome = saved.get("settings", {}).get("study", {}).get("outcome", "orders")
-    if outcome != "orders":
-        raise ScenarioError("--study", "a study of orders (analyze reads orders; this study's "
-                            f"study.outcome is {outcome!r})", str(study))
+    if outcome != assignment.outcome:
+        raise ScenarioError("--study", f"a study of the assignment's outcome "
+                            f"{assignment.outcome!r} (this study's study.outcome is "
+                            f"{outcome!r})", str(study))
     label = assignment.spec.label
     designs = {d.get("label"): d for d in summary.get("designs", [])}
     spec = [d for d in saved.get("settings", {}).get("design", []) if d.get("label") == label]
@@ -196,7 +199,9 @@ def analysis_record(analysis: ExperimentAnalysis) -> dict:
               "ci_low": estimate.ci_low, "ci_high": estimate.ci_high,
               "confidence": assignment.confidence, "p_value": estimate.p_value,
               "randomization_p_value": estimate.randomization_p_value,
-              "n_units": estimate.n_units, "note": analysis.note,
+              "n_units": estimate.n_units, "outcome": assignment.outcome,
+              "relative_effect": dict(relative_effect(estimate)._asdict()),
+              "note": analysis.note,
               "days_without_orders": analysis.empty_days}
     if estimate.diagnostic is not None:
         name = ("launch_diagnostic" if isinstance(estimate.diagnostic, LaunchDiagnostic)
@@ -207,6 +212,7 @@ def analysis_record(analysis: ExperimentAnalysis) -> dict:
         record["study"] = analysis.context
     if analysis.truth.get("gte") is not None:
         record["true_effect"] = analysis.truth["gte"]
+        record["true_relative_effect"] = analysis.truth.get("gte_relative")
     return json_safe(record)
 
 
@@ -214,13 +220,20 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
     """Return the analysis in words."""
     estimate, assignment = analysis.estimate, analysis.assignment
     level = format_percent(assignment.confidence)
+    relative = relative_effect(estimate)
     lines = [f"design {assignment.spec.label} ({estimate.method}), orders from "
              f"{analysis.orders}",
-             f"effect on fulfilled orders per user over {assignment.days} days: "
+             f"effect on {OUTCOME_UNITS[assignment.outcome]} over {assignment.days} days: "
              f"{format_number(estimate.point, sign=True)}",
              f"  standard error {format_number(estimate.standard_error)}, {level} interval "
              f"[{format_number(estimate.ci_low)}, {format_number(estimate.ci_high)}], "
-             f"{estimate.n_units} units used by the estimator",
+             f"{estimate.n_units} units used by the estimator"]
+    if math.isfinite(relative.point):
+        lines.append(f"  relative to the control mean {format_number(estimate.control_mean)}: "
+                     f"{format_percent(relative.point, sign=True)}, {level} interval "
+                     f"[{format_percent(relative.ci_low, sign=True)}, "
+                     f"{format_percent(relative.ci_high, sign=True)}] (delta method)")
+    lines += [
              "  p-value " + (format_number(estimate.p_value) if math.isfinite(estimate.p_value)
                              else "n/a (the estimator gives none)")]
     if math.isfinite(estimate.randomization_p_value):
@@ -242,16 +255,19 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
     gte = analysis.truth.get("gte")
     if gte is not None:
         covers = estimate.ci_low <= gte <= estimate.ci_high
+        true_relative = analysis.truth.get("gte_relative")
         lines.append(f"  truth.json: the true effect of this synthetic experiment is "
-                     f"{format_number(gte, sign=True)}; the interval "
-                     + ("covers it" if covers else "misses it"))
+                     f"{format_number(gte, sign=True)}"
+                     + (f" ({format_percent(true_relative, sign=True)} of the control mean)"
+                        if isinstance(true_relative, float) and math.isfinite(true_relative)
+                        else "") + "; the interval " + ("covers it" if covers else "misses it"))
     context = analysis.context
     if context:
         bias = context.get("relative_bias")
         bias_text = (f"its bias was {format_percent(bias, sign=True)} of the effect"
                      if bias is not None and math.isfinite(bias) else
                      f"its bias was {format_number(context.get('bias') or math.nan, sign=True)} "
-                     "orders per user")
+                     f"({OUTCOME_UNITS[assignment.outcome]})")
         covered, power = (math.nan if context.get(k) is None else context[k]
                           for k in ("coverage", "power"))
         lines.append(f"in {context.get('n_reps')} simulations of this market this design's "

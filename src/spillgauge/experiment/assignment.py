@@ -102,6 +102,13 @@ class Assignment:
         Pre-period orders of each user (the users file's ``history_orders``, else simulated).
     scenario_name, fingerprint : str
         The scenario and :func:`market_fingerprint` of its market.
+    outcome : str, default "orders"
+        The scenario's ``study.outcome``: what ``analyze`` estimates the effect on
+        (fulfilled orders, conversion or revenue per user over the horizon).
+    pre_outcome : ndarray of float, shape (n_users,), or None
+        The outcome's pre-period analogue (the CUPED covariate): for revenue each
+        user's pre-period revenue; None for orders and conversion, whose analogue
+        follows from ``history``. See :attr:`covariate`.
     """
 
     spec: DesignSpec
@@ -117,6 +124,17 @@ class Assignment:
     history: np.ndarray
     scenario_name: str
     fingerprint: str
+    outcome: str = "orders"
+    pre_outcome: np.ndarray | None = None
+
+    @property
+    def covariate(self) -> np.ndarray:
+        """The outcome's pre-period analogue per user, which CUPED adjusts for."""
+        from spillgauge.worlds.outcome import pre_period_outcome
+
+        if self.pre_outcome is not None:
+            return self.pre_outcome
+        return pre_period_outcome(self.outcome, self.history, None)
 
     @property
     def n_ticks(self) -> int:
@@ -176,6 +194,7 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
     """
     from spillgauge.market.build import build_market
     from spillgauge.study.store import scenario_fingerprint
+    from spillgauge.worlds.outcome import pre_period_outcome
 
     if isinstance(design, str):
         labels = [d.label for d in scenario.designs]
@@ -210,4 +229,8 @@ def assign_design(scenario: Scenario, design: str | DesignSpec, *, seed: int | N
                       pool_of_user=np.asarray(population.pool_of_user, dtype=np.int64),
                       history=np.asarray(population.history, dtype=float),
                       scenario_name=scenario.name,
-                      fingerprint=market_fingerprint(scenario_fingerprint(scenario, seed)))
+                      fingerprint=market_fingerprint(scenario_fingerprint(scenario, seed)),
+                      outcome=scenario.study.outcome,
+                      pre_outcome=(pre_period_outcome("revenue", population.history,
+                                                      population.basket_value)
+                                   if scenario.study.outcome == "revenue" else None))

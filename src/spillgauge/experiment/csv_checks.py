@@ -9,7 +9,25 @@ import pandas as pd
 
 from spillgauge.errors import ScenarioError
 
-__all__ = ["file_error", "refuse_first", "column_codes"]
+__all__ = ["file_error", "refuse_first", "column_codes", "column_floats"]
+
+
+def column_floats(column: pd.Series) -> np.ndarray:
+    """Return a text column as floats, each parsed exactly as Python reads it (NaN if not a number).
+
+    A float written in full (``repr``) reads back to the same bits.
+
+    >>> column_floats(pd.Series(["0.1", "2", "lots"])).tolist()
+    [0.1, 2.0, nan]
+    """
+    try:
+        return column.to_numpy(dtype=str).astype(np.float64)
+    except ValueError:
+        text = column.to_numpy(dtype=str)
+        numbers = pd.to_numeric(pd.Series(text), errors="coerce").to_numpy(float, copy=True)
+        good = np.isfinite(numbers)
+        numbers[good] = text[good].astype(np.float64)
+        return numbers
 
 
 def file_error(path: Path, line: int, column: str, expected: str, value: object

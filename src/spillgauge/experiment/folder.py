@@ -29,8 +29,9 @@ from spillgauge.designs.registry import make_design_spec
 from spillgauge.errors import ResultsError, ScenarioError
 from spillgauge.experiment.assignment import Assignment
 from spillgauge.experiment.balance import assignment_balance
-from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
+from spillgauge.experiment.csv_checks import column_codes, column_floats, file_error, refuse_first
 from spillgauge.files import dumps, write_atomic
+from spillgauge.scenario.config import OUTCOMES
 from spillgauge.scenario.reading import design_to_dict
 from spillgauge.schedule import AssignmentSchedule
 
@@ -79,7 +80,7 @@ def assignment_record(assignment: Assignment) -> dict:
             "design": design_to_dict(assignment.spec), "estimator": assignment.estimator_name(),
             "seed": assignment.seed, "start": assignment.start.isoformat(),
             "tick_hours": assignment.tick_hours, "days": assignment.days,
-            "confidence": assignment.confidence,
+            "confidence": assignment.confidence, "outcome": assignment.outcome,
             "schedule": {"unit_kind": schedule.unit_kind,
                          "randomization": schedule.randomization,
                          "treated_probability": schedule.treated_probability,
@@ -103,6 +104,8 @@ def write_assignment(assignment: Assignment, out: str | Path) -> list[Path]:
                           "unit": labels[schedule.unit_of_user]})
     if np.all(assignment.history == np.round(assignment.history)):
         users["pre_period_orders"] = assignment.history.astype(np.int64)
+    if assignment.outcome == "revenue":  # the CUPED covariate: the value of those orders
+        users.insert(3, "pre_period_revenue", assignment.covariate)
     if schedule.is_static:
         users["arm"] = np.array(ARMS, dtype=object)[schedule.user_is_treated().astype(int)]
     treated = schedule.is_treated
@@ -192,9 +195,12 @@ def read_assignment(folder: str | Path) -> Assignment:
         pool_ids = np.array([str(p) for p in record["pool_ids"]], dtype=object)
         start = datetime.fromisoformat(record["start"])
         tick_hours, days = int(record["tick_hours"]), int(record["days"])
+        outcome = str(record.get("outcome", "orders"))  # files before outcomes hold orders
     except (OSError, json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
         raise ScenarioError(str(record_path), "an assignment.json written by `spillgauge "
                             "assign`", f"{type(exc).__name__}: {exc}") from None
+    if outcome not in OUTCOMES:
+        raise ScenarioError(f"{record_path} outcome", "one of " + ", ".join(OUTCOMES), outcome)
     n_ticks = days * 24 // tick_hours
     users_path = folder / _USERS
     users = _read_csv(users_path, ("user_id", "pool_id", "pre_period_orders", "unit"))
@@ -203,12 +209,21 @@ def read_assignment(folder: str | Path) -> Assignment:
                            "a pool of assignment.json")
     history = pd.to_numeric(users["pre_period_orders"], errors="coerce").to_numpy(float)
     refuse_first(users_path, users, ~np.isfinite(history), "pre_period_orders", "a number")
+    pre_outcome = None
+    if outcome == "revenue":
+        if "pre_period_revenue" not in users.columns:
+            raise file_error(users_path, 1, "pre_period_revenue", "a column of the header: the "
+                             "assignment's outcome is revenue", ",".join(users.columns))
+        pre_outcome = column_floats(users["pre_period_revenue"])
+        refuse_first(users_path, users, ~(np.isfinite(pre_outcome) & (pre_outcome >= 0)),
+                     "pre_period_revenue", "a number >= 0")
     partial = Assignment(spec=spec, schedule=None, seed=int(record["seed"]), start=start,
                          tick_hours=tick_hours, days=days,
                          confidence=float(record["confidence"]), user_ids=user_ids,
                          pool_ids=pool_ids, pool_of_user=pool_of_user, history=history,
                          scenario_name=str(record["scenario"]),
-                         fingerprint=str(record["scenario_fingerprint"]))
+                         fingerprint=str(record["scenario_fingerprint"]), outcome=outcome,
+                         pre_outcome=pre_outcome)
     kind = info["unit_kind"]
     n_units = int(info["n_units"])
     labels = (user_ids if kind == "user" else pool_ids[:n_units] if kind == "pool"

@@ -12,6 +12,17 @@ Two layouts are read (a missing row counts as zero orders):
 ``date`` is ``YYYY-MM-DD`` inside the assignment's window; ``hour`` is 0-23, the
 hour of the day the orders were placed in. A bad value is refused with the file,
 its line (the header is line 1), the column and the value.
+
+The assignment's outcome (``study.outcome`` of its scenario) says what else a row needs:
+
+- ``"orders"``: nothing more;
+- ``"revenue"``: ``revenue``, the value of the row's fulfilled orders (a number >= 0);
+  a user's revenue is the sum of the user's rows, added day by day in date order;
+- ``"conversion"``: user rows need nothing more: a user converts in the tick of the
+  first row with ``orders > 0`` (the simulation's definition: the period of the
+  user's first fulfilled order); pool rows cannot tell a user's first order, so
+  they need ``conversions``, the number of the pool's users whose first fulfilled
+  order of the experiment was placed in that hour.
 """
 
 from __future__ import annotations
@@ -23,12 +34,12 @@ import pandas as pd
 
 from spillgauge.errors import ScenarioError
 from spillgauge.experiment.assignment import Assignment
-from spillgauge.experiment.csv_checks import column_codes, file_error, refuse_first
+from spillgauge.experiment.csv_checks import column_codes, column_floats, file_error, refuse_first
 from spillgauge.panel import OutcomePanel
 
 __all__ = ["read_orders", "panel_from_counts"]
 
-_COLUMNS = ("user_id", "pool_id", "date", "hour", "orders")
+_COLUMNS = ("user_id", "pool_id", "date", "hour", "orders", "revenue", "conversions")
 
 
 def _numbers(column: pd.Series) -> np.ndarray:
@@ -39,8 +50,9 @@ def _numbers(column: pd.Series) -> np.ndarray:
         return pd.to_numeric(column, errors="coerce").to_numpy(float)
 
 
-def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick: np.ndarray
-                      ) -> OutcomePanel:
+def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick: np.ndarray,
+                      outcome_days: np.ndarray | None = None,
+                      pool_outcome: np.ndarray | None = None) -> OutcomePanel:
     """Return the outcome panel of orders counted per user-day and per pool-tick.
 
     Parameters
@@ -52,6 +64,9 @@ def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick
     pool_tick : ndarray of int, shape (n_pools, n_ticks)
         Fulfilled orders of each pool's users in each tick (for designs whose arms
         change over time).
+    outcome_days, pool_outcome : ndarray of float, optional
+        The outcome's flow per user-day and per pool-tick when the outcome is not
+        orders (revenue; conversion: 1 in the period of a user's first order).
 
     Orders seen are orders fulfilled: ``demanded`` equals ``fulfilled`` and no
     order is lost (a team's orders table holds what was sold); stock is unknown (0).
@@ -60,9 +75,11 @@ def panel_from_counts(assignment: Assignment, *, user_day: np.ndarray, pool_tick
     pool_tick = np.asarray(pool_tick).astype(np.int64)
     return OutcomePanel(fulfilled=user_day, demanded=user_day,
                         pool_of_user=assignment.pool_of_user, history=assignment.history,
+                        pre_outcome=assignment.covariate,
                         pool_fulfilled=pool_tick, pool_demanded=pool_tick,
                         pool_lost=np.zeros_like(pool_tick), pool_stock=np.zeros_like(pool_tick),
-                        tick_hours=assignment.tick_hours)
+                        tick_hours=assignment.tick_hours, outcome_days=outcome_days,
+                        pool_outcome=pool_outcome)
 
 
 def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
@@ -73,7 +90,8 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
     ScenarioError
         For a missing or unknown column, an unknown user or pool, a user's row
         naming another pool than the assignment, a date outside the window, an
-        hour outside 0-23, a negative or non-integer count, or a duplicate row;
+        hour outside 0-23, a negative or non-integer count, a revenue that is not
+        a number >= 0, more conversions than a pool has users, or a duplicate row;
         naming the file, line, column and value.
     """
     path = Path(path)
@@ -96,9 +114,19 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
         required.append("hour")
     if not by_user and not needs_ticks:
         required.insert(0, "user_id")  # a design with one arm per user needs user rows
+    outcome = assignment.outcome
+    if outcome == "revenue":
+        required.append("revenue")
+    elif outcome == "conversion" and not by_user:
+        required.append("conversions")
     why = {"hour": ": this design's arms change within a day, so its estimator needs the "
                    "hour of each order", "user_id": ": this design keeps each user in one "
-                   "arm, so its estimator needs each user's orders"}
+                   "arm, so its estimator needs each user's orders",
+           "revenue": ": the assignment's outcome is revenue, so each row needs the value "
+                      "of its fulfilled orders",
+           "conversions": ": the assignment's outcome is conversion and pool rows cannot "
+                          "tell a user's first order, so each row needs the number of the "
+                          "pool's users whose first order fell in it"}
     for column in required:
         if column not in frame.columns:
             raise file_error(path, 1, column, "a column of the header" + why.get(column, "")
@@ -145,4 +173,58 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
         np.add.at(user_day, (user, day), count)
     pool_tick = np.zeros((n_pools, assignment.n_ticks), dtype=np.int64)
     np.add.at(pool_tick, (pool, tick), count)
-    return panel_from_counts(assignment, user_day=user_day, pool_tick=pool_tick)
+    flows = {}
+    if outcome == "revenue":
+        flows = _revenue_flows(path, frame, assignment, user if by_user else None, pool, day,
+                               tick)
+    elif outcome == "conversion":
+        flows = (_conversion_from_orders(assignment, user, day, hour, count) if by_user
+                 else _conversion_from_pools(path, frame, assignment, pool, tick))
+    return panel_from_counts(assignment, user_day=user_day, pool_tick=pool_tick, **flows)
+
+
+def _revenue_flows(path: Path, frame: pd.DataFrame, assignment: Assignment,
+                   user: np.ndarray | None, pool: np.ndarray, day: np.ndarray, tick: np.ndarray
+                   ) -> dict:
+    """Return revenue per user-day (user rows) and per pool-tick from the ``revenue`` column."""
+    value = column_floats(frame["revenue"])
+    refuse_first(path, frame, ~np.isfinite(value) | (value < 0), "revenue",
+                 "a number >= 0 (the value of the row's fulfilled orders)")
+    user_days = np.zeros((assignment.user_ids.size, assignment.days))
+    if user is not None:
+        np.add.at(user_days, (user, day), value)
+    pool_ticks = np.zeros((assignment.pool_ids.size, assignment.n_ticks))
+    np.add.at(pool_ticks, (pool, tick), value)
+    return {"outcome_days": user_days, "pool_outcome": pool_ticks}
+
+
+def _conversion_from_orders(assignment: Assignment, user: np.ndarray, day: np.ndarray,
+                            hour: np.ndarray, count: np.ndarray) -> dict:
+    """Return conversion flows: 1 in the day and tick of each user's first row with orders."""
+    n_users = assignment.user_ids.size
+    first = np.full(n_users, assignment.days * 24, dtype=np.int64)  # hour of the horizon
+    ordered = count > 0
+    np.minimum.at(first, user[ordered], (day * 24 + hour)[ordered])
+    converted = np.flatnonzero(first < assignment.days * 24)
+    user_days = np.zeros((n_users, assignment.days))
+    user_days[converted, first[converted] // 24] = 1.0
+    pool_ticks = np.zeros((assignment.pool_ids.size, assignment.n_ticks))
+    np.add.at(pool_ticks, (assignment.pool_of_user[converted],
+                           first[converted] // assignment.tick_hours), 1.0)
+    return {"outcome_days": user_days, "pool_outcome": pool_ticks}
+
+
+def _conversion_from_pools(path: Path, frame: pd.DataFrame, assignment: Assignment,
+                           pool: np.ndarray, tick: np.ndarray) -> dict:
+    """Return conversion flows per pool-tick from the ``conversions`` column."""
+    number = _numbers(frame["conversions"])
+    refuse_first(path, frame, ~np.isfinite(number) | (number < 0) | (number != np.round(number)),
+                 "conversions", "a whole number of users >= 0")
+    running = pd.Series(number).groupby(pool).cumsum().to_numpy()
+    users = np.bincount(assignment.pool_of_user, minlength=assignment.pool_ids.size)
+    refuse_first(path, frame, running > users[pool], "conversions",
+                 "at most the pool's number of users in assignment.csv, summed over its rows "
+                 "(each user converts once)")
+    pool_ticks = np.zeros((assignment.pool_ids.size, assignment.n_ticks))
+    np.add.at(pool_ticks, (pool, tick), number)
+    return {"pool_outcome": pool_ticks}

@@ -31,6 +31,8 @@ __all__ = ["SimulatedExperiment", "simulate_experiment", "write_experiment", "OR
            "POOL_ORDERS", "TRUTH"]
 
 ORDERS, POOL_ORDERS, STOCK, TRUTH = "orders.csv", "pool_orders.csv", "stock.csv", "truth.json"
+_OUTCOME_WORDS = {"orders": "fulfilled orders", "revenue": "revenue (fulfilled orders x basket "
+                  "value)", "conversion": "conversion (1 when the user had a fulfilled order)"}
 
 
 @dataclass(frozen=True, eq=False)
@@ -58,15 +60,10 @@ def simulate_experiment(scenario: Scenario, design: str | DesignSpec, *,
 
     Parameters are those of :func:`~spillgauge.experiment.assignment.assign_design`;
     the world is replication 0 of ``spillgauge run --seed seed``, bit for bit.
-    Its files hold orders (what ``analyze`` reads), so the scenario's
-    ``study.outcome`` must be ``"orders"``.
+    The truth and the world are in the scenario's ``study.outcome`` (orders,
+    conversion or revenue), which the assignment keeps for ``analyze``.
     """
-    from spillgauge.errors import ScenarioError
     from spillgauge.market.build import build_market
-
-    if scenario.study.outcome != "orders":
-        raise ScenarioError("study.outcome", '"orders" for simulate (its files hold orders, '
-                            "which analyze reads)", scenario.study.outcome)
     from spillgauge.worlds.engine import simulate_worlds
 
     seed = scenario.study.seed if seed is None else seed
@@ -91,11 +88,13 @@ def write_experiment(experiment: SimulatedExperiment, out: str | Path) -> list[P
     """Write the assignment folder, ``orders.csv``, ``stock.csv``, ``truth.json``.
 
     ``orders.csv`` has one row per user and day (``user_id, pool_id, date,
-    orders``: fulfilled orders). When the design's arms change over time,
-    ``pool_orders.csv`` adds the orders of each pool's users per tick (``pool_id,
-    date, hour, orders``), which its estimator reads. ``stock.csv`` has one row
-    per pool and day: orders placed, fulfilled and lost by its users, and the
-    stock left at the end of the day.
+    orders``: fulfilled orders; with the outcome revenue, ``revenue``: their
+    value). When the design's arms change over time, ``pool_orders.csv`` adds the
+    orders of each pool's users per tick (``pool_id, date, hour, orders``, and
+    ``revenue`` or ``conversions``: users whose first fulfilled order fell in the
+    tick), which its estimator reads. ``stock.csv`` has one row per pool and day:
+    orders placed, fulfilled and lost by its users, and the stock left at the end
+    of the day.
     """
     out = Path(out)
     written = write_assignment(experiment.assignment, out)
@@ -106,6 +105,9 @@ def write_experiment(experiment: SimulatedExperiment, out: str | Path) -> list[P
         "user_id": np.repeat(assignment.user_ids, n_days),
         "pool_id": np.repeat(assignment.pool_ids[assignment.pool_of_user], n_days),
         "date": np.tile(dates, n_users), "orders": panel.fulfilled.ravel()})
+    outcome = assignment.outcome
+    if outcome == "revenue":  # each value written in full, so analyze reads the same floats
+        orders["revenue"] = panel.outcome_days.ravel()
     write_atomic(out / ORDERS, orders.to_csv(index=False))
     written.append(out / ORDERS)
     if not assignment.schedule.is_static:
@@ -115,6 +117,10 @@ def write_experiment(experiment: SimulatedExperiment, out: str | Path) -> list[P
                               "date": np.tile(dates[hours // 24], n_pools),
                               "hour": np.tile(hours % 24, n_pools),
                               "orders": panel.pool_fulfilled.ravel()})
+        if outcome == "revenue":
+            frame["revenue"] = panel.pool_outcome.ravel()
+        elif outcome == "conversion":
+            frame["conversions"] = panel.pool_outcome.ravel().astype(np.int64)
         write_atomic(out / POOL_ORDERS, frame.to_csv(index=False))
         written.append(out / POOL_ORDERS)
     ticks_per_day = 24 // assignment.tick_hours
@@ -132,8 +138,10 @@ def write_experiment(experiment: SimulatedExperiment, out: str | Path) -> list[P
     write_atomic(out / STOCK, stock.to_csv(index=False))
     truth = {"scenario": assignment.scenario_name, "design": assignment.spec.label,
              "seed": assignment.seed, "replication": ASSIGNMENT_REPLICATION,
-             "note": "per user over the horizon: fulfilled orders when everyone is treated "
-                     "(treated_mean) and when no one is (control_mean); gte is their difference",
+             "outcome": outcome,
+             "note": f"per user over the horizon: {_OUTCOME_WORDS[outcome]} when everyone is "
+                     "treated (treated_mean) and when no one is (control_mean); gte is their "
+                     "difference",
              **experiment.truth.to_dict()}
     write_atomic(out / TRUTH, dumps(truth))
     return [*written, out / STOCK, out / TRUTH]

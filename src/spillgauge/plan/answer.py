@@ -114,14 +114,22 @@ def _measured_share(rows: list[dict], at: dict, wanted) -> str:
     return ""
 
 
+_PAIRS = {"orders": "pre-period and experiment orders",
+          "revenue": "pre-period revenue (orders x basket value) and experiment revenue",
+          "conversion": "ordering in the pre-period and converting in the experiment"}
+
+
 def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: float,
-                 unit: str = "orders per user") -> str:
+                 unit: str = "orders per user", outcome: str = "orders") -> str:
     """Return how much regression adjustment on the pre-period would shorten the test.
 
     The projection keeps ``1 - rho^2`` of the plain user-level design's variance
     (Deng, Xu, Kohavi & Walker 2013), so its standard error shrinks by
     ``sqrt(1 - rho^2)``, and recomputes the power at the same effect with a normal
-    test (:func:`~spillgauge.statistics.metrics.retrodesign`). It is said only
+    test (:func:`~spillgauge.statistics.metrics.retrodesign`). ``rho`` is between
+    the outcome and its pre-period analogue (``outcome``: orders, revenue as
+    pre-period orders x basket value, conversion as any pre-period order), the
+    covariate the adjusted estimators use. It is said only
     when the scenario has a pre-period and a plain user-level design, and it
     holds only where that design is trusted.
     """
@@ -136,7 +144,7 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
     lead = (f"Regression adjustment on the pre-period (CUPED) keeps "
             f"{format_percent(factor)} of the user-level variance at {at['days']} days "
             f"(1 - rho^2, rho = {format_number(math.sqrt(max(1 - factor, 0)))} between "
-            f"pre-period and experiment orders{'; ' + seen if seen else ''})")
+            f"{_PAIRS[outcome]}{'; ' + seen if seen else ''})")
     if not at["trusted"]:
         return (f"{lead}, but {label} is not trusted in this scenario ({at['why_not_trusted']}) "
                 f"and adjustment does not remove bias, so it does not shorten the test.")

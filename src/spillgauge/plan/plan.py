@@ -116,7 +116,7 @@ class PlanResult:
                            unit=unit)
         variants = answer_variants(self.rows)
         cuped = answer_cuped(self.rows, self.cuped, power=self.power, alpha=self.alpha,
-                             unit=unit)
+                             unit=unit, outcome=outcome)
         strata = answer_strata(self.rows, self.cuped, power=self.power, alpha=self.alpha,
                                unit=unit)
         return " ".join(part for part in (text, variants, cuped, strata) if part)

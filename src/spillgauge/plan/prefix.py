@@ -47,7 +47,7 @@ def first_days_of_panel(panel: OutcomePanel, days: int) -> OutcomePanel:
                         pool_demanded=panel.pool_demanded[:, :ticks],
                         pool_lost=panel.pool_lost[:, :ticks],
                         pool_stock=panel.pool_stock[:, :ticks], tick_hours=panel.tick_hours,
-                        outcome_days=panel.outcome_days[:, :days],
+                        outcome_days=panel.outcome_days[:, :days], pre_outcome=panel.pre_outcome,
                         pool_outcome=panel.pool_outcome[:, :ticks])
 
 

@@ -53,13 +53,15 @@ class PlanReplication:
     runs : dict of str to dict of int to PrefixRun
         Per design label and duration.
     history_correlation : dict of int to float
-        Per duration, the correlation over users between pre-period orders and
-        fulfilled orders of the first days in the all-control world (NaN when
-        either is constant).
+        Per duration, the correlation over users between the outcome's pre-period
+        analogue (``OutcomePanel.pre_outcome``: pre-period orders; revenue: their
+        value; conversion: any pre-period order), the covariate CUPED adjusts for,
+        and the study's outcome over the first days in the all-control world (NaN
+        when either is constant).
     strata_within_share : dict of int to dict of str to float
         Per duration and strata source (``"pre_period"``, ``"pools"``: the user
         design's strata at their defaults), the share of the all-control world's
-        variance of users' orders that lies within strata (NaN without variance).
+        variance of users' outcomes that lies within strata (NaN without variance).
     """
 
     replication: int
@@ -119,9 +121,9 @@ def run_plan_replication(scenario: Scenario, seed: int, replication: int, days: 
     for d in days:
         control = first_days_of_panel(panels[0], d)
         truths[d] = replication_truth(control, first_days_of_panel(panels[1], d))
-        correlations[d] = _correlation(control.history, control.user_fulfilled())
-        within[d] = {source: _within_share(codes, control.user_fulfilled())
-                     for source, codes in strata.items()}
+        outcome = control.user_outcome()  # orders: user_fulfilled() itself, bit for bit
+        correlations[d] = _correlation(np.asarray(control.pre_outcome, dtype=float), outcome)
+        within[d] = {source: _within_share(codes, outcome) for source, codes in strata.items()}
         for spec, schedule, panel in zip(scenario.designs, schedules[2:], panels[2:]):
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", DegenerateEstimateWarning)

@@ -149,7 +149,9 @@ def cuped_rows(results: list[PlanReplication], days: tuple[int, ...]) -> list[di
 
     Regression adjustment on the pre-period (CUPED; Deng, Xu, Kohavi & Walker
     2013, WSDM) keeps ``1 - rho^2`` of a user-level estimate's variance, with rho
-    the correlation over users of pre-period orders and the outcome; rho is
+    the correlation over users of the outcome's pre-period analogue (orders;
+    revenue: pre-period orders x basket value; conversion: any pre-period order)
+    and the outcome; rho is
     averaged over replications in the all-control world. Stratified
     randomization keeps about the within-stratum share of the outcome's variance
     (``strata_pre_period``, ``strata_pools``; Cochran 1977, 5.6), averaged the

@@ -14,6 +14,7 @@ from spillgauge.report.page import CAUTION, figure, render_page
 from spillgauge.report.page import escape as _e
 from spillgauge.report.page import grid as _grid
 from spillgauge.report.page import section as _section
+from spillgauge.report.text import SD_RMSE_NOTE, table_notes
 from spillgauge.statistics.trust import few_replications_note
 
 __all__ = ["SECTION_IDS", "CAPTIONS", "render_html"]
@@ -187,7 +188,10 @@ def _designs(study, summary: dict) -> str:
             "small against its noise. "
             "Type S is the share of significant estimates with the wrong sign, Type M their "
             "mean exaggeration of the effect. A test of interference is a diagnostic: it "
-            "says whether units interfere, and is never a unit to randomize by.</p>")
+            "says whether units interfere, and is never a unit to randomize by. "
+            f"{_e(SD_RMSE_NOTE)}</p>"
+            + "".join(f'<p class="note">Note: {_e(n[0].upper() + n[1:])}</p>'
+                      for n in table_notes(summary)))
     return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
 
 

@@ -6,7 +6,13 @@ from spillgauge.statistics.trust import few_replications_note
 from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit
 
 __all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
-           "interference_lines", "launch_rows", "not_randomized_lines"]
+           "interference_lines", "launch_rows", "not_randomized_lines", "table_notes",
+           "SD_RMSE_NOTE"]
+
+_WIDTH = 100  # the printed study fits a terminal this wide
+
+SD_RMSE_NOTE = ("SD can exceed RMSE: RMSE is against each replication's own GTE, SD is the "
+                "spread of the estimates.")
 
 _COLUMNS = [("label", "design", "{}"), ("unit", "unit", "{}"),
             ("mean_estimate", "estimate", "{:.3f}"), ("bias", "bias", "{:+.3f}"),
@@ -146,16 +152,69 @@ def not_randomized_lines(summary: dict, *, markdown: bool = False) -> list[str]:
                 *(["", "Balance, overlap and pre-launch fit (means over replications):", "",
                    *fits] if fits else [])]
     fits = [f"  {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
-    return ["", title + ":", *_table(rows), "", summary.get("not_randomized", ""),
+    return ["", title + ":", *_table(rows, n_left=2), "", summary.get("not_randomized", ""),
             *(["", "Balance, overlap and pre-launch fit (means over replications):", *fits]
               if fits else [])]
 
 
-def _table(rows: list[list[str]]) -> list[str]:
+def table_notes(summary: dict) -> list[str]:
+    """Return the notes under the design table: what a period-comparing design measures.
+
+    For ``outcome = "conversion"``, a design that compares periods (switchback,
+    rollout) sees per period the users whose first fulfilled order fell in it.
+    """
+    outcome = summary.get("scenario_settings", {}).get("study", {}).get("outcome", "orders")
+    labels = [d["label"] for d in summary["designs"]
+              if d.get("compares_periods") and d.get("is_randomized", True)]
+    if outcome != "conversion" or not labels:
+        return []
+    return [f"conversion per period ({', '.join(labels)}): a period's outcome is the "
+            "share of users whose first fulfilled order of the horizon falls in it. When most users "
+            "convert in the first days, later periods are nearly empty, and treated periods "
+            "pull first orders forward from the periods after them: the comparison measures "
+            "how much sooner users convert, not how many more do, and its bias can reach "
+            "thousands of percent. A design that keeps each user in one arm measures "
+            "conversion over the horizon."]
+
+
+def _text_table(summary: dict) -> list[str]:
+    """Return the design table for a terminal: absolute columns, then the relative ones.
+
+    The unit of each design is listed under the tables, wrapped, so that long
+    units (a test of interference's) do not widen them.
+    """
+    import textwrap
+
+    rows = design_rows(summary)
+    keep = [i for i, (key, _, _) in enumerate(_COLUMNS) if key != "unit"]
+    absolute = [i for i in keep if not _COLUMNS[i][0].startswith("relative.")]
+    relative = [0] + [i for i in keep if _COLUMNS[i][0].startswith("relative.")]
+    lines = _table([[row[i] for i in absolute] for row in rows])
+    if any(row[i] != "n/a" for row in rows[1:] for i in relative[1:]):
+        lines += ["", "the effect as a share of each design's control mean, against the "
+                      "relative GTE:"]
+        lines += _table([["design", "rel.effect", "bias", "coverage"]]
+                        + [[row[i] for i in relative] for row in rows[1:]])
+    units: dict[str, list[str]] = {}
+    for design in summary["designs"]:
+        if design.get("is_randomized", True):
+            units.setdefault(design["unit"], []).append(design["label"])
+    text = "; ".join(f"{', '.join(labels)} = {unit}" for unit, labels in units.items())
+    lines += [""] + textwrap.wrap("units: " + text, _WIDTH, subsequent_indent="  ",
+                                  break_on_hyphens=False)
+    lines += textwrap.wrap(SD_RMSE_NOTE, _WIDTH)
+    for note in table_notes(summary):
+        lines += [""] + textwrap.wrap("note: " + note, _WIDTH, subsequent_indent="  ")
+    return lines
+
+
+def _table(rows: list[list[str]], *, n_left: int = 1) -> list[str]:
+    """Return rows as aligned text: the first ``n_left`` columns left, numbers right."""
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     out = []
     for k, row in enumerate(rows):
-        cells = [c.ljust(w) if i < 2 else c.rjust(w) for i, (c, w) in enumerate(zip(row, widths))]
+        cells = [c.ljust(w) if i < n_left else c.rjust(w)
+                 for i, (c, w) in enumerate(zip(row, widths))]
         out.append("  ".join(cells))
         if k == 0:
             out.append("  ".join("-" * w for w in widths))
@@ -172,7 +231,7 @@ def study_text(study) -> str:
              f"true GTE {gte_sentence(truth, summary)}"
              + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
     if len(design_rows(summary)) > 1:
-        lines += _table(design_rows(summary))
+        lines += _text_table(summary)
     lines += interference_lines(study)
     lines += not_randomized_lines(summary)
     rec = summary["recommendation"]
@@ -216,6 +275,9 @@ def study_markdown(study) -> str:
              "(delta-method interval) against the relative GTE.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
+    lines += ["", SD_RMSE_NOTE]
+    for note in table_notes(summary):
+        lines += ["", f"_Note: {note[0].upper()}{note[1:]}_"]
     for line in interference_lines(study):  # a paragraph each, after a blank line ending the table
         lines += ["", "Diagnostic, " + line.strip()]
     lines += not_randomized_lines(summary, markdown=True)

@@ -68,6 +68,8 @@ class DesignSummary:
         For a launch: the means over replications of its analysis's balance,
         overlap or pre-launch fit (:class:`~spillgauge.estimators.estimate.LaunchDiagnostic`
         fields that were measured); empty otherwise.
+    compares_periods : bool
+        Whether the design's estimator compares periods of time (the kind's flag).
     relative : DesignMetrics or None
         The same metrics for the effect as a share of the control mean: each
         replication's ``estimate_relative`` (with its delta-method interval) against
@@ -92,13 +94,15 @@ class DesignSummary:
     question: str = "the global treatment effect (GTE)"
     launch_fit: dict = field(default_factory=dict)
     relative: DesignMetrics | None = None
+    compares_periods: bool = False
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
         entry = {"label": self.label, "kind": self.kind, "estimator": self.estimator,
                  "unit": self.unit, "estimand": self.estimand, "question": self.question,
                  "truth": json_safe(self.truth),
-                 "is_randomized": self.is_randomized, **json_safe(self.metrics.to_dict())}
+                 "is_randomized": self.is_randomized,
+                 "compares_periods": self.compares_periods, **json_safe(self.metrics.to_dict())}
         if not self.is_randomized:
             entry["left_out_effect"] = json_safe(self.left_out_effect)
             if self.launch_fit:
@@ -286,6 +290,7 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          estimand=kind.estimand, truth=float(np.mean(gte)),
                          left_out_effect=left_out, is_randomized=kind.is_randomized,
                          question=kind.question, relative=relative,
+                         compares_periods=kind.compares_periods,
                          launch_fit=summarise_launch_fit(
                              [e.diagnostic if isinstance(e.diagnostic, LaunchDiagnostic) else None
                               for e in estimates]))

@@ -36,7 +36,7 @@ from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
 from spillgauge.worlds.arrival_order import arrival_order
 from spillgauge.worlds.memory import keep_freed_memory
-from spillgauge.worlds.outcome import outcome_tables
+from spillgauge.worlds.outcome import outcome_tables, pre_period_outcome
 from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
@@ -299,7 +299,7 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
                        pool=events.pool, is_fulfilled=fulfilled[w],
                        basket_value=market.population.basket_value,
                        pool_of_user=population.pool_of_user, n_ticks=calendar.n_ticks,
-                       day_of_tick=day_of_tick(calendar) if user_days else None))
+                       day_of_tick=day_of_tick(calendar), keep_days=user_days))
             for w in range(n_worlds)]
 
 
@@ -384,7 +384,10 @@ def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
     else:
         users = {"fulfilled": None, "demanded": None, "fulfilled_total": user_counts[1],
                  "demanded_total": user_counts[0]}
+    pre_outcome = pre_period_outcome(market.scenario.study.outcome, population.history,
+                                     population.basket_value)
     return OutcomePanel(**users, pool_of_user=population.pool_of_user, history=population.history,
+                        pre_outcome=pre_outcome,
                         pool_fulfilled=pool_fulfilled, pool_demanded=pool_demanded,
                         pool_lost=pool_demanded - pool_fulfilled, pool_stock=stock,
                         tick_hours=calendar.tick_hours, **outcome)

@@ -19,13 +19,39 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["outcome_tables"]
+__all__ = ["outcome_tables", "pre_period_outcome"]
+
+
+def pre_period_outcome(outcome: str, history: np.ndarray, basket_value: np.ndarray | None
+                       ) -> np.ndarray:
+    """Return the outcome's pre-period analogue per user: the covariate CUPED adjusts for.
+
+    Orders: the pre-period orders themselves (the same array); revenue: pre-period
+    orders x the user's basket value; conversion: 1 when the user ordered in the
+    pre-period, else 0. Regression adjustment on the same metric measured before
+    the experiment is the choice of Deng, Xu, Kohavi & Walker (2013).
+
+    >>> h = np.array([0.0, 2.0, 5.0])
+    >>> pre_period_outcome("revenue", h, np.array([3.0, 1.5, 2.0])).tolist()
+    [0.0, 3.0, 10.0]
+    >>> pre_period_outcome("conversion", h, None).tolist()
+    [0.0, 1.0, 1.0]
+    """
+    if outcome == "orders":
+        return history
+    if outcome == "revenue":
+        if basket_value is None:
+            raise ValueError("revenue needs each user's basket value")
+        return np.asarray(history, dtype=float) * basket_value
+    if outcome == "conversion":
+        return (np.asarray(history) > 0).astype(float)
+    raise ValueError(f"unknown outcome {outcome!r}")
 
 
 def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np.ndarray,
                    is_fulfilled: np.ndarray, basket_value: np.ndarray | None,
-                   pool_of_user: np.ndarray, n_ticks: int, day_of_tick: np.ndarray | None
-                   ) -> dict:
+                   pool_of_user: np.ndarray, n_ticks: int, day_of_tick: np.ndarray | None,
+                   keep_days: bool = True) -> dict:
     """Return the outcome's tables of one world as :class:`OutcomePanel` keyword arguments.
 
     Parameters
@@ -40,7 +66,11 @@ def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np
     pool_of_user : ndarray of int, shape (n_users,)
     n_ticks : int
     day_of_tick : ndarray of int, shape (n_ticks,), or None
-        Day of each tick, to keep the per-user daily flow; None for totals only.
+        Day of each tick. Revenue totals are summed day by day in day order
+        (:func:`~spillgauge.panel.sum_days_in_order`), so they equal the sum of the
+        daily table bit for bit; None keeps totals only and sums them in one step.
+    keep_days : bool, default True
+        Whether to return the per-user daily flow (needs ``day_of_tick``).
 
     Returns
     -------
@@ -72,7 +102,8 @@ def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np
             raise ValueError("revenue needs each user's basket value")
         weight = basket_value[done_user]
         cell = pool[is_fulfilled] * n_ticks + done_tick
-        tables = {"outcome_total": np.bincount(done_user, minlength=n_users) * basket_value}
+        tables = {"outcome_total": _revenue_totals(done_user, done_tick, basket_value,
+                                                   day_of_tick)}
         flow_user, flow_tick = done_user, done_tick
     elif outcome == "conversion":
         first = np.full(n_users, n_ticks, dtype=np.int64)
@@ -86,7 +117,7 @@ def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np
         raise ValueError(f"unknown outcome {outcome!r}")
     tables["pool_outcome"] = np.bincount(cell, weights=weight, minlength=n_pools * n_ticks
                                          ).reshape(n_pools, n_ticks)
-    if day_of_tick is not None:
+    if day_of_tick is not None and keep_days:
         n_days = int(day_of_tick[-1]) + 1 if day_of_tick.size else 0
         index = flow_user * n_days + day_of_tick[flow_tick]
         days = np.bincount(index, minlength=n_users * n_days).reshape(n_users, n_days)
@@ -94,3 +125,28 @@ def outcome_tables(outcome: str, *, user: np.ndarray, tick: np.ndarray, pool: np
         scale = basket_value[:, None] if outcome == "revenue" else 1.0
         tables["outcome_days"] = days * scale
     return tables
+
+
+def _revenue_totals(done_user: np.ndarray, done_tick: np.ndarray, basket_value: np.ndarray,
+                    day_of_tick: np.ndarray | None) -> np.ndarray:
+    """Return each user's revenue: day by day, each day's orders x value, added in day order.
+
+    The same additions as :func:`~spillgauge.panel.sum_days_in_order` over the
+    daily table (days without orders add 0.0, which changes nothing), without
+    building that (n_users, n_days) table.
+    """
+    n_users = basket_value.size
+    if day_of_tick is None:
+        return np.bincount(done_user, minlength=n_users) * basket_value
+    n_days = int(day_of_tick[-1]) + 1 if day_of_tick.size else 1
+    cell, count = np.unique(done_user.astype(np.int64) * n_days + day_of_tick[done_tick],
+                            return_counts=True)  # sorted by user, then day
+    user = cell // n_days
+    value = count * basket_value[user]
+    starts = np.flatnonzero(np.r_[True, user[1:] != user[:-1]]) if user.size else user
+    rank = np.arange(user.size) - np.repeat(starts, np.diff(np.r_[starts, user.size]))
+    total = np.zeros(n_users)
+    for k in range(int(rank.max(initial=-1)) + 1):  # k-th day with orders of each user
+        at = rank == k
+        total[user[at]] = total[user[at]] + value[at]
+    return total
