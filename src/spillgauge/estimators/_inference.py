@@ -119,9 +119,11 @@ def build_estimate(point: float, variance: float, *, confidence: float, method: 
     """
     se = math.sqrt(max(float(variance), 0.0))
     level = (1.0 + confidence) / 2.0
-    reference = stats.norm if df is None else stats.t(df)
-    quantile = float(reference.ppf(level))
-    p_value = float(2 * reference.sf(abs(point) / se)) if se > 0 else math.nan
+    # the distribution's methods with df as an argument: freezing one costs far more than its use
+    shape = () if df is None else (df,)
+    reference = stats.norm if df is None else stats.t
+    quantile = float(reference.ppf(level, *shape))
+    p_value = float(2 * reference.sf(abs(point) / se, *shape)) if se > 0 else math.nan
     return Estimate(point=float(point), standard_error=se, ci_low=float(point) - quantile * se,
                     ci_high=float(point) + quantile * se, method=method, n_units=int(n_units),
                     confidence=float(confidence),

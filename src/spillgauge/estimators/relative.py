@@ -97,9 +97,10 @@ def relative_effect(estimate: Estimate) -> RelativeEffect:
                 + ratio ** 2 * estimate.control_mean_se ** 2) / c ** 2
     confidence = estimate.confidence if math.isfinite(estimate.confidence) else 0.95
     df = estimate.degrees_of_freedom
-    reference = stats.t(df) if math.isfinite(df) and df > 0 else stats.norm
+    t_shape = math.isfinite(df) and df > 0
     if not (math.isfinite(variance) and variance >= 0):
         return RelativeEffect(ratio, nan, nan, nan)
     se = math.sqrt(variance)
-    half = float(reference.ppf((1 + confidence) / 2)) * se
+    level = (1 + confidence) / 2
+    half = float(stats.t.ppf(level, df) if t_shape else stats.norm.ppf(level)) * se
     return RelativeEffect(ratio, se, ratio - half, ratio + half)

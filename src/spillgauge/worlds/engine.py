@@ -11,7 +11,11 @@ deliveries after the lead time; ``calendar.start_stock_calendar``), and the
 segments that group the order events are read from that same calendar
 (``calendar.segment_bounds``); between two stock events the arithmetic is
 vectorized numpy over all order events and all worlds at once, so the cost
-grows with the number of order events, not with users x ticks.
+grows with the number of order events, not with users x ticks. Each world is
+held as the live events it does not keep (``worlds.thinning``), and its orders
+are served from per-(segment, pool) counts (``worlds.serving``), so beyond the
+passes shared by all worlds a world costs in proportion to the events where it
+differs from the others and to its lost orders.
 """
 
 from __future__ import annotations
@@ -37,7 +41,18 @@ from spillgauge.seeding import POOL_SHOCKS, check_rng, side_stream
 from spillgauge.worlds.arrival_order import arrival_order
 from spillgauge.worlds.memory import keep_freed_memory
 from spillgauge.worlds.outcome import outcome_tables, pre_period_outcome
-from spillgauge.worlds.thinning import LiveEvents, accepted_in_world, live_events
+from spillgauge.worlds.serving import (
+    kept_mask,
+    lost_orders,
+    orders_per_group,
+    tally_worlds,
+)
+from spillgauge.worlds.thinning import (
+    LiveEvents,
+    computes_probabilities,
+    live_events,
+    unkept_events,
+)
 
 __all__ = ["simulate_worlds", "CandidateEvents", "draw_candidates"]
 
@@ -232,21 +247,32 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
     check_rng(rng)
     if events is None:
         events = draw_candidates(market, rng=rng)
-    events = live_events(market, events)  # the events no world keeps change no number
+    # the events no world keeps change no number
+    events = live_events(market, events,
+                         probabilities=computes_probabilities(market, schedules))
     scenario = market.scenario
     calendar, pools = scenario.calendar, scenario.pools
     population = market.population
     n_worlds, n_pools = len(schedules), population.n_pools
-    accepted = np.stack([accepted_in_world(market, events, s) for s in schedules]) \
-        if n_worlds else np.zeros((0, events.n_events), dtype=bool)
-    served = np.zeros_like(accepted)
+    unkept = [unkept_events(market, events, s) for s in schedules]  # the rest are orders
+    accepted = [kept_mask(events.n_events, u.events) for u in unkept]
     substitute = events.substitute_pool is not None
-    substituted = np.zeros_like(accepted) if substitute else None
     level = np.tile(population.order_up_to, (n_worlds, 1)).astype(np.int64)
     order_up_to = population.order_up_to
     bounds = events.segment_bounds
     n_segments = bounds.size - 1
     level_at_start = np.empty((n_segments, n_worlds, n_pools), dtype=np.int64)
+    if substitute:  # lost orders move to other pools, so serving goes event by event
+        stacked = np.stack(accepted) if n_worlds else np.zeros((0, events.n_events), bool)
+        served = np.zeros_like(stacked)
+        substituted = np.zeros_like(stacked)
+    else:  # each world's orders per (segment, pool), served from the counts (worlds/serving.py)
+        starts = events.group_starts
+        groups = [orders_per_group(u.events, starts) for u in unkept]
+        orders = np.stack([g[1] for g in groups]) if n_worlds else \
+            np.zeros((0, n_segments, n_pools), dtype=np.int64)
+        served_orders = np.empty_like(orders)
+        substituted = None
 
     env = simpy.Environment()
     start_hour = 0
@@ -271,32 +297,47 @@ def simulate_worlds(market: Market, schedules: list[AssignmentSchedule], *,
         while env.peek() <= start_hour:
             env.step()
         level_at_start[s] = level
+        if not substitute:
+            # the first min(orders, level) of a pool's orders are served (the level is >= 0)
+            sold = np.minimum(orders[:, s], level, out=served_orders[:, s])
+            level -= sold
+            continue
         lo, hi = events.segment_starts[s], events.segment_starts[s + 1]
         if hi == lo:
             continue
         home = events.pool[lo:hi]
-        done, sold = _serve_in_order(accepted[:, lo:hi], home, level)
+        done, sold = _serve_in_order(stacked[:, lo:hi], home, level)
         served[:, lo:hi] = done
         level -= sold
-        if substitute:
-            _substitute(events, accepted, served, substituted, level, lo, hi, pools)
+        _substitute(events, stacked, served, substituted, level, lo, hi, pools)
     if env.peek() < calendar.horizon_hours:  # a stock event after the last bound never ran
         raise RuntimeError(f"stock event at hour {env.peek()} is not on a segment bound")
-    fulfilled = served if substituted is None else served | substituted
+    if substitute:
+        fulfilled = list(served | substituted)
+        lost = [np.flatnonzero(a & ~f) for a, f in zip(accepted, fulfilled)]
+    else:
+        lost = [lost_orders(u.events, a, starts, before, o, done) for u, a, (before, _), o, done
+                in zip(unkept, accepted, groups, orders, served_orders)]
+        fulfilled = None  # each world's mask, built only where a table needs it
+        if user_days or scenario.study.outcome != "orders":
+            fulfilled = [a.copy() for a in accepted]
+            for f, gone in zip(fulfilled, lost):
+                f[gone] = False
     pool_tick = events.pool * calendar.n_ticks + events.tick  # flat index of the pool tallies
     tallies = [(pool_tick, n_pools * calendar.n_ticks)]
     if not user_days:
         tallies.append((events.user, population.n_users))
-    pool_counts, *rest = _count_orders(tallies, accepted, fulfilled)
+    pool_counts, *rest = tally_worlds(tallies, unkept, lost, events.differ)
     user_counts = rest[0] if rest else None
-    return [_panel(market, events, accepted[w], fulfilled[w],
+    return [_panel(market, events, accepted[w], None if fulfilled is None else fulfilled[w],
                    None if substituted is None else substituted[w],
                    level_at_start[:, w, :], bounds, pool_tick=pool_tick,
                    pool_counts=(pool_counts[0][w], pool_counts[1][w]),
                    user_counts=None if user_days else (user_counts[0][w], user_counts[1][w]),
                    outcome=outcome_tables(
                        scenario.study.outcome, user=events.user, tick=events.tick,
-                       pool=events.pool, is_fulfilled=fulfilled[w],
+                       pool=events.pool,
+                       is_fulfilled=None if fulfilled is None else fulfilled[w],
                        basket_value=market.population.basket_value,
                        pool_of_user=population.pool_of_user, n_ticks=calendar.n_ticks,
                        day_of_tick=day_of_tick(calendar), keep_days=user_days))
@@ -317,34 +358,6 @@ def _substitute(events: LiveEvents, accepted: np.ndarray, served: np.ndarray,
     got[:, order] = done
     substituted[:, lo:hi] = got
     level -= sold
-
-
-def _count_orders(tallies: list[tuple[np.ndarray, int]], accepted: np.ndarray,
-                  fulfilled: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
-    """Return every world's placed and fulfilled orders per bin, each ``(n_worlds, n_bins)``.
-
-    ``tallies`` holds ``(index, n_bins)`` pairs, ``index`` giving each event's
-    bin; one pair of tables is returned per pair. Orders placed in every world
-    are counted once; a world adds its other placed orders, and its fulfilled
-    orders are its placed ones less its lost ones (fulfilled orders are placed
-    orders), so each world counts only the events where it differs from the rest
-    or lost the sale, found once for all the tallies.
-    """
-    n_worlds = accepted.shape[0]
-    tables = [(np.empty((n_worlds, n_bins), dtype=np.int64),
-               np.empty((n_worlds, n_bins), dtype=np.int64)) for _, n_bins in tallies]
-    if n_worlds == 0:
-        return tables
-    everywhere = np.logical_and.reduce(accepted, axis=0)
-    elsewhere = np.flatnonzero(~everywhere)  # the events some world does not place
-    common = [np.bincount(index[everywhere], minlength=n_bins) for index, n_bins in tallies]
-    for w in range(n_worlds):
-        extra = elsewhere[accepted[w, elsewhere]]
-        lost = np.flatnonzero(accepted[w] & ~fulfilled[w])
-        for (index, n_bins), (placed, done), base in zip(tallies, tables, common):
-            placed[w] = base + np.bincount(index[extra], minlength=n_bins)
-            done[w] = placed[w] - np.bincount(index[lost], minlength=n_bins)
-    return tables
 
 
 def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
@@ -375,10 +388,12 @@ def _panel(market: Market, events: LiveEvents, accepted: np.ndarray,
                               + events.tick[substituted])
     else:
         sold = pool_fulfilled
-    stock = np.empty((n_pools, n_ticks), dtype=np.int64)
-    for s in range(bounds.size - 1):
-        a, b = bounds[s], bounds[s + 1]
-        stock[:, a:b] = level_at_start[s][:, None] - np.cumsum(sold[:, a:b], axis=1)
+    # stock after each tick: the segment's starting level less the sales so far in the segment
+    running = np.cumsum(sold, axis=1)
+    segment = np.repeat(np.arange(bounds.size - 1), np.diff(bounds))
+    before = np.concatenate([np.zeros((n_pools, 1), dtype=running.dtype), running[:, :-1]],
+                            axis=1)[:, bounds[:-1]]
+    stock = level_at_start.T[:, segment] - (running - before[:, segment])
     if user_counts is None:
         users = {"fulfilled": per_user_day(fulfilled), "demanded": per_user_day(accepted)}
     else:
