@@ -10,16 +10,18 @@ level 0.001). What holds depends on the estimator and on the world:
   a trend or market-wide shocks bias it and its interval does not see them;
 - synthetic control: the rank p-value among placebo launches of as many pools
   is exact under no effect when the launched set is random (Firpo & Possebom
-  2018); its placebo interval (Arkhangelsky et al. 2021, Algorithm 4) is
-  measured (a little short, figures in the test);
-- synthetic difference in differences: the placebo interval is measured the
-  same way (a little short, figures in the test).
+  2018); its placebo interval (Arkhangelsky et al. 2021, Algorithm 4) with a
+  Student t quantile on ``1 / (1/(N_co - 1) + 1/B)`` df covers ~95% (the
+  paper's normal quantile covered 93-94%; figures in the tests);
+- synthetic difference in differences: the same placebo interval, and the
+  fixed-weight jackknife (Algorithm 3) with t on ``N_tr - 1`` df.
 
 Long runs are marked ``slow``; the quick versions use fewer replications.
 """
 
 from __future__ import annotations
 
+import functools
 import warnings
 
 import numpy as np
@@ -36,7 +38,9 @@ from tests.calibration.launch_worlds import launch_world
 
 ESTIMATORS = {"pre_post": pre_post_difference, "did": launch_difference_in_differences,
               "synthetic_control": synthetic_control,
-              "synthetic_did": synthetic_difference_in_differences}
+              "synthetic_did": synthetic_difference_in_differences,
+              "synthetic_did_jackknife": functools.partial(synthetic_difference_in_differences,
+                                                           variance="jackknife")}
 
 WORLDS = {
     # pools' own AR(1) daily shocks only: nothing market-wide changes
@@ -47,9 +51,15 @@ WORLDS = {
 
 
 def launch_calibration(names, reps: int, seed: int, **world) -> dict:
-    """Return per estimator (covered, intervals, rejections at 5%, errors) over null launches."""
+    """Return per estimator (covered, intervals, rejections at 5%, errors) over null launches.
+
+    ``normal_covered[name]`` also counts the intervals ``point +/- 1.96 se`` (the normal
+    quantile the placebo and jackknife intervals of the paper use), for comparison.
+    """
     rng = np.random.default_rng(seed)
     out = {name: [0, 0, 0, []] for name in names}
+    normal_covered.clear()
+    normal_covered.update({name: 0 for name in names})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for _ in range(reps):
@@ -63,11 +73,19 @@ def launch_calibration(names, reps: int, seed: int, **world) -> dict:
                 row[1] += 1
                 row[2] += est.p_value <= 0.05
                 row[3].append(est.point - truth)
+                normal_covered[name] += abs(est.point - truth) <= 1.959964 * est.standard_error
     return {name: (c, n, r, np.array(e)) for name, (c, n, r, e) in out.items()}
 
 
+normal_covered: dict = {}
+
+
 def _figures(result: dict) -> str:
-    return "; ".join(f"{name}: coverage {c / n:.3f}, rejection {r / n:.3f}, bias "
+    return "; ".join(f"{name}: n {n}, covered {c} ({c / n:.4f}, binomtest p vs 0.95 "
+                     f"{stats.binomtest(c, n, 0.95).pvalue:.3g}), with the normal quantile "
+                     f"{normal_covered.get(name, 0)} ({normal_covered.get(name, 0) / n:.4f}, p "
+                     f"{stats.binomtest(normal_covered.get(name, 0), n, 0.95).pvalue:.3g}), "
+                     f"rejection {r / n:.3f}, bias "
                      f"{e.mean():+.4f} (MC SE {e.std(ddof=1) / np.sqrt(e.size):.4f})"
                      for name, (c, n, r, e) in result.items())
 
@@ -110,41 +128,47 @@ def test_pre_post_covers_only_when_nothing_market_wide_changes():
 
 @pytest.mark.slow
 @pytest.mark.parametrize("world", list(WORLDS))
-def test_synthetic_control_rank_test_is_exact_and_its_interval_measured(world):
+def test_synthetic_control_rank_test_is_exact_and_its_interval_covers(world):
     # Fisher's randomization test: launched set drawn at random, no effect, so the real set's
     # RMSPE ratio is exchangeable with the placebo sets' (Firpo & Possebom 2018): rejection
     # at 5% within binomial error of 5% (two-sided binomial test). Before, with one pool per
     # placebo against a launched group of five, it rejected 29.5% (2000 launches, stable).
-    # The placebo interval (Arkhangelsky et al. 2021, Algorithm 4, normal quantile) is a
-    # little short: measured 93.8% (stable) and 92.9% (trend and market shocks) over 2000
-    # launches; it must not fall below 92% (one-sided binomial test at 0.001).
+    # The placebo interval (Arkhangelsky et al. 2021, Algorithm 4) with t on
+    # 1 / (1/(N_co - 1) + 1/B) df (derived in placebo_degrees_of_freedom): ~95% (two-sided
+    # binomial test at 0.001). Measured over 2000 launches: 94.35% (stable) and 93.95% (trend
+    # and market shocks); the same launches with the paper's normal quantile: 93.75%, 92.90%.
     result = launch_calibration(["synthetic_control"], 2000, 34, **WORLDS[world])
     print(world, _figures(result))
     covered, total, rejected, _ = result["synthetic_control"]
     assert stats.binomtest(rejected, total, 0.05).pvalue > 0.001, rejected / total
-    covered, total, _, _ = result["synthetic_did"]
-    assert stats.binomtest(covered, total, 0.92, alternative="less").pvalue > 0.001
-    assert stats.binomtest(covered, total, 0.92, alternative="less").pvalue > 0.001
+    assert stats.binomtest(covered, total, 0.95).pvalue > 0.001, covered / total
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("world", list(WORLDS))
-def test_synthetic_did_placebo_interval_covers_and_is_nearly_unbiased(world):
-    # Arkhangelsky et al. (2021), Algorithm 4: with launched pools like the others
-    # (homoskedastic across pools) the placebo variance is consistent; with 25 other pools and
-    # a normal quantile it is a little short: measured 93.2% (stable) and 94.1% (trend and
-    # market shocks) over 2000 launches; it must not fall below 92% (one-sided binomial test
-    # at 0.001). Bias: none in the stable market (4 Monte Carlo SE); under a multiplicative
-    # trend with pool levels that differ, measured +0.029 (4 MC SE, a tenth of the estimate's
-    # SD): the standardized bias must stay under 40% of the SD, the size beyond which
-    # Collins, Schafer & Kam (2001) found coverage and efficiency harmed [from memory].
-    result = launch_calibration(["synthetic_did"], 2000, 35, **WORLDS[world])
+def test_synthetic_did_intervals_cover_and_the_estimate_is_nearly_unbiased(world):
+    # Placebo variance (Arkhangelsky et al. 2021, Algorithm 4) with launched pools like the
+    # others (homoskedastic across pools), t on 1 / (1/(N_co - 1) + 1/B) df: ~95% (two-sided
+    # binomial test at 0.001; measured 94.45% and 94.90% over 2000 launches, 93.25% and
+    # 94.10% on the same launches with the paper's normal quantile).
+    # Jackknife (Algorithm 3, weights fixed), t on N_tr - 1 = 4 df: it overstates the
+    # launched pools' share by about N_tr / (N_tr - 1) (its (N - 1) / N factor is for all N
+    # pools, ours on paper), so it must cover at least 95% (one-sided binomial test at 0.001;
+    # measured 96.75% and 96.30%; with the normal quantile 90.60% and 89.70%).
+    # Bias: none in the stable market (4 Monte Carlo SE); under a multiplicative trend with
+    # pool levels that differ, measured +0.029 (4 MC SE, a tenth of the estimate's SD; see
+    # docs/designs.md): the standardized bias must stay under 40% of the SD, the size beyond
+    # which Collins, Schafer & Kam (2001) found coverage and efficiency harmed [from memory].
+    result = launch_calibration(["synthetic_did", "synthetic_did_jackknife"], 2000, 35,
+                                **WORLDS[world])
     print(world, _figures(result))
     covered, total, _, errors = result["synthetic_did"]
-    assert stats.binomtest(covered, total, 0.92, alternative="less").pvalue > 0.001
+    assert stats.binomtest(covered, total, 0.95).pvalue > 0.001, covered / total
     if world == "stable":
         assert _unbiased(errors)
     assert abs(errors.mean()) < 0.4 * errors.std(ddof=1)
+    covered, total, _, _ = result["synthetic_did_jackknife"]
+    assert stats.binomtest(covered, total, 0.95, alternative="less").pvalue > 0.001
 
 
 def test_launch_estimators_null_calibration_quick():
@@ -154,5 +178,93 @@ def test_launch_estimators_null_calibration_quick():
         assert stats.binomtest(covered, total, 0.95).pvalue > 0.001, (name, covered / total)
     covered, total, rejected, _ = result["synthetic_control"]
     assert stats.binomtest(rejected, total, 0.05).pvalue > 0.001, rejected / total
-    covered, total, _, _ = result["synthetic_did"]
-    assert stats.binomtest(covered, total, 0.92, alternative="less").pvalue > 0.001
+    for name in ("synthetic_did", "synthetic_control"):
+        covered, total, _, _ = result[name]
+        assert stats.binomtest(covered, total, 0.95).pvalue > 0.001, (name, covered / total)
+
+
+def relative_calibration(names, reps: int, seed: int, lift: float, **world) -> dict:
+    """Return per estimator (covered, intervals, errors, SEs) of the relative effect.
+
+    In :func:`launch_world` the launched pools' expected orders are multiplied by
+    ``1 + lift`` after the launch, so their effect over their all-control mean is
+    exactly ``lift`` (given the world's shocks).
+    """
+    from spillgauge.estimators.relative import relative_effect
+
+    rng = np.random.default_rng(seed)
+    out = {name: [0, 0, [], []] for name in names}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for _ in range(reps):
+            panel, schedule, _ = launch_world(rng=rng, lift=lift, **world)
+            for name in names:
+                rel = relative_effect(ESTIMATORS[name](panel, schedule))
+                if not (np.isfinite(rel.ci_low) and np.isfinite(rel.ci_high)):
+                    continue
+                row = out[name]
+                row[0] += rel.ci_low <= lift <= rel.ci_high
+                row[1] += 1
+                row[2].append(rel.point - lift)
+                row[3].append(rel.standard_error)
+    return {name: (c, n, np.array(e), np.array(s)) for name, (c, n, e, s) in out.items()}
+
+
+def _relative_figures(result: dict) -> str:
+    return "; ".join(f"{name}: n {n}, covered {c} ({c / n:.4f}, binomtest p vs 0.95 "
+                     f"{stats.binomtest(c, n, 0.95).pvalue:.3g}), bias {e.mean():+.5f}, "
+                     f"SD {e.std(ddof=1):.5f}, mean SE {s.mean():.5f}, "
+                     f"RMS SE {np.sqrt(np.mean(s ** 2)):.5f}"
+                     for name, (c, n, e, s) in result.items())
+
+
+RELATIVE = ["did", "pre_post", "synthetic_control", "synthetic_did", "synthetic_did_jackknife"]
+
+
+@pytest.mark.slow
+def test_relative_launch_intervals_cover_under_the_null():
+    # No effect, pools launched at random, stable market: the relative truth is 0; every
+    # estimator's control mean is the launched pools' observed post level minus the effect,
+    # whose error is minus the effect's (with_launch_control_mean), so the delta-method
+    # interval for a ratio (Casella & Berger 2002, sec. 5.5.4) covers ~95% (two-sided binomial
+    # test at 0.001; the jackknife's t(N_tr - 1) interval errs long, so one-sided) and the
+    # root mean square delta-method SE is within 10% of the SD of the relative estimate over
+    # the launches (an independent, Monte Carlo, computation of that SD). Measured (1000
+    # launches): coverage 96.4% DiD, 95.7% pre/post, 93.7% synthetic control, 94.4% synthetic
+    # DiD, 96.5% jackknife; RMS SE / SD 1.00, 0.98, 1.11, 1.06, 1.03. Synthetic control's
+    # placebo fits have 20 donors against the real fit's 25, so its placebo variance runs
+    # high (11% in SE; the 10% band failed on the first run): for it, and for the jackknife,
+    # the SE must only not fall more than 10% short of the SD.
+    result = relative_calibration(RELATIVE, 1000, 39, 0.0)
+    print(_relative_figures(result))
+    for name, (covered, total, errors, ses) in result.items():
+        side = "less" if name == "synthetic_did_jackknife" else "two-sided"
+        assert stats.binomtest(covered, total, 0.95, alternative=side).pvalue > 0.001, name
+        rms, sd = np.sqrt(np.mean(ses ** 2)), errors.std(ddof=1)
+        if name in ("synthetic_control", "synthetic_did_jackknife"):
+            assert rms > 0.9 * sd, name
+        else:
+            assert rms == pytest.approx(sd, rel=0.10), name
+
+
+@pytest.mark.slow
+def test_relative_launch_intervals_with_a_lift_do_not_under_cover():
+    # A 10% lift on every launched pool: the relative truth is 0.10 for all of them, but their
+    # absolute effects differ with their levels (CV 0.5), and a variance across launched pools
+    # (pre/post, DiD) counts that spread as noise: conservative for the effect on these pools,
+    # as Neyman's variance is for a sample's average effect (Imbens & Rubin 2015, ch. 6).
+    # The relative interval, built from the effect's variance, inherits it: measured over 1000
+    # launches 97.4% (DiD; its absolute interval 98.0% on 600), 96.8% (pre/post), 95.2%
+    # (synthetic control), 93.6% (synthetic DiD, placebo variance from pools without effect),
+    # 97.2% (jackknife). None may under-cover (one-sided binomial test at 0.001).
+    result = relative_calibration(RELATIVE, 1000, 37, 0.1)
+    print(_relative_figures(result))
+    for name, (covered, total, _, _) in result.items():
+        assert stats.binomtest(covered, total, 0.95, alternative="less").pvalue > 0.001, name
+
+
+def test_relative_launch_intervals_quick():
+    result = relative_calibration(["did", "pre_post"], 150, 38, 0.0)
+    for name, (covered, total, errors, ses) in result.items():
+        assert stats.binomtest(covered, total, 0.95).pvalue > 0.001, (name, covered / total)
+        assert abs(errors.mean()) < 4 * errors.std(ddof=1) / np.sqrt(errors.size), name

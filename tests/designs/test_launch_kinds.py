@@ -49,6 +49,11 @@ def test_selection_on_history_without_a_pre_period_is_refused_naming_both_keys()
      r"pools\.count must be >= 2 x design\[0\]\.pools \+ 2 = 22"),
     ({"kind": "regional_launch", "pools": 10, "estimator": "synthetic_control"},
      r"pools\.count must be >= 2 x design\[0\]\.pools \+ 2 = 22"),
+    ({"kind": "regional_launch", "estimator": "did", "variance": "jackknife"},
+     r"design\[0\]\.variance must be 'placebo' unless estimator = 'synthetic_did'"),
+    ({"kind": "regional_launch", "pools": 1, "estimator": "synthetic_did",
+      "variance": "jackknife"}, r"design\[0\]\.pools must be >= 2 for variance"),
+    ({"kind": "regional_launch", "variance": "bootstrap"}, r"design\[0\]\.variance"),
     ({"kind": "opt_in", "take_up": 1.0}, r"design\[0\]\.take_up"),
     ({"kind": "opt_in", "estimator": "lasso"}, r"design\[0\]\.estimator"),
 ])

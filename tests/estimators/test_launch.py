@@ -105,3 +105,41 @@ def test_synthetic_control_on_a_noiseless_factor_model_is_exact_and_most_extreme
     estimate = synthetic_control(panel, schedule)
     assert estimate.point == pytest.approx(6.0, abs=0.01)
     assert estimate.p_value == pytest.approx(1 / 5)
+
+
+def test_control_mean_is_each_estimators_counterfactual_level_by_hand():
+    # The relative effect divides by the launched pools' counterfactual post-launch level:
+    # pre/post, their pre level scaled to the post days; DiD, that level plus the other
+    # pools' change; synthetic control, the weighted donors' post orders (Abadie, Diamond &
+    # Hainmueller 2010); each is observed post level minus the effect, so its variance is
+    # the effect's and their covariance minus it (worked by hand from the definitions).
+    from spillgauge.estimators import (
+        launch_difference_in_differences,
+        pre_post_difference,
+        synthetic_control,
+    )
+    from spillgauge.estimators.launch import (
+        group_series,
+        pool_day_series,
+        synthetic_control_weights,
+    )
+    from tests.calibration.launch_worlds import launch_world
+
+    panel, schedule, _ = launch_world(rng=np.random.default_rng(4), lift=0.1)
+    series, users, launched, n_pre = pool_day_series(panel, schedule, "test")
+    n_post = series.shape[1] - n_pre
+    target = group_series(series, users, launched)
+    others = group_series(series, users, ~launched)
+    weights = synthetic_control_weights(target[:n_pre], series[~launched, :n_pre])
+    expected = {
+        pre_post_difference: target[:n_pre].mean() * n_post,
+        launch_difference_in_differences:
+            (target[:n_pre].mean() + others[n_pre:].mean() - others[:n_pre].mean()) * n_post,
+        synthetic_control: (weights @ series[~launched, n_pre:]).sum(),
+    }
+    for function, level in expected.items():
+        estimate = function(panel, schedule)
+        assert estimate.control_mean == pytest.approx(level, rel=1e-9), function.__name__
+        assert estimate.control_mean_se == pytest.approx(estimate.standard_error, rel=1e-12)
+        assert estimate.control_covariance == pytest.approx(-estimate.standard_error ** 2,
+                                                            rel=1e-12)

@@ -18,6 +18,7 @@ from scipy import optimize
 from spillgauge.estimators.launch import group_series, pool_day_series
 from spillgauge.estimators.synthetic_did import (
     synthetic_did_fit,
+    synthetic_did_jackknife_variance,
     synthetic_did_regularization,
     synthetic_did_time_weights,
     synthetic_did_unit_weights,
@@ -155,3 +156,83 @@ def test_noiseless_parallel_series_give_the_effect_exactly():
     assert estimate.point == pytest.approx(2.0, abs=0.01)
     assert group_series(series, np.ones(9), launched)[7] == pytest.approx(
         levels[[1, 4]].mean() + path[7] + 0.5)
+
+
+def _weighted_twfe_tau(series, unit_weight, day_weight, treated_units, n_pre):
+    """Launch coefficient of Y_it ~ alpha_i + beta_t + tau W_it, WLS weights w_i l_t (statsmodels)."""
+    import statsmodels.api as sm
+
+    n_units, n_days = series.shape
+    unit, day = np.meshgrid(np.arange(n_units), np.arange(n_days), indexing="ij")
+    treated = (treated_units[unit] & (day >= n_pre)).astype(float).ravel()
+    weight = (unit_weight[unit] * day_weight[day]).ravel()
+    keep = weight > 0
+    units = np.eye(n_units)[unit.ravel()][keep][:, unit_weight > 0]
+    days = np.eye(n_days)[day.ravel()][keep][:, day_weight > 0][:, 1:]
+    design = np.column_stack([treated[keep], units, days])
+    return sm.WLS(series.ravel()[keep], design, weights=weight[keep]).fit().params[0]
+
+
+@pytest.mark.parametrize("seed", [7, 8])
+def test_jackknife_variance_equals_a_plain_leave_one_pool_out_loop(seed):
+    # Arkhangelsky et al. (2021), Algorithm 3 [text from memory]: for every unit i, tau^(-i)
+    # is the weighted two-way fixed-effects estimate (their eq. 1.1) without unit i, with the
+    # time weights kept and the other units' weights renormalised; V = (N - 1) / N
+    # sum_i (tau^(-i) - tau)^2. Here each tau^(-i) is refitted by statsmodels' WLS on unit and
+    # day dummies, in a plain loop over pools.
+    panel, schedule, _ = _panel(seed, lift=0.05)
+    series, users, launched, n_pre = pool_day_series(panel, schedule, "test")
+    tau, omega, lam = synthetic_did_fit(series, users, launched, n_pre)
+    n_units, n_days = series.shape
+    unit_weight = np.zeros(n_units)
+    unit_weight[~launched] = omega
+    unit_weight[launched] = users[launched]
+    day_weight = np.concatenate([lam, np.full(n_days - n_pre, 1 / (n_days - n_pre))])
+    leave_one_out = []
+    for i in range(n_units):
+        kept = np.arange(n_units) != i
+        w = unit_weight[kept].copy()
+        is_launched = launched[kept]
+        w[is_launched] /= w[is_launched].sum()
+        w[~is_launched] /= w[~is_launched].sum()
+        leave_one_out.append(_weighted_twfe_tau(series[kept], w, day_weight, is_launched, n_pre))
+    expected = (n_units - 1) / n_units * np.sum((np.array(leave_one_out) - tau) ** 2)
+    variance = synthetic_did_jackknife_variance(series, users, launched, n_pre, omega, lam)
+    assert variance == pytest.approx(expected, rel=1e-8)
+    estimate = synthetic_difference_in_differences(panel, schedule, variance="jackknife")
+    n_post = n_days - n_pre
+    assert estimate.standard_error == pytest.approx(np.sqrt(expected) * n_post, rel=1e-8)
+    assert estimate.point == pytest.approx(tau * n_post)
+    # the interval is Student's t with N_tr - 1 df (3 launched pools here)
+    assert estimate.degrees_of_freedom == 2
+
+
+def test_jackknife_is_not_defined_with_one_launched_pool():
+    # Arkhangelsky et al. (2021), section on Algorithm 3: leaving out the only treated unit
+    # leaves no estimate, so the jackknife needs two treated units (and a donor weight that
+    # survives each leave-one-out).
+    import warnings
+
+    rng = np.random.default_rng(3)
+    panel, schedule, _ = launch_world(rng=rng, n_pools=10, launched=1, days=12, launch_day=8)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        estimate = synthetic_difference_in_differences(panel, schedule, variance="jackknife")
+    assert np.isnan(estimate.standard_error) and caught
+    with pytest.raises(ValueError, match="variance must be one of"):
+        synthetic_difference_in_differences(panel, schedule, variance="bootstrap")
+
+
+def test_placebo_interval_uses_t_on_the_placebo_degrees_of_freedom():
+    # 7 other pools, every one of the C(7, 2) = 21 placebo sets listed: the placebo variance
+    # has N_co - 1 = 6 df (placebo_degrees_of_freedom; the variance of a mean of k of n drawn
+    # without replacement, Cochran 1977, eq. 2.8 [from memory]); the half-width is
+    # scipy.stats.t(6).ppf(0.975) standard errors.
+    from scipy import stats
+
+    rng = np.random.default_rng(9)
+    panel, schedule, _ = launch_world(rng=rng, n_pools=9, launched=2, days=12, launch_day=8)
+    estimate = synthetic_difference_in_differences(panel, schedule)
+    assert estimate.degrees_of_freedom == 6
+    assert estimate.ci_high - estimate.point == pytest.approx(
+        stats.t(6).ppf(0.975) * estimate.standard_error, rel=1e-12)

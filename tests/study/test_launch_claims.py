@@ -99,3 +99,20 @@ def test_launch_summary_names_its_estimand_and_is_never_recommended():
     truths = [rep.runs["launch-largest-3-did"].truth for rep in study.replications]
     assert launch["truth"] == pytest.approx(np.mean(truths))
     assert study.recommendation.ranking == ("user",)  # the launch is never a candidate
+
+
+def test_relative_truth_of_a_launch_is_the_lift_without_interference():
+    # No interference (no peer effect, stock far above demand): a launched user's demand rate
+    # is multiplied by 1 + lift after the launch and every demanded order is fulfilled, so
+    # the launched pools' effect over their all-control mean is the lift, 0.2, up to the
+    # common-random-number thinning noise (rule of thumb for a multiplicative lift, common
+    # practice, no source): within 4 SE of the replications' spread, and each replication's
+    # relative truth within 0.05 of it.
+    study = run_study(_scenario(), reps=4, seed=5, workers=1)  # stock_cover 50: ample
+    for estimator in ESTIMATORS:
+        _, runs = _errors(study, estimator)
+        relative = np.array([r.truth_relative for r in runs])
+        assert np.all(np.abs(relative - 0.2) < 0.05), relative
+        assert abs(relative.mean() - 0.2) < 4 * relative.std(ddof=1) / 2 + 1e-3
+        summary = study.designs[f"launch-random-5-{estimator.replace('_', '-')}"]
+        assert summary.relative is not None  # rel.effect and rel.cov against this truth

@@ -177,6 +177,15 @@ class DesignKind:
         """
         raise NotImplementedError
 
+    def truth_control_mean(self, spec: DesignSpec, schedule: AssignmentSchedule,
+                           control: OutcomePanel) -> float:
+        """Return the all-control mean outcome of the estimand's users over its window.
+
+        What a non-GTE estimand's relative truth divides by (its truth over this);
+        only kinds whose ``estimand`` is not ``"gte"`` are asked. NaN by default.
+        """
+        return float("nan")
+
     def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
                  confidence: float, tick_hours: int) -> Estimate:
         """Return the design's estimate with its analytic interval (override when needed).

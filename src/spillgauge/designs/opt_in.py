@@ -132,3 +132,9 @@ class OptIn(DesignKind):
             return float(values.mean()) if values.size else float("nan")
 
         return mean(gain[opted]), mean(gain[~opted])
+
+    def truth_control_mean(self, spec: DesignSpec, schedule: AssignmentSchedule,
+                           control: OutcomePanel) -> float:
+        """Mean over opted-in users of their all-control outcome over the horizon."""
+        opted = schedule.user_is_treated()
+        return float(control.user_outcome()[opted].mean()) if opted.any() else float("nan")

@@ -78,6 +78,10 @@ class RegionalLaunch(DesignKind):
                   doc="`\"pre_post\"` (launched pools after vs before), `\"did\"` (difference "
                       "in differences against the other pools), `\"synthetic_control\"` or "
                       "`\"synthetic_did\"` (synthetic difference in differences)"),
+        DesignKey(name="variance", type=str, default="placebo", choices=("placebo", "jackknife"),
+                  doc="synthetic DiD's variance: `\"placebo\"` (placebo launches among the "
+                      "other pools) or `\"jackknife\"` (leave one pool out, weights fixed; "
+                      "needs `pools >= 2`)"),
     )
     shown_keys = ("pools", "choose", "launch_day", "estimator")
     estimand = "launched_pools"
@@ -97,6 +101,12 @@ class RegionalLaunch(DesignKind):
                   f">= 2 x {spec.at}.pools + 2 = {2 * spec.pools + 2} for estimator = "
                   f"{spec.estimator!r} (placebo launches of as many pools among the others, "
                   "with two donors left)", scenario.pools.count)
+        if spec.variance != "placebo":
+            check(spec.estimator == "synthetic_did", f"{spec.at}.variance",
+                  f"'placebo' unless estimator = 'synthetic_did' (got estimator = "
+                  f"{spec.estimator!r})", spec.variance)
+            check(spec.pools >= 2, f"{spec.at}.pools",
+                  ">= 2 for variance = 'jackknife' (leave one launched pool out)", spec.pools)
         if spec.estimator == "pre_post" or spec.estimator == "did":
             check(spec.pools >= 2, f"{spec.at}.pools",
                   f">= 2 for estimator = {spec.estimator!r} (pools are the clusters)",
@@ -123,6 +133,18 @@ class RegionalLaunch(DesignKind):
             market.pool_of_user, demand, market.n_ticks, pools=spec.pools, choose=spec.choose,
             launch_tick=spec.launch_day * 24 // market.tick_hours, rng=rng)
 
+    def estimate(self, spec: DesignSpec, panel: OutcomePanel, schedule: AssignmentSchedule, *,
+                 confidence: float, tick_hours: int):
+        from spillgauge.estimators.synthetic_did import (
+            synthetic_difference_in_differences,
+        )
+
+        if spec.estimator == "synthetic_did" and spec.variance != "placebo":
+            return synthetic_difference_in_differences(panel, schedule, confidence=confidence,
+                                                       variance=spec.variance)
+        return super().estimate(spec, panel, schedule, confidence=confidence,
+                                tick_hours=tick_hours)
+
     def truth(self, spec: DesignSpec, schedule: AssignmentSchedule, panel: OutcomePanel,
               control: OutcomePanel) -> tuple[float, float]:
         """Mean over the launched pools' users of launch minus all-control fulfilled orders
@@ -136,3 +158,11 @@ class RegionalLaunch(DesignKind):
             return float(values.mean()) if values.size else float("nan")
 
         return mean(gain[launched]), mean(gain[~launched])
+
+    def truth_control_mean(self, spec: DesignSpec, schedule: AssignmentSchedule,
+                           control: OutcomePanel) -> float:
+        """Mean over the launched pools' users of their all-control outcome after the launch."""
+        start_day = int(schedule.period_start_ticks[1]) * control.tick_hours // 24
+        launched = schedule.user_is_treated(1)
+        level = control.outcome_days[launched, start_day:].sum(axis=1)
+        return float(level.mean()) if level.size else float("nan")

@@ -28,6 +28,7 @@ from spillgauge.estimators._inference import (
     degenerate_estimate,
 )
 from spillgauge.estimators.estimate import Estimate, LaunchDiagnostic
+from spillgauge.estimators.relative import with_control_mean
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
@@ -95,8 +96,8 @@ def _sandwich(moments: np.ndarray, jacobian: np.ndarray) -> np.ndarray:
     return bread @ meat @ bread.T / n
 
 
-def ipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
-            ) -> tuple[float, float]:
+def ipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray, *,
+            full: bool = False) -> tuple:
     """Return the normalised IPW estimate of the ATT and its sandwich standard error.
 
     ``tau = mean_T(y) - sum_C w y / sum_C w`` with odds weights ``w = p / (1 - p)``
@@ -105,6 +106,9 @@ def ipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
     ``(tau, mu0)`` with the logit score, so the fitted propensity score's
     uncertainty is carried (Lunceford & Davidian 2004, section 3.2; Stefanski &
     Boos 2002). Equals ``statsmodels``' ``TreatmentEffect.ipw(effect_group=1)``.
+    With ``full``, also returns the opted-in users' counterfactual mean ``mu0``
+    (the weighted control mean), its variance and its covariance with ``tau``
+    (the same sandwich's entries).
     """
     y, t, x = np.asarray(outcome, float), np.asarray(treated, bool), np.asarray(covariates, float)
     _, p = fit_propensity(t, x)
@@ -123,11 +127,13 @@ def ipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
     jacobian[1, 2:] = ((1 - tf) * odds * (y - b)) @ x / n
     jacobian[2:, 2:] = -(x * (p * (1 - p))[:, None]).T @ x / n
     cov = _sandwich(moments, jacobian)
+    if full:  # the control mean mu0 and its (co)variance with tau, from the same sandwich
+        return float(a), float(math.sqrt(max(cov[0, 0], 0.0))), mu0, cov[1, 1], cov[0, 1]
     return float(a), float(math.sqrt(max(cov[0, 0], 0.0)))
 
 
-def aipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
-             ) -> tuple[float, float]:
+def aipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray, *,
+             full: bool = False) -> tuple:
     """Return the doubly robust ATT (odds-weighted regression adjustment) and its SE.
 
     The control outcome model ``m0(x) = x gamma`` is fitted on controls by least
@@ -136,6 +142,11 @@ def aipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
     (Wooldridge 2007; Kang & Schafer 2007 for the ATT form). The sandwich stacks
     ``tau``, ``gamma`` and the logit score (Lunceford & Davidian 2004; Stefanski &
     Boos 2002). Equals ``statsmodels``' ``TreatmentEffect.ipw_ra(effect_group=1)``.
+    With ``full``, also returns the opted-in users' counterfactual mean
+    ``mean_T m0(x) = mu1 - tau`` (``mu1`` their observed mean), its variance and
+    its covariance with ``tau``: the sandwich gains the moment ``t (y - mu1)``
+    (Jacobian ``-mean t`` on ``mu1``, zero elsewhere), so
+    ``Var(mu1 - tau) = V_11 + V_tt - 2 V_1t`` and ``Cov(tau, mu1 - tau) = V_1t - V_tt``.
     """
     y, t, x = np.asarray(outcome, float), np.asarray(treated, bool), np.asarray(covariates, float)
     _, p = fit_propensity(t, x)
@@ -156,6 +167,14 @@ def aipw_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarray
     jacobian[1:k + 1, k + 1:] = (x * (wc * residual)[:, None]).T @ x / n
     jacobian[k + 1:, k + 1:] = -(x * (p * (1 - p))[:, None]).T @ x / n
     cov = _sandwich(moments, jacobian)
+    if full:  # append mu1 = mean_T(y): moment t (y - mu1), d/d mu1 = -mean(t)
+        mu1 = float(y[t].mean())
+        jacobian = np.pad(jacobian, ((0, 1), (0, 1)))
+        jacobian[-1, -1] = -tf.mean()
+        joint = _sandwich(np.column_stack([moments, tf * (y - mu1)]), jacobian)
+        v_tau, v_mu1, c_mu1_tau = cov[0, 0], joint[-1, -1], joint[0, -1]
+        return (tau, float(math.sqrt(max(v_tau, 0.0))), mu1 - tau,
+                v_mu1 + v_tau - 2 * c_mu1_tau, c_mu1_tau - v_tau)
     return tau, float(math.sqrt(max(cov[0, 0], 0.0)))
 
 
@@ -267,7 +286,7 @@ def matching_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarra
     (2016)'s term for the fitted score (:func:`estimated_score_adjustment`);
     without it the score is treated as known (conservative here: 98% coverage).
 
-    Returns ``(tau, se, n_matched_treated)``.
+    Returns ``(tau, se, n_matched_treated, mean outcome of the matched treated)``.
     """
     y, t, x = np.asarray(outcome, float), np.asarray(treated, bool), np.asarray(covariates, float)
     _, p = fit_propensity(t, x)
@@ -290,7 +309,7 @@ def matching_att(outcome: np.ndarray, treated: np.ndarray, covariates: np.ndarra
     variance = (np.sum((gaps - tau) ** 2) + np.sum(used * (used - 1) * s2)) / n1 ** 2
     if estimated_score:
         variance = max(variance + estimated_score_adjustment(y, t, x, p, tau), 0.0)
-    return tau, float(math.sqrt(variance)), int(n1)
+    return tau, float(math.sqrt(variance)), int(n1), float(y[treated_users].mean())
 
 
 def standardized_mean_differences(values: np.ndarray, treated: np.ndarray,
@@ -322,18 +341,31 @@ def _panel_arrays(panel: OutcomePanel, schedule: AssignmentSchedule, confidence:
 
 
 def _run(method, panel, schedule, confidence, function, adjustment) -> Estimate:
+    """Fit, then fill the control mean: the opted-in users' counterfactual mean.
+
+    Weighting: the sandwich's own control mean, variance and covariance (see
+    :func:`ipw_att`, :func:`aipw_att`). Matching: the matched controls' mean
+    ``mean_T(y) - tau``; the matched opted-in users' own mean is observed, so the
+    control mean's error is minus the effect's: variance ``se^2``, covariance
+    ``-se^2`` (the default of :func:`~spillgauge.estimators.relative.with_control_mean`).
+    """
     confidence, y, t, x = _panel_arrays(panel, schedule, confidence, method)
     n = int(y.size)
     if t.sum() < 2 or (~t).sum() < 2:
         return degenerate_estimate(method, "fewer than two users in an arm", n_units=n)
     try:
-        point, se, *rest = function(y, t, x)
+        if adjustment == "matching":
+            point, se, n_units, treated_mean = function(y, t, x)
+            control = (treated_mean - point, se * se, None)
+        else:
+            point, se, *control = function(y, t, x, full=True)
+            n_units = n
         diagnostic = balance_and_overlap(panel.history, t, x, adjustment=adjustment)
     except ValueError as exc:
         return degenerate_estimate(method, str(exc), n_units=n)
     estimate = build_estimate(point, se * se, confidence=confidence, method=method,
-                              n_units=rest[0] if rest else n)
-    return replace(estimate, diagnostic=diagnostic)
+                              n_units=n_units)
+    return with_control_mean(replace(estimate, diagnostic=diagnostic), *control)
 
 
 def propensity_score_matching(panel: OutcomePanel, schedule: AssignmentSchedule, *,

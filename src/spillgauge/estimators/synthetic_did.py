@@ -22,13 +22,16 @@ from spillgauge.estimators.launch import (
     group_series,
     placebo_variance,
     simplex_least_squares,
+    with_launch_control_mean,
 )
 from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 
 __all__ = ["synthetic_did_regularization", "synthetic_did_unit_weights",
-           "synthetic_did_time_weights", "synthetic_did_fit",
-           "synthetic_difference_in_differences"]
+           "synthetic_did_time_weights", "synthetic_did_fit", "synthetic_did_jackknife_variance",
+           "synthetic_difference_in_differences", "SDID_VARIANCES"]
+
+SDID_VARIANCES = ("placebo", "jackknife")
 
 
 def synthetic_did_regularization(donors_pre: np.ndarray, n_treated: int, n_post: int) -> float:
@@ -118,39 +121,110 @@ def synthetic_did_fit(series: np.ndarray, users: np.ndarray, treated: np.ndarray
     return float(treated_change - omega @ donor_change), omega, lam
 
 
+def synthetic_did_jackknife_variance(series: np.ndarray, users: np.ndarray,
+                                     treated: np.ndarray, n_pre: int, omega: np.ndarray,
+                                     lam: np.ndarray) -> float:
+    """Return the fixed-weight jackknife variance of ``tau`` (per post-launch day).
+
+    Arkhangelsky et al. (2021), Algorithm 3 [the algorithm's text from memory;
+    its steps agree with the description of the authors' reference
+    implementation]: for each of the ``N`` pools ``i``, ``tau^(-i)`` is the
+    weighted two-way fixed-effects estimate (their eq. 1.1) on the other pools with
+    the weights held fixed: the time weights ``lambda`` unchanged, the unit
+    weights ``omega`` of the other pools renormalised to sum to 1, the launched
+    pools' user shares renormalised over those left; then
+
+    ``V = (N - 1) / N sum_i (tau^(-i) - tau)^2``
+
+    (centred on the full-sample ``tau`` as in the paper's algorithm; the reference
+    implementation centres on the mean of the ``tau^(-i)``, which is smaller by
+    ``(N - 1) (mean tau^(-i) - tau)^2``). With the weights fixed, ``tau`` is the
+    double difference of :func:`synthetic_did_fit`, so each ``tau^(-i)`` is a
+    reweighting of every pool's own difference ``ybar_i,post - lambda' y_i,pre``.
+    NaN when fewer than two pools launched (no ``tau`` without them) or when
+    leaving out a donor leaves no unit weight (one donor holds all of it): the
+    jackknife is then not defined.
+    """
+    difference = series[:, n_pre:].mean(axis=1) - series[:, :n_pre] @ lam
+    share = np.where(treated, users, 0.0)
+    weight = np.zeros(series.shape[0])
+    weight[~treated] = omega
+    if int(treated.sum()) < 2 or np.count_nonzero(omega) < 2:
+        return math.nan
+    tau = share @ difference / share.sum() - weight @ difference
+    leave_one_out = np.empty(series.shape[0])
+    for i in range(series.shape[0]):
+        kept_share, kept_weight = share.copy(), weight.copy()
+        kept_share[i] = kept_weight[i] = 0.0
+        leave_one_out[i] = (kept_share @ difference / kept_share.sum()
+                            - kept_weight @ difference / kept_weight.sum())
+    n = series.shape[0]
+    return float((n - 1) / n * np.sum((leave_one_out - tau) ** 2))
+
+
 def synthetic_difference_in_differences(panel: OutcomePanel, schedule: AssignmentSchedule, *,
-                                        confidence: float = 0.95) -> Estimate:
+                                        confidence: float = 0.95,
+                                        variance: str = "placebo") -> Estimate:
     """Estimate the effect on the launched pools by synthetic difference in differences.
 
     The point is :func:`synthetic_did_fit`'s ``tau`` times the post-launch days.
-    The standard error is the placebo standard error of Arkhangelsky et al.
-    (2021), Algorithm 4 (:func:`~spillgauge.estimators.launch.placebo_variance`:
+
+    ``variance="placebo"`` (the default): the placebo variance of Arkhangelsky et
+    al. (2021), Algorithm 4 (:func:`~spillgauge.estimators.launch.placebo_variance`:
     placebo launches of as many pools as launched among the others, weights
-    refitted each time), with a normal interval as in the paper. It assumes the
-    launched pools' noise is like that of the others (homoskedastic across pools).
+    refitted each time), with a Student t interval on
+    :func:`~spillgauge.estimators.launch.placebo_degrees_of_freedom`. It assumes
+    the launched pools' noise is like that of the others (homoskedastic across
+    pools) and needs two more other pools than launched.
+
+    ``variance="jackknife"``: the fixed-weight jackknife of Algorithm 3
+    (:func:`synthetic_did_jackknife_variance`), defined with two or more
+    launched pools; it does not assume the launched pools are like the others.
+    The launched pools' share of it is a jackknife of their weighted mean, a
+    variance estimate on ``N_tr - 1`` degrees of freedom (ours: the jackknife of a
+    mean is ``s^2 / n``, Efron & Stein 1981), so the interval uses Student's t
+    with ``N_tr - 1`` df (the paper's normal quantile assumes many launched pools).
+
     ``diagnostic`` holds the RMSPE of the launched pools' series against the
     unit-weighted others plus the weights' intercept, before and after the launch.
     """
     method = "synthetic_difference_in_differences"
+    if variance not in SDID_VARIANCES:
+        raise ValueError(f"{method}: variance must be one of {SDID_VARIANCES}; got {variance!r}")
     confidence, series, users, launched, n_pre = _check_inputs(panel, schedule, confidence,
                                                                method)
     n_post = series.shape[1] - n_pre
-    if not launched.any() or int((~launched).sum()) < launched.sum() + 2 or n_pre < 2:
+    n_launched, n_donors = int(launched.sum()), int((~launched).sum())
+    if variance == "placebo" and (not n_launched or n_donors < n_launched + 2 or n_pre < 2):
         return degenerate_estimate(method, "fewer than two donor pools beyond the placebo "
                                    "launches, or two pre-period days",
+                                   n_units=int(series.shape[0]))
+    if variance == "jackknife" and (n_launched < 2 or n_donors < 2 or n_pre < 2):
+        return degenerate_estimate(method, "fewer than two launched or two other pools (the "
+                                   "jackknife), or two pre-period days",
                                    n_units=int(series.shape[0]))
 
     def point_of(s: np.ndarray, u: np.ndarray, treated: np.ndarray) -> float:
         return synthetic_did_fit(s, u, treated, n_pre)[0] * n_post
 
-    tau, omega, _ = synthetic_did_fit(series, users, launched, n_pre)
-    variance, _ = placebo_variance(point_of, series, users, launched)
-    estimate = build_estimate(tau * n_post, variance, confidence=confidence, method=method,
-                              n_units=int(series.shape[0]))
+    tau, omega, lam = synthetic_did_fit(series, users, launched, n_pre)
+    if variance == "placebo":
+        var, df = placebo_variance(point_of, series, users, launched)
+    else:
+        var = synthetic_did_jackknife_variance(series, users, launched, n_pre, omega,
+                                               lam) * n_post ** 2
+        df = float(n_launched - 1)
+        if not math.isfinite(var):
+            return degenerate_estimate(method, "one donor pool holds all the unit weight (the "
+                                       "jackknife is not defined)",
+                                       n_units=int(series.shape[0]), point=tau * n_post)
+    estimate = build_estimate(tau * n_post, var, confidence=confidence, method=method,
+                              n_units=int(series.shape[0]), df=df)
     # the fit: launched pools against omega_0 + omega' donors (the unit weights' intercept)
     target, donors = group_series(series, users, launched), series[~launched]
     gaps = target - omega @ donors
     gaps = gaps - gaps[:n_pre].mean()
     fit = LaunchDiagnostic(pre_rmspe=float(np.sqrt(np.mean(gaps[:n_pre] ** 2))),
                            post_rmspe=float(np.sqrt(np.mean(gaps[n_pre:] ** 2))))
+    estimate = with_launch_control_mean(estimate, series, users, launched, n_pre)
     return replace(estimate, diagnostic=fit)

@@ -112,7 +112,10 @@ def truth_text(name: str, seed: int, truth, outcome: str = "orders") -> str:
 _LAUNCH_COLUMNS = [("label", "design", "{}"), ("question", "answers", "{}"),
                    ("truth", "truth", "{:.3f}"), ("mean_estimate", "estimate", "{:.3f}"),
                    ("bias", "bias", "{:+.3f}"), ("rmse", "RMSE", "{:.3f}"),
-                   ("coverage", "coverage", "{:.0%}"), ("left_out_effect", "left out", "{:+.3f}")]
+                   ("coverage", "coverage", "{:.0%}"), ("left_out_effect", "left out", "{:+.3f}"),
+                   # the effect over its own users' all-control mean, against its relative truth
+                   ("relative.mean_estimate", "rel.effect", "{:+.1%}"),
+                   ("relative.coverage", "rel.cov", "{:.0%}")]
 
 
 def design_rows(summary: dict) -> list[list[str]]:
@@ -130,7 +133,7 @@ def launch_rows(summary: dict) -> list[list[str]]:
     rows = [[header for _, header, _ in _LAUNCH_COLUMNS]]
     for design in summary["designs"]:
         if not design.get("is_randomized", True):
-            rows.append([format_cell(template, design.get(key))
+            rows.append([format_cell(template, design_value(design, key))
                          for key, _, template in _LAUNCH_COLUMNS])
     return rows
 

@@ -66,6 +66,9 @@ class DesignRun:
         GTE (a launch's ATT or effect on its launched pools); NaN otherwise.
     left_out_effect : float
         A launch's true effect on the users it left out (NaN otherwise).
+    truth_relative : float
+        A launch's truth as a share of its users' all-control mean outcome over the
+        estimand's window (NaN otherwise; randomized designs use the relative GTE).
     """
 
     estimate: Estimate
@@ -73,6 +76,7 @@ class DesignRun:
     note: str = ""
     truth: float = float("nan")
     left_out_effect: float = float("nan")
+    truth_relative: float = float("nan")
 
     def to_record(self) -> dict:
         """Return the run as saved in ``replications.jsonl`` (NaN kept; the writer nulls it)."""
@@ -83,6 +87,7 @@ class DesignRun:
         if not np.isnan(self.truth):  # only launches: randomized designs' records are unchanged
             record["truth"] = self.truth
             record["left_out_effect"] = self.left_out_effect
+            record["truth_relative"] = self.truth_relative
         diagnostic = self.estimate.diagnostic
         if isinstance(diagnostic, InterferenceDiagnostic):
             record.update({k: float(getattr(diagnostic, k)) for k in _SAVED_DIAGNOSTIC})
@@ -117,7 +122,8 @@ class DesignRun:
                             **{name: values.get(name, float("nan")) for name in _SAVED_CONTROL})
         return cls(estimate=estimate, n_randomized=values.get("n_randomized", values["n_units"]),
                    note=note, truth=values.get("truth", float("nan")),
-                   left_out_effect=values.get("left_out_effect", float("nan")))
+                   left_out_effect=values.get("left_out_effect", float("nan")),
+                   truth_relative=values.get("truth_relative", float("nan")))
 
 
 @dataclass(frozen=True, slots=True)
@@ -145,7 +151,8 @@ class ReplicationResult:
                          "truth": record.get("truth", self.truth.gte),
                          **{k: record.get(k, float("nan")) for k in
                             ("estimate_relative", "ci_low_relative", "ci_high_relative")},
-                         "gte_relative": self.truth.gte_relative})
+                         "gte_relative": self.truth.gte_relative,
+                         "truth_relative": record.get("truth_relative", self.truth.gte_relative)})
         return rows
 
 
@@ -247,13 +254,15 @@ def run_replication(scenario: Scenario, seed: int, replication: int, *,
         notes = [str(w.message) for w in caught
                  if issubclass(w.category, DegenerateEstimateWarning)]
         kind = kind_of(spec)
-        own_truth = left_out = float("nan")
+        own_truth = left_out = own_relative = float("nan")
         if kind.estimand != "gte":  # a launch: its own world against the all-control world
             own_truth, left_out = kind.truth(spec, schedule, panel, panels[0])
+            level = kind.truth_control_mean(spec, schedule, panels[0])
+            own_relative = own_truth / level if level > 0 else float("nan")
         runs[spec.label] = DesignRun(estimate=estimate,
                                      n_randomized=schedule.n_units * schedule.n_periods,
                                      note=notes[0] if notes else "", truth=own_truth,
-                                     left_out_effect=left_out)
+                                     left_out_effect=left_out, truth_relative=own_relative)
     keep = replication == 0 if keep_traces is None else keep_traces
     traces = {}
     if keep:

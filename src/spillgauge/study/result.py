@@ -73,8 +73,8 @@ class DesignSummary:
     relative : DesignMetrics or None
         The same metrics for the effect as a share of the control mean: each
         replication's ``estimate_relative`` (with its delta-method interval) against
-        that replication's ``gte_relative``; None when the design's estimator gives
-        no control mean.
+        that replication's ``gte_relative`` (a launch: its own estimand's relative
+        truth); None when the design's estimator gives no control mean.
     """
 
     label: str
@@ -164,7 +164,7 @@ class StudyResult:
         return pd.DataFrame(rows, columns=["replication", "label", "estimate", "se", "ci_low",
                                            "ci_high", "n_units", "gte", "truth",
                                            "estimate_relative", "ci_low_relative",
-                                           "ci_high_relative", "gte_relative"])
+                                           "ci_high_relative", "gte_relative", "truth_relative"])
 
     def switch_profiles(self) -> dict:
         """Return each switchback's mean effect per user-tick by ticks since a switch."""
@@ -266,8 +266,10 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                              p_values=p_values)
     relative = None
     relatives = np.array([relative_effect(e) for e in estimates], dtype=float).reshape(-1, 4)
-    if kind.estimand == "gte" and np.isfinite(relatives[:, 0]).any():
-        truth_relative = np.array([r.truth.gte_relative for r in results], dtype=float)
+    if np.isfinite(relatives[:, 0]).any():  # a launch: against its own relative truth
+        truth_relative = np.array([r.truth.gte_relative if kind.estimand == "gte"
+                                   else r.runs[spec.label].truth_relative for r in results],
+                                  dtype=float)
         relative = design_metrics(*relatives.T, truth_relative, alpha=alpha,
                                   outcome_scale=float(np.nanmax(np.abs(truth_relative),
                                                                 initial=0.0)) or 1.0)
