@@ -38,6 +38,9 @@ def test_the_table_fits_100_columns_and_keeps_every_cell(study):
         assert label in words and all(cell in words for cell in numbers), row
         assert " ".join(unit.split()) in " ".join(words)  # the unit, wrapped under the tables
     assert SD_RMSE_NOTE in " ".join(words)
+    units = table[table.index("units: "):table.index(SD_RMSE_NOTE)].splitlines()
+    # A wrapped line never ends on a number whose unit went to the next line ("24" / "h").
+    assert not any(line.rstrip()[-1:].isdigit() for line in units), units
 
 
 def test_conversion_notes_what_a_period_comparison_measures(study):

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 from spillgauge.statistics.trust import few_replications_note
 from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit
 
@@ -200,8 +202,12 @@ def _text_table(summary: dict) -> list[str]:
         if design.get("is_randomized", True):
             units.setdefault(design["unit"], []).append(design["label"])
     text = "; ".join(f"{', '.join(labels)} = {unit}" for unit, labels in units.items())
-    lines += [""] + textwrap.wrap("units: " + text, _WIDTH, subsequent_indent="  ",
-                                  break_on_hyphens=False)
+    # A number keeps the word after it ("24 h") on its line: textwrap breaks only at
+    # ASCII whitespace, so a no-break space holds the pair together until printed.
+    text = re.sub(r"(\d) ", "\\1\u00a0", text)
+    lines += [""] + [line.replace("\u00a0", " ") for line in
+                     textwrap.wrap("units: " + text, _WIDTH, subsequent_indent="  ",
+                                   break_on_hyphens=False)]
     lines += textwrap.wrap(SD_RMSE_NOTE, _WIDTH)
     for note in table_notes(summary):
         lines += [""] + textwrap.wrap("note: " + note, _WIDTH, subsequent_indent="  ")
