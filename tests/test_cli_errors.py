@@ -16,7 +16,6 @@ from spillgauge.cli import main
 from tests.conftest import TINY
 
 
-
 def _main(args, capsys):
     try:
         code = main([str(a) for a in args])

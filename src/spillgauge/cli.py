@@ -39,9 +39,9 @@ def _load(path: str):
 
 def _cmd_check(args) -> int:
     from spillgauge.market.build import build_market
-    from spillgauge.study.resources import check_memory
     from spillgauge.report.text import market_text
     from spillgauge.study.market_summary import summarise_market
+    from spillgauge.study.resources import check_memory
 
     scenario = _load(args.scenario)
     check_memory(scenario, market_only=True)

@@ -265,6 +265,6 @@ def test_relative_launch_intervals_with_a_lift_do_not_under_cover():
 
 def test_relative_launch_intervals_quick():
     result = relative_calibration(["did", "pre_post"], 150, 38, 0.0)
-    for name, (covered, total, errors, ses) in result.items():
+    for name, (covered, total, errors, _ses) in result.items():
         assert stats.binomtest(covered, total, 0.95).pvalue > 0.001, (name, covered / total)
         assert abs(errors.mean()) < 4 * errors.std(ddof=1) / np.sqrt(errors.size), name

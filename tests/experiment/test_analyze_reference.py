@@ -154,8 +154,8 @@ def test_other_outcomes_equal_ols_with_hc2_on_the_derived_outcome(tmp_path, outc
 def test_conversion_falls_in_the_period_of_the_first_order(tmp_path):
     # The simulation's definition (worlds/outcome.py): a user converts in the tick of the first
     # fulfilled order. Checked against pandas' minimum timestamp per user.
-    from spillgauge.experiment.orders import read_orders
     from spillgauge.experiment.folder import read_assignment
+    from spillgauge.experiment.orders import read_orders
 
     users = _outcome_assignment(tmp_path, "conversion")
     rows = _hand_made_rows(users, seed=5).sample(frac=1.0, random_state=1)  # any row order

@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 
 from spillgauge.errors import ScenarioError
-from spillgauge.market.calendar import draw_pool_shocks, trend_multiplier
 from spillgauge.market.build import build_market
-from spillgauge.worlds.engine import simulate_worlds
+from spillgauge.market.calendar import draw_pool_shocks, trend_multiplier
 from spillgauge.scenario import Pools
 from spillgauge.schedule import AssignmentSchedule
+from spillgauge.worlds.engine import simulate_worlds
 from tests.conftest import make_scenario
 
 

@@ -6,9 +6,9 @@ import dataclasses
 
 import pytest
 
+from spillgauge.report import write_report
 from spillgauge.study.result import summarise_study
 from spillgauge.study.run import run_study
-from spillgauge.report import write_report
 from tests.conftest import make_scenario
 
 SEED = 11

@@ -13,11 +13,11 @@ from html.parser import HTMLParser
 
 import pytest
 
-from spillgauge.statistics.recommend import Recommendation
-from spillgauge.study.store import load_study
 from spillgauge.report import write_report
 from spillgauge.report.html import SECTION_IDS, render_html
 from spillgauge.report.page import CAUTION
+from spillgauge.statistics.recommend import Recommendation
+from spillgauge.study.store import load_study
 
 # Elements without an end tag (HTML Living Standard, "void elements").
 _VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",

@@ -5,8 +5,8 @@ from __future__ import annotations
 import pytest
 
 from spillgauge.bundled import find_scenario
-from spillgauge.study.run import run_study
 from spillgauge.scenario.reading import load_scenario
+from spillgauge.study.run import run_study
 
 # Expected recommendations, one per lesson (issue text; the markets are our own invention):
 # calm market -> user level (no interference: the finest unit wins; REFERENCES check 28);

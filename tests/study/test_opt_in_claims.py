@@ -121,8 +121,9 @@ def test_matching_is_biased_upward_when_selection_is_on_the_hidden_rate():
     for h in np.unique(market.history):
         posterior = stats.gamma(k + h, scale=1 / (beta + hours_h))
         upper = posterior.ppf(1 - 1e-10)
-        p_in = integrate.quad(lambda r: opt_in(r) * posterior.pdf(r), 0, upper)[0]
-        r_in = integrate.quad(lambda r: r * opt_in(r) * posterior.pdf(r), 0, upper)[0] / p_in
+        p_in = integrate.quad(lambda r, post=posterior: opt_in(r) * post.pdf(r), 0, upper)[0]
+        r_in = integrate.quad(lambda r, post=posterior: r * opt_in(r) * post.pdf(r),
+                              0, upper)[0] / p_in
         r_all = posterior.mean()
         r_out = (r_all - p_in * r_in) / (1 - p_in)
         gap[h] = r_in - r_out

@@ -12,9 +12,9 @@ import time
 import pytest
 
 from spillgauge.errors import MemoryLimitError
+from spillgauge.scenario.reading import parse_scenario
 from spillgauge.study.resources import check_memory, estimate_memory_bytes
 from spillgauge.study.run import run_study
-from spillgauge.scenario.reading import parse_scenario
 
 TINY = {"name": "scale", "calendar": {"days": 7}, "users": {"count": 500},
         "pools": {"count": 5, "stock_cover": 1.1},

@@ -8,9 +8,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from spillgauge.errors import ScenarioError
-from spillgauge.study.run import run_study
 from spillgauge.report.text import study_text
 from spillgauge.scenario.reading import parse_scenario
+from spillgauge.study.run import run_study
 
 DESIGNS = [
     {"kind": "user"}, {"kind": "user", "adjust": True},

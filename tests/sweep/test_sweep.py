@@ -20,6 +20,7 @@ import pytest
 from scipy import stats
 
 from spillgauge.errors import ScenarioError
+from spillgauge.scenario.reading import parse_scenario
 from spillgauge.statistics.trust import is_trusted
 from spillgauge.study.run import run_study
 from spillgauge.sweep.sweep import (
@@ -31,7 +32,6 @@ from spillgauge.sweep.sweep import (
     with_value,
     write_sweep,
 )
-from spillgauge.scenario.reading import parse_scenario
 
 SEED = 20260511
 USERS_PER_POOL = 100        # N of REFERENCES section 4

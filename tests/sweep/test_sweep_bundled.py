@@ -5,8 +5,8 @@ from __future__ import annotations
 import dataclasses
 
 from spillgauge.bundled import find_scenario
-from spillgauge.sweep.sweep import parse_vary, run_sweep
 from spillgauge.scenario.reading import load_scenario
+from spillgauge.sweep.sweep import parse_vary, run_sweep
 
 
 def test_user_level_bias_tracks_binding_stock_in_tight_pantry():

@@ -37,12 +37,12 @@ from spillgauge.estimators.stratified import (
     stratified_difference_in_means,
     stratified_regression_adjusted_difference,
 )
-from spillgauge.estimators.synthetic_did import synthetic_difference_in_differences
 from spillgauge.estimators.switchback import (
     switchback_difference,
     switchback_exposure_probabilities,
     switchback_optimal_points,
 )
+from spillgauge.estimators.synthetic_did import synthetic_difference_in_differences
 from spillgauge.estimators.user_level import (
     difference_in_means,
     regression_adjusted_difference,

@@ -12,7 +12,7 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 
@@ -59,9 +59,8 @@ def parse_start(text: str | datetime | None) -> datetime:
     spillgauge.errors.ScenarioError: --start must be a midnight (...); got '2027-03-01T06:00'
     """
     if text is None:
-        from datetime import timezone
 
-        today = datetime.now(timezone.utc).date()
+        today = datetime.now(UTC).date()
         return datetime(today.year, today.month, today.day) + timedelta(days=1)
     if isinstance(text, datetime):
         start = text

@@ -27,7 +27,7 @@ _MAX_STOCK = 1e12
 _MAX_BASKET_VALUE = 1e9
 
 
-def _check_unique(columns: "CsvColumns", column: str, field: str) -> None:
+def _check_unique(columns: CsvColumns, column: str, field: str) -> None:
     """Refuse a repeated id, naming the id and both of its lines."""
     seen: dict[str, int] = {}
     for value, line in zip(columns[column], columns.lines):

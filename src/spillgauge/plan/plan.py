@@ -16,8 +16,8 @@ from pathlib import Path
 from spillgauge.designs.registry import kind_of
 from spillgauge.errors import ScenarioError
 from spillgauge.files import dumps, json_safe, write_atomic
-from spillgauge.market.build import build_market
 from spillgauge.formatting import OUTCOME_UNITS
+from spillgauge.market.build import build_market
 from spillgauge.plan.answer import answer_cuped, answer_plan, answer_strata, answer_variants
 from spillgauge.plan.replication import run_plan_replications
 from spillgauge.plan.summary import cuped_rows, plan_rows

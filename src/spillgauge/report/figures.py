@@ -75,7 +75,7 @@ def plot_estimates(study, ax=None):
                    label="range of the replications' GTE")
     ax.axvline(study.truth.gte, color=_TRUTH, lw=1.5, ls="--",
                label=f"mean GTE {study.truth.gte:.3g}")
-    for y, (label, values, colour) in enumerate(rows):
+    for y, (_label, values, colour) in enumerate(rows):
         if values.size == 0:
             continue
         ax.boxplot([values], positions=[y], widths=0.6, orientation="horizontal",

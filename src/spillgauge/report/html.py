@@ -9,12 +9,12 @@ sheet is inline, so the file opens anywhere, offline.
 from __future__ import annotations
 
 from spillgauge.formatting import format_quantity, outcome_unit
-from spillgauge.scenario.config import settings_in_use
 from spillgauge.report.page import CAUTION, figure, render_page
 from spillgauge.report.page import escape as _e
 from spillgauge.report.page import grid as _grid
 from spillgauge.report.page import section as _section
 from spillgauge.report.text import SD_RMSE_NOTE, table_notes
+from spillgauge.scenario.config import settings_in_use
 from spillgauge.statistics.trust import few_replications_note
 
 __all__ = ["SECTION_IDS", "CAPTIONS", "render_html"]

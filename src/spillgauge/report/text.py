@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import re
 
-from spillgauge.statistics.trust import few_replications_note
 from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit
+from spillgauge.statistics.trust import few_replications_note
 
 __all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
            "interference_lines", "launch_rows", "not_randomized_lines", "table_notes",
@@ -79,8 +79,9 @@ def market_text(scenario, market: dict) -> str:
         lines.append(f"            -> {tight}")
     clusters = ", ".join(f"{k} {v:,}" for k, v in market["clusters"].items())
     lines.append(f"clusters    {clusters}")
-    lines.append("effect      lift {0.lift:+g}, peer lift {0.peer_lift:+g}, carryover half-life "
-                 "{0.carryover_half_life_hours:g} h".format(scenario.effect))
+    effect = scenario.effect
+    lines.append(f"effect      lift {effect.lift:+g}, peer lift {effect.peer_lift:+g}, "
+                 f"carryover half-life {effect.carryover_half_life_hours:g} h")
     if scenario.study.outcome != "orders":
         users = scenario.users
         basket = (f", basket value mean {users.basket_value_mean:g}, SD {users.basket_value_sd:g}"

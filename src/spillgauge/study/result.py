@@ -8,26 +8,26 @@ and writes ``summary.json``'s content.
 
 from __future__ import annotations
 
+import warnings
 from collections import Counter
 from dataclasses import dataclass, field
-import warnings
 
 import numpy as np
 
 from spillgauge.designs.registry import kind_of
+from spillgauge.estimators.estimate import InterferenceDiagnostic, LaunchDiagnostic
 from spillgauge.estimators.relative import relative_effect
 from spillgauge.files import json_safe, nan_from_null
 from spillgauge.formatting import outcome_unit
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
-from spillgauge.estimators.estimate import InterferenceDiagnostic, LaunchDiagnostic
+from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
 from spillgauge.statistics.launches import (
     LaunchRow,
     launch_fit_sentence,
     not_randomizing_note,
     summarise_launch_fit,
 )
-from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
 from spillgauge.statistics.metrics import DesignMetrics, design_metrics
 from spillgauge.statistics.recommend import Candidate, Recommendation, recommend
 from spillgauge.statistics.truth import TruthSummary, summarise_truth

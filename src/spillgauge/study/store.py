@@ -8,13 +8,13 @@ from pathlib import Path
 
 from spillgauge.errors import ResultsError, ScenarioError
 from spillgauge.files import dumps, write_atomic
+from spillgauge.scenario import Scenario
+from spillgauge.scenario.reading import scenario_to_dict
 from spillgauge.study.replication import (
     ReplicationResult,
     result_from_record,
     result_to_record,
 )
-from spillgauge.scenario import Scenario
-from spillgauge.scenario.reading import scenario_to_dict
 
 __all__ = ["ResultsFolder", "load_study", "FORMAT_VERSION", "scenario_fingerprint", "study_id"]
 
@@ -249,8 +249,8 @@ def load_study(path: str | Path):
     ResultsError
         When the folder holds no study or no finished replication.
     """
-    from spillgauge.study.result import summarise_study
     from spillgauge.scenario.reading import parse_scenario
+    from spillgauge.study.result import summarise_study
 
     path = Path(path)
     study_file = path / _STUDY

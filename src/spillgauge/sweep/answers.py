@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import math
 
-
 from spillgauge.formatting import format_value
 
 __all__ = ["answer_one_axis", "answer_two_axes", "split_key"]

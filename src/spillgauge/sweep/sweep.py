@@ -28,21 +28,21 @@ from pathlib import Path
 
 import numpy as np
 
+from spillgauge.designs.registry import KINDS, make_design_spec
 from spillgauge.errors import ScenarioError
+from spillgauge.files import dumps, folder_lock, write_atomic
+from spillgauge.scenario import Scenario
+from spillgauge.scenario.config import SECTIONS
+from spillgauge.scenario.reading import scenario_to_dict, validate_scenario
+from spillgauge.statistics.trust import assess_trust, few_replications_note
+from spillgauge.study.compose import describe_unit, estimator_name
+from spillgauge.study.result import StudyResult
+from spillgauge.study.run import run_study
 from spillgauge.sweep.answers import (
     answer_one_axis,
     answer_two_axes,
     split_key,
 )
-from spillgauge.study.compose import describe_unit, estimator_name
-from spillgauge.designs.registry import KINDS, make_design_spec
-from spillgauge.statistics.trust import assess_trust, few_replications_note
-from spillgauge.files import dumps, folder_lock, write_atomic
-from spillgauge.study.result import StudyResult
-from spillgauge.study.run import run_study
-from spillgauge.scenario import Scenario
-from spillgauge.scenario.config import SECTIONS
-from spillgauge.scenario.reading import scenario_to_dict, validate_scenario
 
 __all__ = ["SweepAxis", "SweepResult", "parse_vary", "with_value", "valid_keys", "run_sweep",
            "write_sweep"]
