@@ -116,3 +116,23 @@ def test_relative_truth_of_a_launch_is_the_lift_without_interference():
         assert abs(relative.mean() - 0.2) < 4 * relative.std(ddof=1) / 2 + 1e-3
         summary = study.designs[f"launch-random-5-{estimator.replace('_', '-')}"]
         assert summary.relative is not None  # rel.effect and rel.cov against this truth
+
+
+def test_printed_launch_table_groups_rows_by_the_question_they_answer():
+    from spillgauge.report.text import study_text
+
+    scenario = make_scenario(
+        users={"count": 600, "history_days": 7}, pools={"count": 10}, calendar={"days": 10},
+        design=[{"kind": "user"},
+                {"kind": "opt_in", "take_up": 0.3, "estimator": "naive"},
+                {"kind": "regional_launch", "pools": 3, "launch_day": 5, "estimator": "did"},
+                {"kind": "regional_launch", "pools": 3, "launch_day": 5,
+                 "estimator": "pre_post"}])
+    text = study_text(run_study(scenario, reps=2, seed=0, workers=1))
+    table = text.split("never recommended):\n")[1].split("\n\n")[0].splitlines()
+    # One line per question above its rows, not a column repeated on every row.
+    assert [line for line in table if line.endswith(":")] == [
+        "the effect on the users who opted in (ATT):",
+        "the effect on the launched pools after the launch:"]
+    assert "answers" not in table[0]
+    assert max(map(len, table)) <= 110, table

@@ -155,9 +155,23 @@ def not_randomized_lines(summary: dict, *, markdown: bool = False) -> list[str]:
                 *(["", "Balance, overlap and pre-launch fit (means over replications):", "",
                    *fits] if fits else [])]
     fits = [f"  {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
-    return ["", title + ":", *_table(rows, n_left=2), "", summary.get("not_randomized", ""),
+    return ["", title + ":", *_grouped_by_question(rows), "", summary.get("not_randomized", ""),
             *(["", "Balance, overlap and pre-launch fit (means over replications):", *fits]
               if fits else [])]
+
+
+def _grouped_by_question(rows: list[list[str]]) -> list[str]:
+    """Return the launch table for a terminal with the question each group answers
+    as a line above its rows instead of a column (the table stays about 100 wide)."""
+    question = [header for _, header, _ in _LAUNCH_COLUMNS].index("answers")
+    lines = _table([row[:question] + row[question + 1:] for row in rows])
+    out, previous = lines[:2], None
+    for row, line in zip(rows[1:], lines[2:]):
+        if row[question] != previous:
+            out.append(f"{row[question]}:")
+            previous = row[question]
+        out.append(line)
+    return out
 
 
 def table_notes(summary: dict) -> list[str]:
