@@ -200,12 +200,18 @@ def _launches(summary: dict) -> str:
     launches = [d for d in summary["designs"] if not d.get("is_randomized", True)]
     if not launches:
         return ""
-    header = ["design (estimator)", "answers", "truth", *(c[1] for c in _COLUMNS[:6]),
-              "effect on users left out"]
+    # the absolute columns, then the relative effect and its coverage (against the launch's
+    # own relative truth), as in the printed table
+    columns = [*_COLUMNS[:6], *(c for c in _COLUMNS
+                                if c[0] in ("relative.mean_estimate", "relative.coverage"))]
+    header = ["design (estimator)", "answers", "truth", *(c[1] for c in columns[:6]),
+              "effect on users left out", *(c[1] for c in columns[6:])]
     rows = [[_e(d["label"]) + f'<br><span class="se">{_e(d["estimator"])}</span>',
              _e(d["question"]), _e(format_quantity(d.get("truth"), "{:.3f}")),
-             *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS[:6]),
-             _e(format_quantity(d.get("left_out_effect"), "{:+.3f}"))] for d in launches]
+             *(_cell(d, key, template, se) for key, _, template, se in columns[:6]),
+             _e(format_quantity(d.get("left_out_effect"), "{:+.3f}")),
+             *(_cell(d, key, template, se) for key, _, template, se in columns[6:])]
+            for d in launches]
     note = f"<p>{_e(summary.get('not_randomized', ''))}</p>"
     fits = [f"<li>{_e(d['fit_note'])}</li>" for d in launches if d.get("fit_note")]
     if fits:
