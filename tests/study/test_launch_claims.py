@@ -128,7 +128,8 @@ def test_printed_launch_table_groups_rows_by_the_question_they_answer():
                 {"kind": "regional_launch", "pools": 3, "launch_day": 5, "estimator": "did"},
                 {"kind": "regional_launch", "pools": 3, "launch_day": 5,
                  "estimator": "pre_post"}])
-    text = study_text(run_study(scenario, reps=2, seed=0, workers=1))
+    study = run_study(scenario, reps=2, seed=0, workers=1)
+    text = study_text(study)
     table = text.split("never recommended):\n")[1].split("\n\n")[0].splitlines()
     # One line per question above its rows, not a column repeated on every row.
     assert [line for line in table if line.endswith(":")] == [
@@ -136,3 +137,9 @@ def test_printed_launch_table_groups_rows_by_the_question_they_answer():
         "the effect on the launched pools after the launch:"]
     assert "answers" not in table[0]
     assert max(map(len, table)) <= 110, table
+    assert "rel.effect" in table[0] and "rel.cov" in table[0]
+    # The page's launch section carries the same relative columns.
+    from spillgauge.report.html import render_html
+
+    launches = render_html(study, {}).split('id="launches"')[1]
+    assert "relative effect" in launches and "relative CI coverage" in launches
