@@ -338,21 +338,34 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     else:
         ratio, relative_bias_se = math.nan, math.nan
 
-    if n == 0:
-        interval = dict.fromkeys(("coverage", "coverage_se", "ci_width", "ci_width_se", "power",
-                                  "power_se", "type_s", "type_s_se", "type_m", "type_m_se",
-                                  "mean_se", "mean_se_se"), math.nan)
-        return DesignMetrics(
-            n_reps=0, n_dropped=n_dropped, n_significant=0, n_estimates=n_estimates,
-            mean_estimate=float(point.mean()), mean_estimate_se=sd / math.sqrt(n_estimates),
-            bias=bias, bias_se=error_sd / math.sqrt(n_estimates),
-            relative_bias=ratio, relative_bias_se=relative_bias_se,
-            sd=sd, sd_se=sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
-            rmse=rmse, rmse_se=rmse_se, usable_share=usable_share,
-            usable_share_se=usable_share_se, error_sd=error_sd,
-            error_sd_se=(error_sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1
-                         else math.nan), **interval)
+    return DesignMetrics(
+        n_reps=n, n_dropped=n_dropped, n_estimates=n_estimates,
+        mean_estimate=float(point.mean()), mean_estimate_se=sd / math.sqrt(n_estimates),
+        bias=bias, bias_se=error_sd / math.sqrt(n_estimates),
+        relative_bias=ratio, relative_bias_se=relative_bias_se,
+        sd=sd, sd_se=sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
+        rmse=rmse, rmse_se=rmse_se,
+        usable_share=usable_share, usable_share_se=usable_share_se,
+        error_sd=error_sd,
+        error_sd_se=error_sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
+        **_interval_metrics(est, se, low, high, g, fisher, alpha, tol,
+                            math.nan if is_zero_gte else g_bar),
+    )
 
+
+def _interval_metrics(est, se, low, high, g, fisher, alpha: float, tol: float,
+                      g_bar: float) -> dict[str, float | int]:
+    """Coverage, width, power, Type S/M and mean SE over the replications with an interval.
+
+    All NaN (and no significant replication) when none has an interval; Type S and
+    Type M also NaN when ``g_bar`` is NaN (a GTE indistinguishable from zero).
+    """
+    n = est.size
+    if n == 0:
+        values = dict.fromkeys(("coverage", "coverage_se", "ci_width", "ci_width_se", "power",
+                                "power_se", "type_s", "type_s_se", "type_m", "type_m_se",
+                                "mean_se", "mean_se_se"), math.nan)
+        return values | {"n_significant": 0}
     is_covered = (low - tol <= g) & (g <= high + tol)
     if fisher is None:
         is_significant = (low > tol) | (high < -tol)
@@ -363,7 +376,7 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
     power, power_se = _share(is_significant)
     width = high - low
 
-    if n_significant > 0 and not is_zero_gte:
+    if n_significant > 0 and not math.isnan(g_bar):
         significant = est[is_significant]
         type_s, type_s_se = _share(np.sign(significant) != np.sign(g_bar))
         abs_significant = np.abs(significant)
@@ -371,23 +384,11 @@ def design_metrics(estimates, standard_errors, ci_low, ci_high, gte, *,
         type_m_se = _sd(abs_significant) / abs(g_bar) / math.sqrt(n_significant)
     else:
         type_s = type_s_se = type_m = type_m_se = math.nan
-
-    return DesignMetrics(
-        n_reps=n, n_dropped=n_dropped, n_significant=n_significant, n_estimates=n_estimates,
-        mean_estimate=float(point.mean()), mean_estimate_se=sd / math.sqrt(n_estimates),
-        bias=bias, bias_se=error_sd / math.sqrt(n_estimates),
-        relative_bias=ratio, relative_bias_se=relative_bias_se,
-        sd=sd, sd_se=sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
-        rmse=rmse, rmse_se=rmse_se,
-        coverage=coverage, coverage_se=coverage_se,
-        ci_width=float(width.mean()), ci_width_se=_sd(width) / math.sqrt(n),
-        power=power, power_se=power_se,
-        type_s=type_s, type_s_se=type_s_se, type_m=type_m, type_m_se=type_m_se,
-        mean_se=float(se.mean()), mean_se_se=_sd(se) / math.sqrt(n),
-        usable_share=usable_share, usable_share_se=usable_share_se,
-        error_sd=error_sd,
-        error_sd_se=error_sd / math.sqrt(2 * (n_estimates - 1)) if n_estimates > 1 else math.nan,
-    )
+    return {"n_significant": n_significant, "coverage": coverage, "coverage_se": coverage_se,
+            "ci_width": float(width.mean()), "ci_width_se": _sd(width) / math.sqrt(n),
+            "power": power, "power_se": power_se, "type_s": type_s, "type_s_se": type_s_se,
+            "type_m": type_m, "type_m_se": type_m_se, "mean_se": float(se.mean()),
+            "mean_se_se": _sd(se) / math.sqrt(n)}
 
 
 def _check_alpha(alpha: float) -> None:
