@@ -179,7 +179,7 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha, unit) -> str:
     params = ", ".join(f"{k}={v}" for k, v in chosen.params.items())
     where = f"{chosen.label}: {params}" if params else chosen.label
     gte_text = f"{format_number(gte)} ± {format_number(gte_se)}" if math.isfinite(gte_se) else format_number(gte)
-    n_point = max(m.n_estimates, m.n_reps)  # metrics saved before n_estimates carry 0
+    n_point = max(m.n_estimates, m.n_reps)  # metrics built without n_estimates carry 0
     among = "" if n_point == m.n_reps else f" (in the {m.n_reps} that gave an interval)"
     sentences = [
         f"Randomize by {chosen.unit} ({where}): over {n_point} replications its bias is "
