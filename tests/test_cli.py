@@ -87,6 +87,22 @@ def test_check_describes_the_market(tiny, capsys):
     assert "users       400" in out and "pools       4" in out and "clusters" in out
 
 
+def test_list_wraps_each_description_under_itself(capsys):
+    from spillgauge.bundled import bundled_scenarios
+    from spillgauge.scenario.reading import load_scenario
+
+    assert main(["list"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert max(map(len, lines)) <= 100
+    starts = [i for i, line in enumerate(lines) if not line.startswith(" ")]
+    assert len(starts) == len(bundled_scenarios())
+    for scenario, i, j in zip(map(load_scenario, bundled_scenarios()), starts,
+                              [*starts[1:], len(lines)]):
+        assert all(line.startswith(" " * 15) for line in lines[i + 1:j])
+        said = " ".join(" ".join(lines[i:j]).split())
+        assert said == f"{scenario.name} {' '.join(scenario.description.split())}"
+
+
 def test_run_writes_summary_and_replications(tiny, tmp_path, capsys):
     out = tmp_path / "res"
     assert main(["run", str(tiny), "--out", str(out), "--workers", "1", "--quiet"]) == 0

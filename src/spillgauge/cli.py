@@ -19,6 +19,7 @@ from spillgauge.console import (
 )
 from spillgauge.errors import ScenarioError, SpillgaugeError
 from spillgauge.files import folder_lock
+from spillgauge.formatting import wrap_text
 
 __all__ = ["main", "build_parser"]
 
@@ -55,8 +56,7 @@ def _cmd_truth(args) -> int:
     from spillgauge.study.run import run_truth
 
     scenario = _load(args.scenario)
-    bar = ProgressBar("truth", enabled=not args.quiet and not args.json,
-                       forced=args.progress)
+    bar = ProgressBar("truth", enabled=not args.quiet and not args.json, forced=args.progress)
     truth = run_truth(scenario, reps=args.reps, seed=args.seed, workers=args.workers,
                       scheduler=args.scheduler, progress=bar)
     seed = scenario.study.seed if args.seed is None else args.seed
@@ -87,7 +87,7 @@ def _cmd_run(args) -> int:
             return interrupted(out)
         written = write_report(study, out)
     print(study_text(study))
-    print(f"\nresults: {out}/ ({', '.join(written)})")
+    print("\n" + wrap_text(f"results: {out}/ ({', '.join(written)})", indent="  "))
     return 0
 
 
@@ -132,7 +132,8 @@ def _cmd_report(args) -> int:
     with folder_lock(out):
         written = write_report(study, out)
     print(study_text(study))
-    print(f"\nre-rendered {out}/ ({', '.join(written)}) from {study.reps} saved replications")
+    print("\n" + wrap_text(f"re-rendered {out}/ ({', '.join(written)}) from {study.reps} saved "
+                          "replications", indent="  "))
     return 0
 
 
@@ -178,8 +179,7 @@ def _cmd_sweep(args) -> int:
     if len({a.key for a in axes}) != len(axes):
         raise ScenarioError("--vary", "two different keys", " and ".join(a.key for a in axes))
     out = out_folder(args.out, Path("results") / f"{scenario.name}-sweep")
-    bar = ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet,
-                       forced=args.progress)
+    bar = ProgressBar(f"{scenario.name} sweep", enabled=not args.quiet, forced=args.progress)
     with folder_lock(out):  # held until every file is written
         try:
             sweep = run_sweep(scenario, axes, reps=args.reps, seed=args.seed,
@@ -192,8 +192,8 @@ def _cmd_sweep(args) -> int:
         figures = save_sweep_figures(sweep, out)
         write_atomic(out / "sweep.html", render_sweep_html(sweep, figures))
     written += [p.name for p in figures] + ["sweep.html"]
-    print(sweep.answer())
-    print(f"\nresults: {out}/ ({', '.join(written)})")
+    print(wrap_text(sweep.answer()))
+    print("\n" + wrap_text(f"results: {out}/ ({', '.join(written)})", indent="  "))
     return 0
 
 
@@ -224,9 +224,9 @@ def _cmd_plan(args) -> int:
     if args.json:
         print(dumps(plan.to_dict()))
         return 0
-    print(plan.answer())
+    print(wrap_text(plan.answer()))
     names = [p.name for p in [*written, *figures]] + ["plan.html"]
-    print(f"\nresults: {out}/ ({', '.join(names)})")
+    print("\n" + wrap_text(f"results: {out}/ ({', '.join(names)})", indent="  "))
     return 0
 
 
@@ -237,7 +237,7 @@ def _cmd_list(args) -> int:
     for path in bundled_scenarios():
         scenario = load_scenario(path)
         summary = " ".join(scenario.description.split())
-        print(f"{scenario.name:<14} {summary}")
+        print(wrap_text(f"{scenario.name:<14} {summary}", indent=" " * 15))
     return 0
 
 
@@ -250,9 +250,9 @@ def _cmd_assign(args) -> int:
     assignment = assign_design(scenario, args.design, seed=args.seed, start=args.start)
     written = write_assignment(assignment, args.out)
     schedule = assignment.schedule
-    print(f"{assignment.spec.label}: {assignment.describe()}; seed {assignment.seed}")
+    print(wrap_text(f"{assignment.spec.label}: {assignment.describe()}; seed {assignment.seed}"))
     print(balance_text(assignment_balance(schedule, assignment.history), schedule.unit_kind))
-    print(f"\nwrote {args.out}/ ({', '.join(p.name for p in written)})")
+    print("\n" + wrap_text(f"wrote {args.out}/ ({', '.join(p.name for p in written)})"))
     print(f"after the experiment: spillgauge analyze {args.out} --orders ORDERS.csv")
     return 0
 
@@ -264,13 +264,12 @@ def _cmd_simulate(args) -> int:
     scenario = _load(args.scenario)
     experiment = simulate_experiment(scenario, args.design, seed=args.seed, start=args.start)
     written = write_experiment(experiment, args.out)
-    truth = experiment.truth
-    print(f"{experiment.assignment.spec.label}: one synthetic experiment, seed "
-          f"{experiment.assignment.seed}; true effect (GTE) {format_number(truth.gte, sign=True)} "
-          f"{OUTCOME_UNITS[experiment.assignment.outcome]} "
-          f"({format_number(truth.control_mean)} all control, "
-          f"{format_number(truth.treated_mean)} all treated)")
-    print(f"wrote {args.out}/ ({', '.join(p.name for p in written)})")
+    truth, assignment = experiment.truth, experiment.assignment
+    print(wrap_text(f"{assignment.spec.label}: one synthetic experiment, seed {assignment.seed}; "
+                    f"true effect (GTE) {format_number(truth.gte, sign=True)} "
+                    f"{OUTCOME_UNITS[assignment.outcome]} ({format_number(truth.control_mean)} "
+                    f"all control, {format_number(truth.treated_mean)} all treated)"))
+    print(wrap_text(f"wrote {args.out}/ ({', '.join(p.name for p in written)})"))
     print(f"next: spillgauge analyze {args.out}")
     return 0
 

@@ -10,9 +10,14 @@ from __future__ import annotations
 
 import math
 import numbers
+import re
+import textwrap
 
 __all__ = ["format_number", "format_percent", "format_value", "format_cell", "format_quantity",
-           "OUTCOME_UNITS", "outcome_unit"]
+           "OUTCOME_UNITS", "outcome_unit", "wrap_text", "TEXT_WIDTH"]
+
+# Printed paragraphs and tables fit a terminal this wide.
+TEXT_WIDTH = 100
 
 # What one unit of each ``[study] outcome`` is, per user over the horizon, in words.
 OUTCOME_UNITS = {"orders": "fulfilled orders per user", "conversion":
@@ -74,3 +79,25 @@ def format_quantity(value: object, template: str = "{:.4g}") -> str:
     if isinstance(value, int):
         return f"{value:,}"
     return template.format(value) if value == value else "n/a"
+
+
+def wrap_text(text: str, width: int = TEXT_WIDTH, *, indent: str = "") -> str:
+    """Wrap each line of ``text`` to ``width`` columns, later lines of a paragraph indented.
+
+    A number keeps the word after it on its line ("24 h", "0.9 orders"), words are
+    never split (a hyphenated label stays whole), and blank lines are kept.
+
+    >>> print(wrap_text("bias +0.01 orders per user on a GTE of 0.876", 20, indent="  "))
+    bias +0.01 orders
+      per user on a GTE
+      of 0.876
+    """
+    out = []
+    for line in text.split("\n"):
+        # textwrap breaks only at ASCII whitespace, so a no-break space holds a
+        # number and the word after it together until the line is printed.
+        held = re.sub(r"(\d) ", "\\1\u00a0", line)
+        wrapped = textwrap.wrap(held, width, subsequent_indent=indent, break_on_hyphens=False,
+                                break_long_words=False)
+        out += [w.replace("\u00a0", " ") for w in wrapped] or [""]
+    return "\n".join(out)

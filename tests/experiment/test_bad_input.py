@@ -153,6 +153,9 @@ def test_a_study_of_the_same_scenario_gives_context(capsys, folder, studies):
     assert main(["analyze", str(folder), "--study", str(studies / "same")]) == 0
     out = capsys.readouterr().out
     assert re.search(r"in 2 simulations of this market this design's interval covered", out)
+    # Every line fits a terminal: long sentences continue, indented, on the next line.
+    assert max(map(len, out.splitlines())) <= 100, out
+    assert all(line.startswith(("design", "effect", "in ", "  ")) for line in out.splitlines())
 
 
 def test_not_an_assignment_folder(capsys, tmp_path):

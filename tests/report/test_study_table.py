@@ -65,3 +65,16 @@ def test_sd_exceeds_rmse_when_the_estimates_follow_the_gte():
     assert m.sd == pytest.approx(np.std(estimates, ddof=1), rel=1e-12)
     assert m.rmse == pytest.approx(np.sqrt(np.mean((estimates - gte) ** 2)), rel=1e-12)
     assert m.sd > m.rmse
+
+
+def test_every_printed_paragraph_is_wrapped_to_100_columns(study):
+    # The recommendation, the interference verdict and the notes are paragraphs of several
+    # sentences; printed, each is wrapped, and joined back it is the summary's text unchanged.
+    text = study_text(study)
+    assert max(len(line) for line in text.splitlines()) <= 100, text
+    joined = " ".join(text.split())
+    reason = study.summary()["recommendation"]["reason"]
+    assert " ".join(reason.split()) in joined
+    assert "estimate, bias, SD and RMSE in " + {
+        "orders": "fulfilled orders per user", "conversion":
+        "share of users with a fulfilled order"}[study.scenario.study.outcome] in joined

@@ -30,7 +30,7 @@ from spillgauge.experiment.folder import read_assignment
 from spillgauge.experiment.orders import read_orders
 from spillgauge.experiment.simulate import ORDERS, POOL_ORDERS, TRUTH
 from spillgauge.files import json_safe
-from spillgauge.formatting import OUTCOME_UNITS, format_number, format_percent
+from spillgauge.formatting import OUTCOME_UNITS, format_number, format_percent, wrap_text
 from spillgauge.panel import OutcomePanel
 from spillgauge.seeding import RANDOMIZATION_TEST, design_key, stream
 
@@ -274,4 +274,5 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
                      f"interval covered {format_percent(covered)} of the true effects, "
                      f"{bias_text}, and its power was {format_percent(power)}"
                      + (" (the study's recommendation)" if context.get("recommended") else ""))
-    return "\n".join(lines)
+    return "\n".join(wrap_text(line, indent="    " if line.startswith("  ") else "  ")
+                     for line in lines)

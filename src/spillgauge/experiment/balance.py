@@ -95,7 +95,8 @@ def balance_text(balance: Balance | None, unit_kind: str) -> str:
     for i, arm in enumerate(("control", "treatment")):
         lines.append(f"  {arm:<10} {format_quantity(balance.n_users[i]):>8}"
                      + (f" {format_quantity(balance.n_units[i]):>10}" if units else "")
-                     + f" {format_number(balance.mean[i]):>8} {format_number(balance.sd[i]):>8}")
+                     + f" {format_quantity(balance.mean[i], '{:.2f}'):>8}"
+                     f" {format_quantity(balance.sd[i], '{:.2f}'):>8}")
     flag = "" if not math.isfinite(balance.smd) or abs(balance.smd) < 0.1 else \
         "  (above 0.1: a common rule of thumb for imbalance)"
     lines.append(f"  standardized mean difference: {format_number(balance.smd, sign=True)}{flag}")

@@ -2,16 +2,13 @@
 
 from __future__ import annotations
 
-import re
-
-from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit
+from spillgauge.formatting import (OUTCOME_UNITS, format_cell, format_number, outcome_unit,
+                                   wrap_text)
 from spillgauge.statistics.trust import few_replications_note
 
 __all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
            "interference_lines", "launch_rows", "not_randomized_lines", "table_notes",
            "SD_RMSE_NOTE"]
-
-_WIDTH = 100  # the printed study fits a terminal this wide
 
 SD_RMSE_NOTE = ("SD can exceed RMSE: RMSE is against each replication's own GTE, SD is the "
                 "spread of the estimates.")
@@ -90,7 +87,7 @@ def market_text(scenario, market: dict) -> str:
         lines.append(f"outcome     {scenario.study.outcome}: "
                      f"{OUTCOME_UNITS[scenario.study.outcome]}{basket}")
     lines.append("designs     " + ", ".join(d.label for d in scenario.designs))
-    return "\n".join(lines)
+    return "\n".join(wrap_text(line, indent=" " * 12) for line in lines)
 
 
 def truth_text(name: str, seed: int, truth, outcome: str = "orders") -> str:
@@ -154,23 +151,36 @@ def not_randomized_lines(summary: dict, *, markdown: bool = False) -> list[str]:
         return ["", f"## {title}", "", *table, "", summary.get("not_randomized", ""),
                 *(["", "Balance, overlap and pre-launch fit (means over replications):", "",
                    *fits] if fits else [])]
-    fits = [f"  {d['fit_note']}" for d in summary["designs"] if d.get("fit_note")]
-    return ["", title + ":", *_grouped_by_question(rows), "", summary.get("not_randomized", ""),
+    fits = [wrap_text(f"  {d['fit_note']}", indent="    ")
+            for d in summary["designs"] if d.get("fit_note")]
+    units = wrap_text(f"truth, estimate, bias, RMSE and left out (the launch's effect on the "
+                      f"users it leaves out) in {outcome_unit(summary)}; coverage is a share of "
+                      "replications.", indent="  ")
+    return ["", title + ":", *_grouped_by_question(rows), "", units, "",
+            wrap_text(summary.get("not_randomized", "")),
             *(["", "Balance, overlap and pre-launch fit (means over replications):", *fits]
               if fits else [])]
 
 
 def _grouped_by_question(rows: list[list[str]]) -> list[str]:
-    """Return the launch table for a terminal with the question each group answers
-    as a line above its rows instead of a column (the table stays about 100 wide)."""
-    question = [header for _, header, _ in _LAUNCH_COLUMNS].index("answers")
-    lines = _table([row[:question] + row[question + 1:] for row in rows])
+    """Return the launch tables for a terminal: the absolute columns with the question
+    each group answers as a line above its rows instead of a column, then the relative
+    columns, so that each table stays within 100 columns."""
+    headers = [header for _, header, _ in _LAUNCH_COLUMNS]
+    question = headers.index("answers")
+    relative = [i for i, (key, _, _) in enumerate(_LAUNCH_COLUMNS) if key.startswith("relative.")]
+    absolute = [i for i in range(len(headers)) if i != question and i not in relative]
+    lines = _table([[row[i] for i in absolute] for row in rows])
     out, previous = lines[:2], None
     for row, line in zip(rows[1:], lines[2:]):
         if row[question] != previous:
             out.append(f"{row[question]}:")
             previous = row[question]
         out.append(line)
+    if any(row[i] != "n/a" for row in rows[1:] for i in relative):
+        out += ["", "the effect as a share of its own users' all-control mean, against the "
+                    "launch's relative truth:"]
+        out += _table([[row[i] for i in [0, *relative]] for row in rows])
     return out
 
 
@@ -197,11 +207,10 @@ def table_notes(summary: dict) -> list[str]:
 def _text_table(summary: dict) -> list[str]:
     """Return the design table for a terminal: absolute columns, then the relative ones.
 
-    The unit of each design is listed under the tables, wrapped, so that long
-    units (a test of interference's) do not widen them.
+    The units of the numbers and the unit each design randomizes are listed under
+    the tables, wrapped, so that long units (a test of interference's) do not
+    widen them.
     """
-    import textwrap
-
     rows = design_rows(summary)
     keep = [i for i, (key, _, _) in enumerate(_COLUMNS) if key != "unit"]
     absolute = [i for i in keep if not _COLUMNS[i][0].startswith("relative.")]
@@ -217,15 +226,12 @@ def _text_table(summary: dict) -> list[str]:
         if design.get("is_randomized", True):
             units.setdefault(design["unit"], []).append(design["label"])
     text = "; ".join(f"{', '.join(labels)} = {unit}" for unit, labels in units.items())
-    # A number keeps the word after it ("24 h") on its line: textwrap breaks only at
-    # ASCII whitespace, so a no-break space holds the pair together until printed.
-    text = re.sub(r"(\d) ", "\\1\u00a0", text)
-    lines += [""] + [line.replace("\u00a0", " ") for line in
-                     textwrap.wrap("units: " + text, _WIDTH, subsequent_indent="  ",
-                                   break_on_hyphens=False)]
-    lines += textwrap.wrap(SD_RMSE_NOTE, _WIDTH)
+    lines += ["", wrap_text(f"estimate, bias, SD and RMSE in {outcome_unit(summary)} over the "
+                            "horizon; rel.bias = bias / GTE; coverage and power are shares of "
+                            "replications.", indent="  "),
+              wrap_text("randomization units: " + text, indent="  "), wrap_text(SD_RMSE_NOTE)]
     for note in table_notes(summary):
-        lines += [""] + textwrap.wrap("note: " + note, _WIDTH, subsequent_indent="  ")
+        lines += ["", wrap_text("note: " + note, indent="  ")]
     return lines
 
 
@@ -249,18 +255,19 @@ def study_text(study) -> str:
     se = truth.get("gte_se")
     lines = [f"scenario {summary['scenario']}: {summary['reps']} replications, "
              f"seed {summary['seed']}",
-             f"true GTE {gte_sentence(truth, summary)}"
-             + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), ""]
+             wrap_text(f"true GTE {gte_sentence(truth, summary)}"
+                       + (f" (Monte Carlo SE {se:.4f})" if se is not None else ""), indent="  "),
+             ""]
     if len(design_rows(summary)) > 1:
         lines += _text_table(summary)
-    lines += interference_lines(study)
+    lines += [wrap_text(line, indent="  ") for line in interference_lines(study)]
     lines += not_randomized_lines(summary)
     rec = summary["recommendation"]
     lines += ["", "recommendation: " + (rec["label"] or "no design can be trusted"),
-              rec["reason"]]
+              wrap_text(rec["reason"])]
     note = few_replications_note(summary["reps"], study.scenario.study.alpha)
     if note:
-        lines += ["", "note: " + note]
+        lines += ["", wrap_text("note: " + note, indent="  ")]
     return "\n".join(lines)
 
 
