@@ -2,8 +2,7 @@
 
 from __future__ import annotations
 
-from spillgauge.formatting import (OUTCOME_UNITS, format_cell, format_number, outcome_unit,
-                                   wrap_text)
+from spillgauge.formatting import OUTCOME_UNITS, format_cell, format_number, outcome_unit, wrap_text
 from spillgauge.statistics.trust import few_replications_note
 
 __all__ = ["market_text", "truth_text", "gte_sentence", "design_value", "study_text", "study_markdown", "design_rows",
