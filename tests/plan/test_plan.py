@@ -143,6 +143,12 @@ def test_cli_plan_writes_its_files_and_json(tmp_path, capsys):
     assert header[:9] == ["label", "kind", "days", "reps", "power", "power_se", "mde",
                           "mde_relative", "bias"]
     assert {"coverage", "trusted"} <= set(header)
+    # On the page each row's verdict (and its reason) is the left-aligned cell beside the label.
+    page = (out / "plan.html").read_text()
+    rows = page.split('id="designs"')[1].split("</table>")[0].split("<tr")[2:]
+    verdicts = [row.split("<td")[2] for row in rows]
+    assert verdicts and all(v.startswith(' class="text">') for v in verdicts)
+    assert all((">yes</span>" in v) != (">no</span>" in v) for v in verdicts)
     assert main(["plan", str(path), "--days", "9", "--out", str(out)]) == 2
     assert "--days must be days in [1, calendar.days=7]; got 9" in capsys.readouterr().err
     assert main(["plan", str(path), "--scheduler", "tcp://x:1", "--out", str(out)]) == 2

@@ -162,6 +162,9 @@ def test_design_table_marks_trusted_and_recommended(study, page):
         assert ("\u2713 trusted" in row) == is_trusted, spec.label
         assert ("\u2717 not trusted" in row) == (not is_trusted), spec.label
         assert row.startswith(' class="chosen"') == (spec.label == study.recommendation.label)
+        # The verdict is the second cell, beside the label: a table wider than the page
+        # scrolls, and its last columns are the ones a reader may not see.
+        assert "trusted</span>" in row.split("<td")[2], spec.label
 
 
 def test_text_is_escaped(study):

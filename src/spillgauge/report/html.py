@@ -160,7 +160,8 @@ def _cell(design: dict, key: str, template: str, se_key: str | None) -> str:
 def _designs(study, summary: dict) -> str:
     trusted = set(study.recommendation.trusted)
     chosen = study.recommendation.label
-    header = ["design (estimator)", "unit", *(c[1] for c in _COLUMNS), "trusted"]
+    # the verdict beside the label, so that a page narrower than the table still shows it
+    header = ["design (estimator)", "trusted", "unit", *(c[1] for c in _COLUMNS)]
     rows, classes = [], []
     for d in summary["designs"]:
         if not d.get("is_randomized", True):
@@ -172,10 +173,11 @@ def _designs(study, summary: dict) -> str:
             mark = '<span class="trusted">\u2713 trusted</span>'
         else:
             mark = '<span class="untrusted">\u2717 not trusted</span>'
-        label = (_e(d["label"]) + (" <strong>(recommended)</strong>" if d["label"] == chosen
+        label = (f'<span class="label">{_e(d["label"])}</span>'
+                 + (" <strong>(recommended)</strong>" if d["label"] == chosen
                                    else "") + f'<br><span class="se">{_e(d["estimator"])}</span>')
-        rows.append([label, _e(d["unit"]),
-                     *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS), mark])
+        rows.append([label, mark, _e(d["unit"]),
+                     *(_cell(d, key, template, se) for key, _, template, se in _COLUMNS)])
         classes.append("chosen" if d["label"] == chosen else "")
     alpha = study.scenario.study.alpha
     note = (f"<p>Over {summary['reps']:,} replications. Estimates, bias, SD, RMSE and CI "
@@ -192,7 +194,7 @@ def _designs(study, summary: dict) -> str:
             f"{_e(SD_RMSE_NOTE)}</p>"
             + "".join(f'<p class="note">Note: {_e(n[0].upper() + n[1:])}</p>'
                       for n in table_notes(summary)))
-    return _section("designs", "Designs", _grid(header, rows, classes, text_columns=2) + note)
+    return _section("designs", "Designs", _grid(header, rows, classes, text_columns=3) + note)
 
 
 def _launches(summary: dict) -> str:

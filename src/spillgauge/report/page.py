@@ -36,7 +36,7 @@ background:#f4f8fb;padding:.6rem 1rem;border-radius:0 4px 4px 0}
 .box.warn{border:2px solid #D55E00;border-left-width:6px;background:#fdf0e8}
 .box.warn .verdict{color:#8f3300}.icon{font-size:1.3em;margin-right:.3rem}
 .diagnostic{color:#555;font-style:italic;white-space:nowrap}
-.lead{font-size:1.02rem}
+.lead{font-size:1.02rem}.label{white-space:nowrap}
 figure{margin:1.2rem 0 2rem}figure img{max-width:100%;height:auto;border:1px solid #e2e2e2}
 figcaption{color:#333;font-size:.92rem;margin-top:.4rem}
 #caution p{font-style:italic;background:#f7f7f7;padding:.6rem 1rem;border-radius:4px}

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from spillgauge.formatting import format_cell
+from spillgauge.formatting import OUTCOME_UNITS, format_cell
 from spillgauge.report.page import CAUTION, figure, render_page
 from spillgauge.report.page import escape as _e
 from spillgauge.report.page import grid as _grid
@@ -56,15 +56,17 @@ def _cell(template: str, value: object) -> str:
 
 
 def _table(plan) -> str:
-    header = ["design", *(h for _, h, _ in _COLUMNS), "trusted"]
+    # the verdict and its reason beside the label, left-aligned like text
+    header = ["design", "trusted", *(h for _, h, _ in _COLUMNS)]
     rows, classes = [], []
     for row in plan.rows:
         trusted = ('<span class="trusted">yes</span>' if row["trusted"] else
                    f'<span class="untrusted">no</span> <span class="se">'
                    f'{_e(row["why_not_trusted"])}</span>')
-        rows.append([_e(row["label"]), *(_cell(t, row[k]) for k, _, t in _COLUMNS), trusted])
+        rows.append([f'<span class="label">{_e(row["label"])}</span>', trusted,
+                     *(_cell(t, row[k]) for k, _, t in _COLUMNS)])
         classes.append("chosen" if row.get("chosen") else "")
-    return _grid(header, rows, classes, text_columns=1)
+    return _grid(header, rows, classes, text_columns=2)
 
 
 def _cuped(plan) -> str:
@@ -99,7 +101,10 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
         _figures(figures),
         _section("designs", "Every design at every duration",
                  "<p>Power is measured at the scenario's effect; the MDE is at "
-                 f"{plan.power:.0%} power and level {plan.alpha:g}; trust is the study's rule "
+                 f"{plan.power:.0%} power and level {plan.alpha:g}; MDE and bias are in "
+                 f"{_e(OUTCOME_UNITS[plan.scenario.study.outcome])} over the days the test runs, "
+                 "MDE / control is the MDE as a share of the control mean over the same days; "
+                 "trust is the study's rule "
                  "applied to each duration. Shaded: the design the recommendation rule picks "
                  "among those trusted and at the target power at that duration.</p>"
                  + _table(plan)),
