@@ -218,7 +218,7 @@ def plot_bias_sd(study, ax=None):
     ax.set_xlabel(f"bias: mean of estimate - GTE ({_units(study)})")
     ax.set_ylabel("SD of the estimates (same units)")
     ax.set_title("Bias against noise: the nearer the origin, the more accurate\n"
-                 "(bars: +-2 Monte Carlo SE)", fontsize=11)
+                 "(bars: \u00b12 Monte Carlo SE)", fontsize=11)
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=6, fontsize=9,
               frameon=False)
     _place_labels(ax, [((m.bias, m.sd), label, _colour(i), label == study.recommendation.label)
