@@ -50,6 +50,20 @@ def test_bad_csv_cell_names_line_and_user(tmp_path, capsys):
                    "must be a number in [0, 10000]; got 'lots'")
 
 
+def test_edge_to_an_unknown_user_names_the_file_line(tmp_path, capsys):
+    rows = "user_id,pool_id,orders_per_week\n" + "".join(f"u{i},p{i % 2},2\n" for i in range(6))
+    scenario = _csv_scenario(tmp_path, rows.encode())
+    (tmp_path / "edges.csv").write_text("user_a,user_b\nu0,u1\n\nu2,u3\nu4,ghost\n")
+    text = open(scenario).read().replace("[study]", '[graph]\nmodel = "edge_list"\n'
+                                         'file = "edges.csv"\n[study]')
+    open(scenario, "w").write(text)
+    code, err = _main(["check", scenario], capsys)
+    # Line 5 of the file: the header, two edges and a blank line before it.
+    assert code == 2
+    assert err == ("spillgauge: error: graph.file:user_b (line 5) must be a user_id of the "
+                   "users; got 'ghost'")
+
+
 @pytest.mark.parametrize("cell", ["1_0", "0x10", "nan", "-inf", "1e400"])
 def test_csv_numbers_are_plain_decimals(tmp_path, capsys, cell):
     rows = f"user_id,pool_id,orders_per_week\nu1,p1,{cell}\n"

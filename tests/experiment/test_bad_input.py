@@ -84,6 +84,26 @@ def test_bad_orders_are_refused_by_file_line_column_and_value(capsys, folder, tm
         assert f"got '{value}'" in message
 
 
+def test_a_row_with_an_extra_cell_is_refused_by_line(capsys, folder, tmp_path):
+    rows = _rows(folder)
+    rows[11] = [*rows[11], "extra"]  # line 12
+    bad = _write(tmp_path / "orders.csv", rows)
+    message = _refused(capsys, ["analyze", str(folder), "--orders", str(bad)])
+    assert message == (f"spillgauge: error: {bad} line 12 must be 4 comma-separated fields, as "
+                       "many as the header; got '5 fields'")
+
+
+@pytest.mark.parametrize("text, said", [("", "a CSV file of orders with a header line; got "
+                                              "'an empty file'"),
+                                        ("user_id,pool_id,date,orders\n",
+                                         "at least one row below its header; got 'no rows'")])
+def test_an_empty_orders_file_is_refused(capsys, folder, tmp_path, text, said):
+    # A file with no orders at all is an export that failed, not an experiment with no effect.
+    (tmp_path / "orders.csv").write_text(text)
+    message = _refused(capsys, ["analyze", str(folder), "--orders", str(tmp_path / "orders.csv")])
+    assert message.endswith(said), message
+
+
 def test_the_good_file_is_read(capsys, folder, tmp_path):
     good = _write(tmp_path / "orders.csv", _rows(folder))
     assert main(["analyze", str(folder), "--orders", str(good)]) == 0
@@ -156,6 +176,16 @@ def test_a_study_of_the_same_scenario_gives_context(capsys, folder, studies):
     # Every line fits a terminal: long sentences continue, indented, on the next line.
     assert max(map(len, out.splitlines())) <= 100, out
     assert all(line.startswith(("design", "effect", "in ", "  ")) for line in out.splitlines())
+
+
+def test_a_study_folder_without_its_files_is_named(capsys, folder, studies, tmp_path):
+    message = _refused(capsys, ["analyze", str(folder), "--study", str(tmp_path / "none")])
+    assert "holds no finished study (no readable study.json)" in message
+    (tmp_path / "half").mkdir()
+    (tmp_path / "half" / "study.json").write_bytes((studies / "same" / "study.json").read_bytes())
+    message = _refused(capsys, ["analyze", str(folder), "--study", str(tmp_path / "half")])
+    assert "holds no finished study (no readable summary.json)" in message
+    assert "Error" not in message  # no exception class names
 
 
 def test_not_an_assignment_folder(capsys, tmp_path):

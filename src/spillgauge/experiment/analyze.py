@@ -112,12 +112,14 @@ def study_context(study: str | Path, assignment: Assignment) -> dict:
         When the study is of another market (``--study``) or lacks the design.
     """
     study = Path(study)
-    try:
-        saved = json.loads((study / "study.json").read_text(encoding="utf-8"))
-        summary = json.loads((study / "summary.json").read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError) as exc:
-        raise ResultsError(f"{study} holds no finished study ({type(exc).__name__}); run "
-                           "`spillgauge run SCENARIO --out DIR` first") from None
+    loaded = {}
+    for name in ("study.json", "summary.json"):
+        try:
+            loaded[name] = json.loads((study / name).read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError):
+            raise ResultsError(f"{study} holds no finished study (no readable {name}); run "
+                               "`spillgauge run SCENARIO --out DIR` first") from None
+    saved, summary = loaded["study.json"], loaded["summary.json"]
     if market_fingerprint(saved) != assignment.fingerprint:
         raise ScenarioError("--study", f"a study of the assignment's scenario "
                             f"{assignment.scenario_name!r} (same market, calendar and effect; "

@@ -27,6 +27,7 @@ The assignment's outcome (``study.outcome`` of its scenario) says what else a ro
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -98,10 +99,20 @@ def read_orders(path: str | Path, assignment: Assignment) -> OutcomePanel:
     try:
         frame = pd.read_csv(path, dtype=str, keep_default_na=False, skip_blank_lines=False,
                             encoding="utf-8-sig", skipinitialspace=True)
-    except (OSError, UnicodeDecodeError, pd.errors.ParserError,
-            pd.errors.EmptyDataError) as exc:
+    except pd.errors.EmptyDataError:
+        raise ScenarioError(str(path), "a CSV file of orders with a header line", "an empty file"
+                            ) from None
+    except (OSError, UnicodeDecodeError, pd.errors.ParserError) as exc:
+        fields = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+        if fields:  # a row with more cells than the header
+            expected, line, saw = fields.groups()
+            raise ScenarioError(f"{path} line {line}", f"{expected} comma-separated fields, as "
+                                "many as the header", f"{saw} fields") from None
         raise ScenarioError(str(path), "a readable CSV file of orders",
                             f"{type(exc).__name__}: {str(exc).splitlines()[0]}") from None
+    if frame.empty:
+        raise ScenarioError(str(path), "a CSV file of orders with at least one row below its "
+                            "header", "no rows") from None
     frame.columns = [c.strip() for c in frame.columns]
     for column in frame.columns:
         if column not in _COLUMNS:

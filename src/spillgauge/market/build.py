@@ -160,11 +160,11 @@ def _read_edges(market_users: Population, path: str) -> tuple[np.ndarray, np.nda
     lookup = {str(uid): i for i, uid in enumerate(market_users.user_ids.tolist())}
     ends = []
     for name in ("user_a", "user_b"):
-        try:
-            ends.append(np.array([lookup[v] for v in columns[name]], dtype=np.int64))
-        except KeyError as exc:
-            raise ScenarioError(f"graph.file:{name}", "a user_id of the users", exc.args[0]) \
-                from None
+        for k, value in enumerate(columns[name]):
+            if value not in lookup:
+                raise ScenarioError(f"graph.file:{name} (line {columns.lines[k]})",
+                                    "a user_id of the users", value)
+        ends.append(np.array([lookup[v] for v in columns[name]], dtype=np.int64))
     return ends[0], ends[1]
 
 
