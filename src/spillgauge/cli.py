@@ -252,7 +252,8 @@ def _cmd_assign(args) -> int:
     schedule = assignment.schedule
     print(wrap_text(f"{assignment.spec.label}: {assignment.describe()}; seed {assignment.seed}"))
     print(balance_text(assignment_balance(schedule, assignment.history), schedule.unit_kind))
-    print("\n" + wrap_text(f"wrote {args.out}/ ({', '.join(p.name for p in written)})"))
+    print("\n" + wrap_text(f"wrote {args.out}/ ({', '.join(p.name for p in written)})",
+                          indent="  "))
     print(f"after the experiment: spillgauge analyze {args.out} --orders ORDERS.csv")
     return 0
 
@@ -269,7 +270,7 @@ def _cmd_simulate(args) -> int:
                     f"true effect (GTE) {format_number(truth.gte, sign=True)} "
                     f"{OUTCOME_UNITS[assignment.outcome]} ({format_number(truth.control_mean)} "
                     f"all control, {format_number(truth.treated_mean)} all treated)"))
-    print(wrap_text(f"wrote {args.out}/ ({', '.join(p.name for p in written)})"))
+    print(wrap_text(f"wrote {args.out}/ ({', '.join(p.name for p in written)})", indent="  "))
     print(f"next: spillgauge analyze {args.out}")
     return 0
 

@@ -99,9 +99,9 @@ def truth_text(name: str, seed: int, truth, outcome: str = "orders") -> str:
             ("fill rate", t.control_fill_rate, t.treated_fill_rate, "{:.2%}"),
             ("lost-order share", t.control_lost_share, t.treated_lost_share, "{:.2%}")]
     lines = [f"scenario {name}: {t.reps} replications, seed {seed}", "",
-             f"GTE = {t.gte:.4f} {unit} over the horizon (Monte Carlo SE {se}); "
-             f"{format_cell('{:+.2%}', t.gte_relative)} of the control mean "
-             f"{format_number(t.control_mean)}", "",
+             wrap_text(f"GTE = {t.gte:.4f} {unit} over the horizon (Monte Carlo SE {se}); "
+                       f"{format_cell('{:+.2%}', t.gte_relative)} of the control mean "
+                       f"{format_number(t.control_mean)}", indent="  "), "",
              f"{'':<26}{'all control':>14}{'all treated':>14}"]
     for label, c, tr, template in rows:
         lines.append(f"{label:<26}{format_cell(template, c):>14}{format_cell(template, tr):>14}")
