@@ -201,3 +201,14 @@ def test_plan_without_a_randomized_design_names_the_designs():
                              design=[{"kind": "opt_in", "estimator": "naive"}])
     with pytest.raises(ScenarioError, match="at least one randomized design"):
         plan_study(scenario, days=[4], reps=2, workers=1)
+
+
+def test_the_answer_names_the_outcome_it_detects():
+    # A revenue study's answer gives the detected effect in revenue, never in orders.
+    from spillgauge.plan.answer import answer_plan
+
+    row = {"label": "cluster-pools", "days": 7, "trusted": True, "recommendable": True,
+           "power": 0.9, "power_se": 0.03, "gte": 12.5, "mde": 8.0, "mde_relative": 0.05,
+           "rmse": 1.0, "chosen": True}
+    text = answer_plan([row], power=0.8, horizon_days=28, unit="revenue per user")
+    assert "(12.5 revenue per user over 7 days)" in text and "orders" not in text

@@ -147,3 +147,19 @@ def test_printed_launch_table_groups_rows_by_the_question_they_answer():
 
     launches = render_html(study, {}).split('id="launches"')[1]
     assert "relative effect" in launches and "relative CI coverage" in launches
+
+
+def test_the_users_left_out_are_counted_in_the_study_outcome():
+    # The note on users a launch leaves out speaks the outcome's unit (orders by default).
+    from spillgauge.statistics.launches import LaunchRow, not_randomizing_note
+    from spillgauge.statistics.metrics import design_metrics
+
+    m = design_metrics([1.5, 1.7, 1.6, 1.6], [0.1] * 4, [1.3, 1.5, 1.4, 1.4],
+                       [1.7, 1.9, 1.8, 1.8], 1.0)
+    rows = [LaunchRow("opt-in-naive", "opt_in", "the ATT", 1.0, -0.2, m)]
+    orders = not_randomizing_note(rows, randomized_label=None, randomized_metrics=None,
+                                  alpha=0.05)
+    revenue = not_randomizing_note(rows, randomized_label=None, randomized_metrics=None,
+                                   alpha=0.05, unit="(revenue per user)")
+    assert "leaves out by -0.2 orders each" in orders
+    assert "leaves out by -0.2 (revenue per user)" in revenue and "orders" not in revenue

@@ -97,7 +97,7 @@ def render_plan_html(plan, figures: list[str | Path]) -> str:
     days = ", ".join(str(d) for d in plan.days)
     sections = ("answer", "figures", "designs", "cuped", "caution")
     body = "".join([
-        _section("answer", "Answer", f'<p class="box verdict">{_e(plan.answer())}</p>'),
+        _section("answer", "Answer", f'<p class="box lead">{_e(plan.answer())}</p>'),
         _figures(figures),
         _section("designs", "Every design at every duration",
                  "<p>Power is measured at the scenario's effect; the MDE is at "

@@ -38,13 +38,15 @@ class LaunchRow:
 
 
 def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | None,
-                         randomized_metrics: DesignMetrics | None, alpha: float) -> str:
+                         randomized_metrics: DesignMetrics | None, alpha: float,
+                         unit: str = "orders each") -> str:
     """Return the note on what not randomizing costs in this market (empty without launches).
 
     For each question the launches answer, the closest analysis (smallest RMSE
     against its own truth) and the furthest, with bias, RMSE and coverage (the
     table beside the note has every row); then the users left out and the
     recommended randomized design (its RMSE against the GTE) for comparison.
+    ``unit`` follows the effect on the users left out (the study's outcome).
 
     Examples
     --------
@@ -90,7 +92,7 @@ def not_randomizing_note(launches: list[LaunchRow], *, randomized_label: str | N
         if abs(effect) < 5e-4:
             continue
         sentences.append(f"The {kind.replace('_', '-')} launch itself moves the users it "
-                         f"leaves out by {format_number(effect, sign=True)} orders each"
+                         f"leaves out by {format_number(effect, sign=True)} {unit}"
                          + (" (stock they lose to those who got it)" if effect < 0 else "")
                          + ": a comparison with them counts that too.")
     if randomized_label is not None and randomized_metrics is not None:

@@ -18,7 +18,7 @@ from spillgauge.designs.registry import kind_of
 from spillgauge.estimators.estimate import InterferenceDiagnostic, LaunchDiagnostic
 from spillgauge.estimators.relative import relative_effect
 from spillgauge.files import json_safe, nan_from_null
-from spillgauge.formatting import outcome_unit
+from spillgauge.formatting import OUTCOME_UNITS, outcome_unit
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.reading import scenario_to_dict
 from spillgauge.statistics.interference import InterferenceSummary, summarise_interference_test
@@ -331,7 +331,8 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
     chosen = advice.label
     note = not_randomizing_note(launches, randomized_label=chosen,
                                 randomized_metrics=designs[chosen].metrics if chosen else None,
-                                alpha=alpha)
+                                alpha=alpha, unit="orders each" if scenario.study.outcome ==
+                                "orders" else f"({OUTCOME_UNITS[scenario.study.outcome]})")
     return StudyResult(scenario=scenario, seed=seed, reps=len(results), truth=truth,
                        designs=designs, recommendation=advice, replications=results,
                        market_summary=market_summary or {}, not_randomized_note=note)
