@@ -102,6 +102,15 @@ def test_estimates_plot_shows_every_replication_estimate(study):
     # The dashed reference is the mean GTE of the truth summary.
     dashed = [line for line in ax.lines if line.get_linestyle() == "--"]
     assert dashed and np.allclose(dashed[0].get_xdata(), study.truth.gte)
+    # Each row's label gives its bias and relative bias as the rest of the tool prints
+    # percentages (one decimal below 10%, so a small bias never reads "-0%").
+    from spillgauge.formatting import format_percent
+
+    ticks = [t.get_text() for t in ax.get_yticklabels()]
+    for spec in study.scenario.designs:
+        m = study.metrics[spec.label]
+        assert any(t.startswith(spec.label + "\n") and t.endswith(
+            f"({format_percent(m.relative_bias, sign=True)})") for t in ticks), ticks
 
 
 def test_bias_sd_points_are_the_metrics_and_fill_marks_trust(study):

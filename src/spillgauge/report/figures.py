@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from spillgauge.formatting import OUTCOME_UNITS
+from spillgauge.formatting import OUTCOME_UNITS, format_percent
 from spillgauge.report._canvas import FIGURE_DPI, FIGURE_SIZE_PX, PALETTE
 from spillgauge.report._canvas import TRUTH_COLOUR as _TRUTH
 from spillgauge.report._canvas import axes_or_new as _axes
@@ -93,7 +93,7 @@ def plot_estimates(study, ax=None):
         m = study.metrics[label]
         bias = f"bias {m.bias:+.3g}" if math.isfinite(m.bias) else "bias n/a"
         if math.isfinite(m.bias) and math.isfinite(m.relative_bias):
-            bias += f" ({m.relative_bias:+.0%})"
+            bias += f" ({format_percent(m.relative_bias, sign=True)})"
         ticks.append(f"{label}\n{bias}")
     ax.set_yticks(range(len(rows)), ticks, fontsize=9)
     for tick, (_, _, colour) in zip(ax.get_yticklabels(), rows):
