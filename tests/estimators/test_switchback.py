@@ -384,3 +384,79 @@ def test_working_model_quantile_covers_among_draws_with_an_interval():
     assert np.isfinite(df)
     hits = int(np.sum((u @ loading) ** 2 <= q * q * variance))
     assert stats.binomtest(hits, int(has_interval.sum()), 0.95).pvalue > 0.001
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_bound_form_equals_the_dense_bound(seed):
+    # The bound replaces each lag-1 product 2 psi_b psi_c^E by psi_b^2 + (psi_c^E)^2 (the
+    # inequality 2xy <= x^2 + y^2; Aronow & Samii 2017 bound inestimable products this
+    # way): G_bound = Q'(I + W_open) Q + Q_E' W_close Q_E, formed densely here.
+    from spillgauge.estimators._switchback_inference import (
+        bound_form,
+        sparse_low_rank_moments,
+    )
+
+    rng = np.random.default_rng(seed)
+    users_used = rng.integers(1, 6, (11, 1)) * (rng.random((11, 7)) < 0.8).astype(float)
+    users_used[:, 0] = rng.integers(1, 6, 11)
+    arm_users, scale = users_used.sum(axis=0), rng.random(7)
+    early = np.arange(7) < 3
+    first = np.array([0, 2, 3, 6, 9])
+    second = first + 1
+    y, x = users_used / arm_users, users_used * scale
+    q = np.diag(x.sum(axis=1)) - x @ y.T
+    q_early = np.diag(x[:, early].sum(axis=1)) - x[:, early] @ y[:, early].T
+    opens = np.diag(1.0 + np.bincount(first, minlength=11))
+    closes = np.diag(np.bincount(second, minlength=11).astype(float))
+    dense = q.T @ opens @ q + q_early.T @ closes @ q_early
+    loading, diagonal, left, right = bound_form(users_used, arm_users, scale, early, first,
+                                                second)
+    assert np.allclose(np.diag(diagonal) + left @ right.T, dense, rtol=1e-12, atol=1e-12)
+    assert np.allclose(loading, x.sum(axis=1))
+    trace, trace_square = sparse_low_rank_moments(diagonal, left, right)
+    assert trace == pytest.approx(np.trace(dense), rel=1e-12)
+    assert trace_square == pytest.approx(np.sum(dense * dense), rel=1e-12)
+    assert np.linalg.eigvalsh(dense).min() > -1e-9 * np.abs(dense).max()  # positive
+    # and the bound's quadratic form is never below the unbiased one
+    lagged = q.T @ q
+    pairs = np.zeros((11, 11))
+    pairs[first, second] = 1.0
+    lagged = lagged + q.T @ pairs @ q_early + q_early.T @ pairs.T @ q
+    assert np.linalg.eigvalsh(dense - lagged).min() > -1e-9 * np.abs(dense).max()
+
+
+def test_variance_that_is_not_positive_falls_back_to_its_bound():
+    # Minimax reading: a market of 12 blocks of 3 ticks, burn-in 3, so only blocks that kept
+    # the previous block's arm count (the time before the horizon is control). Used: treated
+    # 5, 6, 7 (two consecutive pairs), control 0 and 3. The lag-1 products make the unbiased
+    # variance negative here; the estimate then takes the bound 2 psi_5^2 + 3 psi_6^2 +
+    # 2 psi_7^2 (each product 2xy -> x^2 + y^2), computed by hand below, each arm with the
+    # factor Sum a^2 / tr(G) that makes it unbiased under the working model.
+    arms = [0, 1, 0, 0, 1, 1, 1, 1, 0, 1, 0, 1]
+    orders = np.array([2, 5, 2, 9, 6, 3, 2, 4, 3, 7, 4, 0, 7, 5, 7, 3, 3, 7, 3, 2, 1, 4, 4,
+                       8, 4, 5, 6, 3, 4, 6, 8, 5, 5, 3, 12, 6], dtype=float)
+    est = switchback_difference(_one_user_panel(orders.astype(int)), _market_schedule(arms, 3),
+                                burn_in_ticks=3)
+    blocks = orders.reshape(12, 3)
+    treated, control = blocks[[5, 6, 7]], blocks[[0, 3]]
+    r1, r0 = treated.mean(axis=0), control.mean(axis=0)
+    assert est.point == pytest.approx(12 * np.sum(r1 - r0), rel=1e-12)
+    psi1 = 12 * (treated - r1).sum(axis=1) / 3
+    psi0 = 12 * (control - r0).sum(axis=1) / 2
+    unbiased = np.sum(psi1 ** 2) + 2 * (psi1[0] * psi1[1] + psi1[1] * psi1[2])
+    assert unbiased < 0                                   # the case this test is about
+
+    def factor(n_used, rate, opens, closes):
+        # working model: F_bj = r_j u_b, u_b iid (0, 1); psi = Q u, Q = I_a - X Y'
+        x = np.tile(12 * rate / n_used, (n_used, 1))
+        y = np.full((n_used, 3), 1.0 / n_used)
+        q = np.diag(x.sum(axis=1)) - x @ y.T
+        g = q.T @ np.diag(opens) @ q + q.T @ np.diag(closes) @ q
+        return np.sum(x.sum(axis=1) ** 2) / np.trace(g)
+
+    bound1 = 2 * psi1[0] ** 2 + 3 * psi1[1] ** 2 + 2 * psi1[2] ** 2
+    variance = (factor(3, r1, [2.0, 2.0, 1.0], [0.0, 1.0, 1.0]) * bound1
+                + factor(2, r0, [1.0, 1.0], [0.0, 0.0]) * np.sum(psi0 ** 2))
+    assert est.standard_error ** 2 == pytest.approx(variance, rel=1e-10)
+    assert np.isfinite(est.degrees_of_freedom) and est.degrees_of_freedom > 0
+    assert est.ci_low < est.point < est.ci_high

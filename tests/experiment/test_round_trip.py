@@ -7,6 +7,7 @@ import pytest
 
 from spillgauge import analyze_experiment, assign_design, simulate_experiment
 from spillgauge.designs.registry import KINDS, kind_of
+from spillgauge.experiment.analyze import analysis_text
 from spillgauge.experiment.folder import read_assignment, write_assignment
 from spillgauge.experiment.simulate import write_experiment
 from spillgauge.market.build import build_market
@@ -149,7 +150,9 @@ def test_a_rollout_names_each_users_switch_on_time(scenario, tmp_path):
     {"kind": "cluster", "clusters": "pools", "label": "cluster-fisher"},
     {"kind": "switchback", "block_hours": 24, "burn_in_hours": 6, "per": "pool",
      "label": "switchback-fisher"},
-    {"kind": "user", "strata": "pools", "label": "user-strata-fisher"}])
+    {"kind": "user", "strata": "pools", "label": "user-strata-fisher"},
+    {"kind": "switchback", "block_hours": 24, "burn_in_hours": 12,
+     "randomization_statistic": "studentized", "label": "switchback-fisher-t"}])
 def test_analyze_gives_the_studys_randomization_p_value(design, tmp_path):
     # The randomization test's re-draws come from replication 0's own stream of the seed,
     # so analyze repeats the study's p-value bit for bit (same_estimate compares every field).
@@ -162,7 +165,12 @@ def test_analyze_gives_the_studys_randomization_p_value(design, tmp_path):
     assert np.isfinite(expected.randomization_p_value)
     write_experiment(simulate_experiment(scenario, label, seed=SEED, start="2027-03-01"),
                      tmp_path)
-    assert same_estimate(analyze_experiment(tmp_path).estimate, expected)
+    analysis = analyze_experiment(tmp_path)
+    assert same_estimate(analysis.estimate, expected)
+    line = next(x for x in analysis_text(analysis).splitlines()
+                if "randomization p-value" in x)
+    assert line.endswith("39 re-draws of this design's assignment"
+                         + (", studentized)" if "randomization_statistic" in design else ")"))
 
 
 def _outcome_market(outcome):

@@ -60,10 +60,11 @@ def test_every_randomized_kind_offers_it_and_launches_do_not():
             assert name not in RANDOMIZED_KINDS
 
 
-def _null_rejections(market, kind_name: str, n_draws: int, seed: int) -> tuple[int, int]:
+def _null_rejections(market, kind_name: str, n_draws: int, seed: int,
+                     **more: object) -> tuple[int, int]:
     """Return (randomization p-values <= 0.05, finite p-values) over fresh assignments."""
     spec = make_design_spec(kind_name, {"inference": "randomization",
-                                        "permutations": PERMUTATIONS})
+                                        "permutations": PERMUTATIONS, **more})
     kind = kind_of(spec)
     kind.prepare(market, spec)
     rng = np.random.default_rng(seed)
@@ -86,11 +87,11 @@ def _null_rejections(market, kind_name: str, n_draws: int, seed: int) -> tuple[i
     return rejections, total
 
 
-def _assert_level_5_percent(rejections: int, total: int) -> None:
+def _assert_level_5_percent(rejections: int, total: int, level: float = 0.05) -> None:
     # Rejection rate = 5% within binomial error (scipy.stats.binomtest, two-sided, level
     # 0.001). Ties between re-draws can only lower it (Imbens & Rubin 2015, ch. 5).
     assert total > 0
-    result = stats.binomtest(rejections, total, 0.05)
+    result = stats.binomtest(rejections, total, level)
     assert result.pvalue > 0.001, f"rejected {rejections}/{total} = {rejections / total:.3f}"
 
 
@@ -105,6 +106,37 @@ def test_randomization_test_rejects_5_percent_under_the_null(null_market, kind_n
     rejections, total = _null_rejections(null_market, kind_name, 1500, seed=77)
     print(f"{kind_name}: {rejections}/{total} = {rejections / total:.4f}")
     _assert_level_5_percent(rejections, total)
+
+
+# The studentized statistic (the estimate over its own SE, Chung & Romano 2013; Wu & Ding
+# 2021) is as exact under the sharp null: the same re-draws, another function of them. An
+# assignment without a standard error is the least extreme, so its own p-value would be 1:
+# the level holds over all draws, which is the denominator here (with 12 h burn-in of 6
+# daily blocks a fifth of the draws leave an arm's burn-in hours on one block).
+# Cluster: 4 of 8 pools, C(8, 4) = 70 assignments, T(S) = -T(complement), so |T| takes 35
+# equally likely values and with R = 19 re-draws P(p <= 1/20) = P(no re-draw at least as
+# extreme) = (1/35) sum_k (1 - k/35)^19 = 3.70% (derived here; ties lower the level).
+STUDENTIZED = [("user", {}, 0.05),
+               ("cluster", {}, sum((1 - k / 35) ** 19 for k in range(1, 36)) / 35),
+               ("switchback", {"burn_in_hours": 12}, 0.05)]
+
+
+def test_studentized_randomization_test_rejects_5_percent_under_the_null_fast(null_market):
+    rejections, _ = _null_rejections(null_market, "switchback", 120, seed=32,
+                                     burn_in_hours=12, randomization_statistic="studentized")
+    _assert_level_5_percent(rejections, 120)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(("kind_name", "more", "level"), STUDENTIZED)
+def test_studentized_randomization_test_rejects_5_percent_under_the_null(null_market,
+                                                                          kind_name, more,
+                                                                          level):
+    rejections, total = _null_rejections(null_market, kind_name, 1500, seed=79,
+                                         randomization_statistic="studentized", **more)
+    print(f"{kind_name} {more} studentized: {rejections}/1500 = {rejections / 1500:.4f} "
+          f"(expected {level:.4f}; {total} draws with a standard error)")
+    _assert_level_5_percent(rejections, 1500, level)
 
 
 def _fisher_reference(statistics: np.ndarray, observed: float) -> float:
@@ -175,6 +207,41 @@ def test_switchback_agrees_with_exact_enumeration():
                 schedule, is_treated=np.array(sequence, dtype=bool)[None, :])).point
             for sequence in itertools.product((0, 1), repeat=n_blocks)])
     exact = _fisher_reference(statistics, estimate.point)
+    assert 0.02 < exact < 0.6
+    _assert_matches_exact(estimate.randomization_p_value, exact, 1500)
+
+
+def test_studentized_switchback_agrees_with_exact_enumeration():
+    # The same 64 equally likely sequences, the statistic the estimate over its own standard
+    # error (12 h burn-in of 24 h blocks); sequences without a standard error count as not
+    # extreme, as they do for the re-draws.
+    rng = np.random.default_rng(13)
+    n_blocks, block = 6, 24
+    orders = rng.poisson(20.0, size=n_blocks * block)
+    orders[block + 12:2 * block] += 5
+    orders[3 * block + 12:4 * block] += 5
+    panel = OutcomePanel.from_arrays(fulfilled=orders[None, :])
+    arms = np.array([0, 1, 1, 1, 0, 0], dtype=bool)
+    schedule = AssignmentSchedule(
+        unit_of_user=np.zeros(1, dtype=np.int64), is_treated=arms[None, :],
+        period_start_ticks=np.arange(n_blocks) * block, n_ticks=n_blocks * block,
+        treated_probability=0.5, unit_kind="market", randomization="bernoulli")
+    spec = make_design_spec("switchback", {"inference": "randomization", "burn_in_hours": 12,
+                                           "permutations": 1500,
+                                           "randomization_statistic": "studentized"})
+
+    def studentized(estimate) -> float:
+        se = estimate.standard_error
+        return estimate.point / se if np.isfinite(se) and se > 0 else math.nan
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DegenerateEstimateWarning)
+        estimate = kind_of(spec).analyse(spec, panel, schedule, confidence=0.95,
+                                         tick_hours=1, rng=np.random.default_rng(4))
+        statistics = np.array([studentized(switchback_difference(
+            panel, dataclasses.replace(schedule, is_treated=np.array(sequence, bool)[None, :]),
+            burn_in_ticks=12)) for sequence in itertools.product((0, 1), repeat=n_blocks)])
+    exact = _fisher_reference(statistics, studentized(estimate))
     assert 0.02 < exact < 0.6
     _assert_matches_exact(estimate.randomization_p_value, exact, 1500)
 

@@ -20,6 +20,7 @@ import numpy as np
 from scipy import sparse
 
 from spillgauge.estimators.estimate import Estimate
+from spillgauge.estimators.randomization import RANDOMIZATION_STATISTICS, randomization_p_value
 from spillgauge.panel import OutcomePanel
 from spillgauge.scenario import DesignSpec, Scenario
 from spillgauge.scenario.config import CLUSTER_SOURCES
@@ -206,7 +207,8 @@ class DesignKind:
         The analytic estimate of :meth:`estimate`; when the spec asks for
         ``inference = "randomization"``, also Fisher's randomization p-value on
         ``Estimate.randomization_p_value`` from ``spec.permutations`` re-draws of
-        the schedule's own assignment under the sharp null, analysed the same way
+        the schedule's own assignment under the sharp null, analysed the same way,
+        with the statistic ``spec.randomization_statistic``
         (:func:`~spillgauge.estimators.randomization_p_value`). ``rng`` feeds
         those re-draws (the replication's own randomization-test stream); None
         asks for the analytic estimate alone (a plan, which reads only intervals).
@@ -215,15 +217,13 @@ class DesignKind:
                                  tick_hours=tick_hours)
         if rng is None or spec.params.get("inference", "analytic") != "randomization":
             return estimate
-        from spillgauge.estimators.randomization import randomization_p_value
-
         check_rng(rng)
 
         def analytic(p: OutcomePanel, s: AssignmentSchedule) -> Estimate:
             return self.estimate(spec, p, s, confidence=confidence, tick_hours=tick_hours)
 
         p_value = randomization_p_value(analytic, panel, schedule, draws=spec.permutations,
-                                        rng=rng)
+                                        rng=rng, statistic=spec.randomization_statistic)
         return dataclasses.replace(estimate, randomization_p_value=p_value)
 
 
@@ -260,15 +260,22 @@ def randomization_key() -> DesignKey:
                          "`\"bernoulli\"` (each unit on its own draw)")
 
 
-def inference_keys() -> tuple[DesignKey, DesignKey]:
-    """Return the declarations of ``inference`` and ``permutations``, for every randomized kind."""
+def inference_keys() -> tuple[DesignKey, DesignKey, DesignKey]:
+    """Return the declarations of ``inference``, ``permutations`` and
+    ``randomization_statistic``, for every randomized kind."""
     return (DesignKey(name="inference", type=str, default="analytic", choices=INFERENCES,
                       doc="`\"analytic\"` (the estimator's interval and p-value) or "
                           "`\"randomization\"` (also Fisher's p-value from re-draws of the "
                           "design's own assignment; power then counts p <= alpha)"),
             DesignKey(name="permutations", type=int, default=500, minimum=19, maximum=100000,
                       doc="re-draws of the assignment for the randomization p-value "
-                          "(read only when inference = \"randomization\")"))
+                          "(read only when inference = \"randomization\")"),
+            DesignKey(name="randomization_statistic", type=str, default="estimate",
+                      choices=RANDOMIZATION_STATISTICS,
+                      doc="what the randomization test compares across re-draws: "
+                          "`\"estimate\"` or `\"studentized\"` (the estimate over its own "
+                          "standard error; follows the analytic test where precision varies "
+                          "by draw, e.g. burn-in)"))
 
 
 def describe_clusters(source: str, *, plural: bool = False) -> str:

@@ -14,8 +14,8 @@ import math
 import numpy as np
 from scipy import optimize, sparse, special, stats
 
-__all__ = ["adjacent_pairs", "block_moments", "dense_block_matrix", "probability_not_positive",
-           "working_model_df"]
+__all__ = ["adjacent_pairs", "block_moments", "bound_form", "dense_block_matrix",
+           "probability_not_positive", "sparse_low_rank_moments", "working_model_df"]
 
 
 def adjacent_pairs(blocks: np.ndarray, has_early: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -99,6 +99,51 @@ def block_moments(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarr
     trace_square = float(np.sum(a ** 4) + 2 * np.sum(pair_values ** 2)
                          + 2 * np.sum((sparse_part @ left) * right) + np.sum(small * small.T))
     return float(np.sum(a ** 2)), trace, trace_square
+
+
+def bound_form(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarray,
+               early: np.ndarray, first: np.ndarray, second: np.ndarray
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return ``a`` and the bound's ``G = diag(d) + left right'`` for one arm.
+
+    Same inputs as :func:`block_moments`. The bound replaces every lag-1 product
+    ``2 psi_b psi_c^E`` of the variance estimate by ``psi_b^2 + (psi_c^E)^2``
+    (``2xy <= x^2 + y^2``; Aronow & Samii 2017 bound the products they cannot
+    estimate the same way), so its quadratic form ``sum_b w_b psi_b^2 + sum_b
+    e_b (psi_b^E)^2`` is positive semi-definite: ``w_b`` is 1 plus the pairs
+    block ``b`` opens, ``e_b`` the pairs it closes. With ``Q = D - X Y'`` (see
+    :func:`block_moments`), ``Q' W Q = D W D - D W X Y' - Y X' W D + Y X' W X Y'``:
+    a diagonal plus a product of ``(B_a, 2L + 2E)`` factors.
+    """
+    n_blocks = users_used.shape[0]
+    y = np.divide(users_used, arm_users, out=np.zeros_like(users_used), where=arm_users > 0)
+    x = users_used * scale
+    a = x.sum(axis=1)
+    opens = 1.0 + np.bincount(first, minlength=n_blocks)
+    closes = np.bincount(second, minlength=n_blocks).astype(float)
+    diagonal = np.zeros(n_blocks)
+    lefts, rights = [], []
+    for xk, yk, wk in ((x, y, opens), (x[:, early], y[:, early], closes)):
+        ak = xk.sum(axis=1)
+        diagonal += wk * ak ** 2
+        weighted = (wk * ak)[:, None] * xk                        # D W X
+        lefts += [-weighted + yk @ (xk.T @ (wk[:, None] * xk)), -yk]
+        rights += [yk, weighted]
+    return a, diagonal, np.hstack(lefts), np.hstack(rights)
+
+
+def sparse_low_rank_moments(diagonal: np.ndarray, left: np.ndarray, right: np.ndarray
+                            ) -> tuple[float, float]:
+    """Return ``tr(G)`` and ``tr(G^2)`` of ``G = diag(diagonal) + left right'``.
+
+    ``O(B k^2)`` time for ``k`` columns, never a ``(B, B)`` array:
+    ``tr(G^2) = sum d^2 + 2 sum_b d_b (left right')_bb + tr((right' left)^2)``.
+    """
+    small = right.T @ left
+    trace = float(np.sum(diagonal) + np.sum(left * right))
+    trace_square = float(np.sum(diagonal ** 2) + 2 * np.sum((diagonal[:, None] * left) * right)
+                         + np.sum(small * small.T))
+    return trace, trace_square
 
 
 def dense_block_matrix(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarray,

@@ -15,7 +15,10 @@ from spillgauge.panel import OutcomePanel
 from spillgauge.schedule import AssignmentSchedule
 from spillgauge.seeding import check_rng
 
-__all__ = ["redraw_assignment", "randomization_p_value"]
+__all__ = ["RANDOMIZATION_STATISTICS", "redraw_assignment", "randomization_p_value"]
+
+# what the randomization test compares across re-draws: the estimate, or the estimate over its SE
+RANDOMIZATION_STATISTICS = ("estimate", "studentized")
 
 
 def redraw_assignment(schedule: AssignmentSchedule, *, rng: np.random.Generator
@@ -64,25 +67,54 @@ def redraw_assignment(schedule: AssignmentSchedule, *, rng: np.random.Generator
 
 def randomization_p_value(estimator: Callable[..., Estimate], panel: OutcomePanel,
                           schedule: AssignmentSchedule, *, draws: int = 999,
-                          rng: np.random.Generator, **options: object) -> float:
+                          rng: np.random.Generator, statistic: str = "estimate",
+                          **options: object) -> float:
     """Return Fisher's randomization p-value of "no effect on anyone" for an estimator.
 
     Under the sharp null every user's outcomes are the same whatever the
     assignment, so the panel stands for every re-drawn schedule; the p-value is
-    ``(1 + #{|point_r| >= |point|}) / (1 + R)`` over ``R = draws`` re-draws of the
+    ``(1 + #{|T_r| >= |T|}) / (1 + R)`` over ``R = draws`` re-draws of the
     design's own randomization (:func:`redraw_assignment`), counting re-draws
-    without an estimate as not extreme (Fisher 1935; Imbens & Rubin 2015, ch. 5;
+    without a statistic as not extreme (Fisher 1935; Imbens & Rubin 2015, ch. 5;
     Bojinov, Simchi-Levi & Zhao 2023 for switchbacks). NaN when the observed
-    estimate is undefined.
+    statistic is undefined.
+
+    ``statistic`` chooses ``T``: ``"estimate"`` (the point estimate) or
+    ``"studentized"`` (the point over its own standard error, re-computed for
+    every re-draw). Both are exact under the sharp null. The studentized one
+    also keeps its level asymptotically under the weak null of a zero average
+    effect (Chung & Romano 2013; Wu & Ding 2021), and it follows the analytic
+    t test world by world where the estimate's precision depends on the draw
+    (a switchback with burn-in, whose burn-in hours rest on the blocks that did
+    not switch).
+
+    Raises
+    ------
+    ValueError
+        If ``statistic`` is neither ``"estimate"`` nor ``"studentized"``.
     """
     check_rng(rng)
-    observed = estimator(panel, schedule, **options).point
+    if statistic not in RANDOMIZATION_STATISTICS:
+        raise ValueError(f"statistic must be one of {', '.join(RANDOMIZATION_STATISTICS)}; "
+                         f"got {statistic!r}")
+    observed = _statistic(estimator(panel, schedule, **options), statistic)
     if not math.isfinite(observed):
         return math.nan
     extreme = 0
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DegenerateEstimateWarning)
         for _ in range(int(draws)):
-            point = estimator(panel, redraw_assignment(schedule, rng=rng), **options).point
-            extreme += bool(math.isfinite(point) and abs(point) >= abs(observed) * (1 - 1e-12))
+            value = _statistic(estimator(panel, redraw_assignment(schedule, rng=rng),
+                                         **options), statistic)
+            extreme += bool(math.isfinite(value) and abs(value) >= abs(observed) * (1 - 1e-12))
     return (1 + extreme) / (1 + int(draws))
+
+
+def _statistic(estimate: Estimate, statistic: str) -> float:
+    """Return the test statistic of an estimate: the point, or the point over its SE."""
+    if statistic == "estimate":
+        return estimate.point
+    standard_error = estimate.standard_error
+    if not (math.isfinite(standard_error) and standard_error > 0):
+        return math.nan
+    return estimate.point / standard_error

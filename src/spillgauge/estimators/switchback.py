@@ -14,6 +14,8 @@ is tick ``t - 1`` of a schedule's ``period_start_ticks``.
 
 from __future__ import annotations
 
+import dataclasses
+import math
 import numbers
 
 import numpy as np
@@ -27,7 +29,9 @@ from spillgauge.estimators._inference import (
 from spillgauge.estimators._switchback_inference import (
     adjacent_pairs,
     block_moments,
+    bound_form,
     dense_block_matrix,
+    sparse_low_rank_moments,
     working_model_df,
 )
 from spillgauge.estimators.estimate import Estimate
@@ -211,11 +215,10 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
     point = float(np.sum(count * np.nan_to_num(difference)))
     block_used = used.any(axis=2)
     n_blocks = int(block_used.sum())
-    variance, parts, forms = 0.0, [], []
+    arms = []
     for k, arm in enumerate((schedule.is_treated, ~schedule.is_treated)):
         blocks = block_used & arm
-        n_arm = int(blocks.sum())
-        if n_arm < 2:
+        if int(blocks.sum()) < 2:
             return degenerate_estimate(method, "an arm has a single block, so the block-level "
                                        "variance is undefined", n_units=n_blocks, point=point)
         chosen = used & arm[:, :, None]
@@ -224,37 +227,88 @@ def switchback_difference(panel: OutcomePanel, schedule: AssignmentSchedule, *,
         residual = np.where(chosen, values - np.nan_to_num(rates[k])[None, None, :] * weights,
                             0.0) * share[None, None, :]
         early = (position < burn_in_ticks) & ~fallbacks[k]
-        psi = residual.sum(axis=2)
-        psi_early = residual[:, :, early].sum(axis=2)
         first, second = adjacent_pairs(blocks, chosen[:, :, early].any(axis=2))
-        users_block = np.where(chosen, weights, 0.0)[blocks]
-        scale = share * np.maximum(np.nan_to_num(rates[k]), 0.0)
-        expected, trace, trace_square = block_moments(users_block, totals[k], scale, early,
-                                                      first, second)
-        if not trace > 1e-12 * expected:
-            return degenerate_estimate(method, "every position of an arm rests on a single "
-                                       "block, so the block-level variance is undefined",
-                                       n_units=n_blocks, point=point)
-        factor = expected / trace
-        psi, psi_early = psi[blocks], psi_early[blocks]
-        arm_term = factor * float(np.sum(psi ** 2) + 2 * np.sum(psi[first] * psi_early[second]))
-        variance += arm_term
-        parts.append((expected, factor ** 2 * trace_square))
-        if n_blocks <= EXACT_DF_BLOCKS:
-            loading, matrix = dense_block_matrix(users_block, totals[k], scale, early, first,
-                                                 second)
-            forms.append(((1.0 if k == 0 else -1.0) * loading, factor * matrix))
+        arms.append(_ArmScores(
+            sign=1.0 if k == 0 else -1.0, psi=residual.sum(axis=2)[blocks],
+            psi_early=residual[:, :, early].sum(axis=2)[blocks], first=first, second=second,
+            users=np.where(chosen, weights, 0.0)[blocks], arm_users=totals[k],
+            scale=share * np.maximum(np.nan_to_num(rates[k]), 0.0), early=early))
+    exact_df = n_blocks <= EXACT_DF_BLOCKS
+    variance, terms, df = _block_variance(arms, confidence, exact_df=exact_df)
+    if variance is None or not variance > 0:
+        # the lag-1 products outweigh the squares (or cancel them: two consecutive blocks
+        # alone in an arm), so the products' bound instead
+        variance, terms, df = _block_variance(arms, confidence, exact_df=exact_df, bound=True)
+    if variance is None:
+        return degenerate_estimate(method, "every position of an arm rests on a single "
+                                   "block, so the block-level variance is undefined",
+                                   n_units=n_blocks, point=point)
     if not variance > 0:
         return degenerate_estimate(method, "the block-level variance is not positive",
                                    n_units=n_blocks, point=point)
-    df = sum(e for e, _ in parts) ** 2 / sum(s for _, s in parts)
-    if forms:
-        df = working_model_df(forms, confidence, fallback=df)
+    arm_term = terms[1]
     estimate = build_estimate(point, variance, confidence=confidence, method=method,
                               n_units=n_blocks, df=df)
     # the control blocks' rate per user over the horizon; its variance is the second arm's term
     return with_control_mean(estimate, float(np.sum(count * np.nan_to_num(rates[1]))),
                              arm_term)
+
+
+@dataclasses.dataclass(frozen=True)
+class _ArmScores:
+    """One arm's block scores and what its working model needs (see ``block_moments``)."""
+
+    sign: float             # +1 treated, -1 control
+    psi: np.ndarray         # (B_a,) the blocks' linearization
+    psi_early: np.ndarray   # (B_a,) the same over the burn-in positions
+    first: np.ndarray       # consecutive blocks of a unit, the second using burn-in hours
+    second: np.ndarray
+    users: np.ndarray       # (B_a, L) N_b where the block is used at position j
+    arm_users: np.ndarray   # (L,) W_aj
+    scale: np.ndarray       # (L,) c_j r_aj / W_aj
+    early: np.ndarray       # (L,) the burn-in positions
+
+
+def _block_variance(arms: list[_ArmScores], confidence: float, *, exact_df: bool,
+                    bound: bool = False) -> tuple[float | None, list[float], float]:
+    """Return the block-level variance, each arm's term and the interval's df.
+
+    ``bound=False``: the squares plus the lag-1 products (unbiased, not always
+    positive); ``bound=True``: each product ``2 xy`` replaced by ``x^2 + y^2``
+    (positive, conservative). Each arm's term carries the factor that makes it
+    unbiased under the working model. None when an arm's model variance has no
+    trace (every position rests on a single block).
+    """
+    variance, terms, parts, forms = 0.0, [], [], []
+    for arm in arms:
+        inputs = (arm.users, arm.arm_users, arm.scale, arm.early, arm.first, arm.second)
+        if bound:
+            loading, diagonal, left, right = bound_form(*inputs)
+            expected = float(np.sum(loading ** 2))
+            trace, trace_square = sparse_low_rank_moments(diagonal, left, right)
+            opens = 1.0 + np.bincount(arm.first, minlength=arm.psi.size)
+            closes = np.bincount(arm.second, minlength=arm.psi.size)
+            raw = float(np.sum(opens * arm.psi ** 2) + np.sum(closes * arm.psi_early ** 2))
+        else:
+            expected, trace, trace_square = block_moments(*inputs)
+            raw = float(np.sum(arm.psi ** 2)
+                        + 2 * np.sum(arm.psi[arm.first] * arm.psi_early[arm.second]))
+        if not trace > 1e-12 * expected:
+            return None, [], math.nan
+        factor = expected / trace
+        terms.append(factor * raw)
+        variance += factor * raw
+        parts.append((expected, factor ** 2 * trace_square))
+        if exact_df:
+            if bound:
+                matrix = np.diag(diagonal) + left @ right.T
+            else:
+                loading, matrix = dense_block_matrix(*inputs)
+            forms.append((arm.sign * loading, factor * matrix))
+    df = sum(e for e, _ in parts) ** 2 / sum(v for _, v in parts)
+    if forms:
+        df = working_model_df(forms, confidence, fallback=df)
+    return variance, terms, df
 
 
 def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:

@@ -32,6 +32,7 @@ from spillgauge.experiment.simulate import ORDERS, POOL_ORDERS, TRUTH
 from spillgauge.files import json_safe
 from spillgauge.formatting import OUTCOME_UNITS, format_number, format_percent, wrap_text
 from spillgauge.panel import OutcomePanel
+from spillgauge.scenario.reading import design_to_dict
 from spillgauge.seeding import RANDOMIZATION_TEST, design_key, stream
 
 __all__ = [
@@ -133,7 +134,7 @@ def study_context(study: str | Path, assignment: Assignment) -> dict:
     label = assignment.spec.label
     designs = {d.get("label"): d for d in summary.get("designs", [])}
     spec = [d for d in saved.get("settings", {}).get("design", []) if d.get("label") == label]
-    mine = {"kind": assignment.spec.kind, "label": label, **assignment.spec.params}
+    mine = design_to_dict(assignment.spec)
     if label not in designs or not spec or spec[0] != json.loads(json.dumps(mine)):
         raise ScenarioError("--study", f"a study holding the design {label!r} with the same "
                             "keys", str(study))
@@ -241,7 +242,9 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
     if math.isfinite(estimate.randomization_p_value):
         lines.append(f"  randomization p-value {format_number(estimate.randomization_p_value)} "
                      f"(Fisher's test of no effect on anyone, {assignment.spec.permutations} "
-                     "re-draws of this design's assignment)")
+                     "re-draws of this design's assignment"
+                     + (", studentized" if assignment.spec.randomization_statistic
+                        == "studentized" else "") + ")")
     if isinstance(estimate.diagnostic, InterferenceDiagnostic):
         d = estimate.diagnostic
         lines.append(f"  test of interference: user half {format_number(d.user_arm_point)}, "

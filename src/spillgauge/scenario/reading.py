@@ -176,6 +176,8 @@ def load_scenario(path: str | Path) -> Scenario:
 
 _LEFT_OUT_AT_DEFAULT = (("users", "basket_value_mean", 1.0), ("users", "basket_value_sd", 0.0),
                         ("study", "outcome", "orders"))
+# design keys added after their kinds, left out at their defaults for the same reason
+_DESIGN_KEYS_LEFT_OUT_AT_DEFAULT = (("randomization_statistic", "estimate"),)
 
 
 def scenario_to_dict(scenario: Scenario) -> dict:
@@ -203,5 +205,13 @@ def scenario_to_dict(scenario: Scenario) -> dict:
 
 
 def design_to_dict(spec: DesignSpec) -> dict:
-    """Return a design's table (kind, label and every key its kind declares) as plain data."""
-    return {"kind": spec.kind, "label": spec.label, **spec.params}
+    """Return a design's table (kind, label and every key its kind declares) as plain data.
+
+    Keys added to a kind after it shipped are left out at their defaults, so a design
+    that does not use them keeps its table (and its folders' fingerprints).
+    """
+    params = spec.params
+    for key, default in _DESIGN_KEYS_LEFT_OUT_AT_DEFAULT:
+        if key in params and params[key] == default:
+            del params[key]
+    return {"kind": spec.kind, "label": spec.label, **params}
