@@ -167,8 +167,10 @@ def test_analyze_gives_the_studys_randomization_p_value(design, tmp_path):
                      tmp_path)
     analysis = analyze_experiment(tmp_path)
     assert same_estimate(analysis.estimate, expected)
-    line = next(x for x in analysis_text(analysis).splitlines()
-                if "randomization p-value" in x)
+    lines = analysis_text(analysis).splitlines()
+    first = next(i for i, x in enumerate(lines) if "randomization p-value" in x)
+    rest = [x for x in lines[first + 1:first + 3] if x.startswith("    ")]  # wrapped on
+    line = " ".join(x.strip() for x in [lines[first], *rest])
     assert line.endswith("39 re-draws of this design's assignment"
                          + (", studentized)" if "randomization_statistic" in design else ")"))
 
