@@ -91,7 +91,7 @@ def make_design_spec(kind: str, values: Mapping[str, object] | None = None, /, *
     >>> make_design_spec("user", blocks=3)
     Traceback (most recent call last):
     ...
-    spillgauge.errors.ScenarioError: design[0].blocks must be a known key (one of adjust, inference, kind, label, permutations, pre_period_strata, randomization, share, strata); got 'blocks'
+    spillgauge.errors.ScenarioError: design[0].blocks must be a known key (one of adjust, inference, kind, label, permutations, pre_period_strata, randomization, randomization_statistic, share, strata); got 'blocks'
     """
     at = f"design[{index}]"
     values = {**(values or {}), **more}
