@@ -212,3 +212,17 @@ def test_the_answer_names_the_outcome_it_detects():
            "rmse": 1.0, "chosen": True}
     text = answer_plan([row], power=0.8, horizon_days=28, unit="revenue per user")
     assert "(12.5 revenue per user over 7 days)" in text and "orders" not in text
+
+
+def test_the_cuped_line_gives_the_reason_without_nested_brackets():
+    # The trust rule's reason carries its own "(needs ...)"; the sentence around it adds none.
+    from spillgauge.plan.answer import answer_cuped
+
+    rows = [{"label": "user", "kind": "user", "is_user_level": True, "days": 7,
+             "trusted": False, "recommendable": True,
+             "why_not_trusted": "covers the GTE in 0.0% of replications (needs 90.0%)"}]
+    text = answer_cuped(rows, [{"days": 7, "variance_factor": 0.36}], power=0.8, alpha=0.05)
+    assert "keeps 36% of the user-level variance at 7 days" in text
+    assert "not trusted in this scenario: it covers the GTE in 0.0% of replications " \
+           "(needs 90.0%); adjustment" in text
+    assert "))" not in text

@@ -146,8 +146,9 @@ def answer_cuped(rows: list[dict], cuped: list[dict], *, power: float, alpha: fl
             f"(1 - rho^2, rho = {format_number(math.sqrt(max(1 - factor, 0)))} between "
             f"{_PAIRS[outcome]}{'; ' + seen if seen else ''})")
     if not at["trusted"]:
-        return (f"{lead}, but {label} is not trusted in this scenario ({at['why_not_trusted']}) "
-                f"and adjustment does not remove bias, so it does not shorten the test.")
+        return (f"{lead}, but {label} is not trusted in this scenario: it "
+                f"{at['why_not_trusted']}; adjustment does not remove bias, so it does not "
+                "shorten the test.")
     return f"{lead}: {_projected_reach(user, factors, power=power, alpha=alpha, unit=unit)}"
 
 
