@@ -89,7 +89,8 @@ def with_launch_control_mean(estimate: Estimate, series: np.ndarray, users: np.n
     error against their all-control mean is minus the effect's error:
     ``Var(C) = Var(point)``, ``Cov(point, C) = -Var(point)`` (ours; then the
     delta method of :func:`~spillgauge.estimators.relative.relative_effect` gives
-    ``se(R) = se(point) O / C^2``).
+    ``se(R) = se(point) O / C^2``, and its Fieller interval is bounded while ``C``
+    exceeds ``q se(point)``).
     """
     observed = float(group_series(series, users, launched)[n_pre:].sum())
     return with_control_mean(estimate, observed - estimate.point, estimate.standard_error ** 2)

@@ -235,7 +235,7 @@ def analysis_text(analysis: ExperimentAnalysis) -> str:
         lines.append(f"  relative to the control mean {format_number(estimate.control_mean)}: "
                      f"{format_percent(relative.point, sign=True)}, {level} interval "
                      f"[{format_percent(relative.ci_low, sign=True)}, "
-                     f"{format_percent(relative.ci_high, sign=True)}] (delta method)")
+                     f"{format_percent(relative.ci_high, sign=True)}] (Fieller)")
     lines += [
              "  p-value " + (format_number(estimate.p_value) if math.isfinite(estimate.p_value)
                              else "n/a (the estimator gives none)")]

@@ -183,7 +183,7 @@ def _designs(study, summary: dict) -> str:
     note = (f"<p>Over {summary['reps']:,} replications. Estimates, bias, SD, RMSE and CI "
             f"width are in {_e(outcome_unit(summary))} over the horizon; the relative columns "
             "give each replication's effect as a share of the design's own estimate of the "
-            "control mean, with a delta-method interval, against the relative GTE; small grey "
+            "control mean, with a Fieller interval, against the relative GTE; small grey "
             "numbers are "
             f"Monte Carlo standard errors. A design is trusted when its {1 - alpha:.0%} "
             "confidence interval covers the GTE nearly as often as promised and its bias is "

@@ -299,7 +299,7 @@ def study_markdown(study) -> str:
              f"{summary['reps']} replications, seed {summary['seed']}. True GTE "
              f"**{gte_sentence(truth, summary)}** over the horizon. The last three "
              "columns give the effect as a share of each design's own control mean "
-             "(delta-method interval) against the relative GTE.", "",
+             "(Fieller interval) against the relative GTE.", "",
              "| " + " | ".join(rows[0]) + " |", "|" + "---|" * len(rows[0])]
     lines += ["| " + " | ".join(r) + " |" for r in rows[1:]]
     lines += ["", SD_RMSE_NOTE]

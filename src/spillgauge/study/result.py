@@ -72,7 +72,7 @@ class DesignSummary:
         Whether the design's estimator compares periods of time (the kind's flag).
     relative : DesignMetrics or None
         The same metrics for the effect as a share of the control mean: each
-        replication's ``estimate_relative`` (with its delta-method interval) against
+        replication's ``estimate_relative`` (with its Fieller interval) against
         that replication's ``gte_relative`` (a launch: its own estimand's relative
         truth); None when the design's estimator gives no control mean.
     """
