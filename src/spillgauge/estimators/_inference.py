@@ -147,7 +147,7 @@ def degenerate_estimate(method: str, reason: str, *, n_units: int,
     >>> est.point, est.standard_error, caught[0].category.__name__
     (nan, nan, 'DegenerateEstimateWarning')
     """
-    warnings.warn(f"{method}: {reason}; returning NaN", DegenerateEstimateWarning, stacklevel=3)
+    warnings.warn(f"{method}: {reason}", DegenerateEstimateWarning, stacklevel=3)
     return Estimate(point=float(point), standard_error=math.nan, ci_low=math.nan,
                     ci_high=math.nan, method=method, n_units=int(n_units))
 
