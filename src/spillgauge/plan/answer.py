@@ -42,8 +42,8 @@ def answer_plan(rows: list[dict], *, power: float, horizon_days: int,
                     "whether fewer days suffice." if first else "")
             return (f"Run it for at least {d} days with {best['label']}: it is trusted there "
                     f"and detects the scenario's effect ({format_number(best['gte'])} {unit} "
-                    f"over {d} days) with power {format_percent(best['power'])} "
-                    f"\u00b1 {format_percent(best['power_se'])} against the {power:.0%} "
+                    f"over {d} days) with power {format_percent(best['power'])} (Monte Carlo "
+                    f"SE {format_percent(best['power_se'])}) against the {power:.0%} "
                     f"target; its minimum detectable effect at {power:.0%} power is "
                     f"{format_number(best['mde'])} {unit} "
                     f"({format_percent(best['mde_relative'])} of the control mean).{note}")

@@ -178,7 +178,8 @@ def _explain_choice(chosen, best, ranked, gte, gte_se, alpha, unit) -> str:
     m = chosen.metrics
     params = ", ".join(f"{k}={v}" for k, v in chosen.params.items())
     where = f"{chosen.label}: {params}" if params else chosen.label
-    gte_text = f"{format_number(gte)} ± {format_number(gte_se)}" if math.isfinite(gte_se) else format_number(gte)
+    gte_text = (f"{format_number(gte)}, Monte Carlo SE {format_number(gte_se)}"
+                if math.isfinite(gte_se) else format_number(gte))
     n_point = max(m.n_estimates, m.n_reps)  # metrics built without n_estimates carry 0
     among = "" if n_point == m.n_reps else f" (in the {m.n_reps} that gave an interval)"
     sentences = [
@@ -215,7 +216,8 @@ def _versus_user(chosen, user, gte, unit) -> list[str]:
     is_biased = abs(u.bias) > 2 * _zero_nan(u.bias_se)
     if not is_biased:
         first = (f"The user-level design ({user.label}) shows no clear bias "
-                 f"({format_number(u.bias, sign=True)} ± {format_number(u.bias_se)} {unit}) but has "
+                 f"({format_number(u.bias, sign=True)} {unit}, Monte Carlo SE "
+                 f"{format_number(u.bias_se)}) but has "
                  f"RMSE {format_number(u.rmse)} against {format_number(m.rmse)}.")
     elif u.mean_estimate != 0 and 0 < u.bias / u.mean_estimate <= 1:
         first = (f"{u.bias / u.mean_estimate:.0%} of the user-level estimate of "
