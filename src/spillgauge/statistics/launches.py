@@ -126,8 +126,15 @@ def summarise_launch_fit(diagnostics: list) -> dict[str, float]:
     return out
 
 
-def launch_fit_sentence(label: str, fit: dict[str, float]) -> str:
+# what the launched pools' daily series counts, per user and day, for each outcome
+_DAILY_UNITS = {"orders": "orders per user-day", "revenue": "revenue per user-day",
+                "conversion": "first orders per user-day"}
+
+
+def launch_fit_sentence(label: str, fit: dict[str, float], *, outcome: str = "orders") -> str:
     """Return one sentence on a launch analysis's balance, overlap or pre-launch fit.
+
+    ``outcome`` (the study's) names the unit of the pre-launch fit.
 
     Examples
     --------
@@ -136,6 +143,8 @@ def launch_fit_sentence(label: str, fit: dict[str, float]) -> str:
     'opt-in-matching: pre-period orders differ by SMD +0.62 before and +0.01 after adjustment (balanced: |SMD| < 0.1, Austin 2009); 0.3% of opted-in users have a propensity score outside the range of the others; matching leaves out 1.2% of them.'
     >>> launch_fit_sentence("launch-sc", {"pre_rmspe": 0.02, "post_rmspe": 0.05})
     'launch-sc: the comparison tracks the launched pools within 0.02 orders per user-day before the launch and 0.05 after (RMSPE; ratio 2.5).'
+    >>> launch_fit_sentence("launch-sc", {"pre_rmspe": 1.5}, outcome="revenue")
+    'launch-sc: the comparison tracks the launched pools within 1.5 revenue per user-day before the launch.'
     """
     parts = []
     if "smd_before" in fit:
@@ -154,7 +163,8 @@ def launch_fit_sentence(label: str, fit: dict[str, float]) -> str:
         parts.append(f"matching leaves out {format_percent(fit['unmatched_share'])} of them")
     if "pre_rmspe" in fit:
         text = (f"the comparison tracks the launched pools within "
-                f"{format_number(fit['pre_rmspe'])} orders per user-day before the launch")
+                f"{format_number(fit['pre_rmspe'])} {_DAILY_UNITS.get(outcome, outcome)} "
+                "before the launch")
         if "post_rmspe" in fit:
             ratio = (fit["post_rmspe"] / fit["pre_rmspe"] if fit["pre_rmspe"] > 0
                      else math.inf)

@@ -70,6 +70,8 @@ class DesignSummary:
         fields that were measured); empty otherwise.
     compares_periods : bool
         Whether the design's estimator compares periods of time (the kind's flag).
+    outcome : str
+        The study's outcome (``study.outcome``), for the words of the fit note.
     relative : DesignMetrics or None
         The same metrics for the effect as a share of the control mean: each
         replication's ``estimate_relative`` (with its Fieller interval) against
@@ -95,6 +97,7 @@ class DesignSummary:
     launch_fit: dict = field(default_factory=dict)
     relative: DesignMetrics | None = None
     compares_periods: bool = False
+    outcome: str = "orders"
 
     def to_dict(self) -> dict:
         """Return the design's entry of ``summary.json``."""
@@ -107,7 +110,8 @@ class DesignSummary:
             entry["left_out_effect"] = json_safe(self.left_out_effect)
             if self.launch_fit:
                 entry["balance_and_fit"] = json_safe(self.launch_fit)
-                entry["fit_note"] = launch_fit_sentence(self.label, self.launch_fit)
+                entry["fit_note"] = launch_fit_sentence(self.label, self.launch_fit,
+                                                        outcome=self.outcome)
         if self.interference is not None:
             entry["interference_test"] = json_safe(self.interference.to_dict())
         if self.relative is not None:
@@ -247,7 +251,7 @@ def _design_params(spec: DesignSpec) -> dict:
 
 
 def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: np.ndarray,
-                      alpha: float, outcome_scale: float) -> DesignSummary:
+                      alpha: float, outcome_scale: float, outcome: str) -> DesignSummary:
     kind = kind_of(spec)
     estimates = [r.runs[spec.label].estimate for r in results]
     column = {name: np.array([getattr(e, name) for e in estimates], dtype=float)
@@ -290,7 +294,7 @@ def _summarise_design(spec: DesignSpec, results: list[ReplicationResult], gte: n
                          estimand=kind.estimand, truth=float(np.mean(gte)),
                          left_out_effect=left_out, is_randomized=kind.is_randomized,
                          question=kind.question, relative=relative,
-                         compares_periods=kind.compares_periods,
+                         compares_periods=kind.compares_periods, outcome=outcome,
                          launch_fit=summarise_launch_fit(
                              [e.diagnostic if isinstance(e.diagnostic, LaunchDiagnostic) else None
                               for e in estimates]))
@@ -305,7 +309,8 @@ def summarise_study(scenario: Scenario, seed: int, results: list[ReplicationResu
     alpha = scenario.study.alpha
     # the outcome's scale, for tolerances: fulfilled orders per user in the busier world
     outcome_scale = max(abs(truth.control_mean), abs(truth.treated_mean))
-    designs = {spec.label: _summarise_design(spec, results, gte, alpha, outcome_scale)
+    designs = {spec.label: _summarise_design(spec, results, gte, alpha, outcome_scale,
+                                             scenario.study.outcome)
                for spec in scenario.designs}
     candidates = []
     for d in designs.values():
