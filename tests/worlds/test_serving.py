@@ -133,3 +133,40 @@ def test_unkept_events_match_each_events_probability(lift):
         assert unkept.events.tolist() == np.flatnonzero(~live_kept).tolist()
         if unkept.in_differ is not None:
             assert np.array_equal(live.differ[unkept.in_differ], unkept.events)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_lost_orders_when_demand_meets_stock_exactly(seed):
+    # Against an event-by-event loop (a pool serves its orders in arrival order while it has
+    # stock; docs/model.md "Service"): stock at each segment's start is set per group to
+    # exactly the group's orders, one less, one more or 0, so a group runs out on its last
+    # order, one order before it, not at all, or at once. Pool 5 has no events, the world
+    # drops the first and the last event, and one world keeps nothing, another everything.
+    rng = np.random.default_rng([41, seed])
+    pool, segment_starts = _events(rng, n_segments=5, n_pools=5, size=200)
+    n_events, n_pools = pool.size, 6
+    starts = group_starts(pool, segment_starts, n_pools)
+    assert (starts[:, 5] == starts[:, 6]).all()  # pool 5's groups are empty
+    for kept in (rng.random(n_events) < 0.6, np.zeros(n_events, bool), np.ones(n_events, bool)):
+        if 0 < kept.sum() < n_events:
+            kept[[0, -1]] = False
+        unkept = np.flatnonzero(~kept)
+        before, orders = orders_per_group(unkept, starts)
+        shift = rng.choice([0, -1, 1, -10**6], size=orders.shape)
+        level = np.maximum(orders + shift, 0)
+        served = np.minimum(orders, level)
+        slow_lost = []
+        for s in range(segment_starts.size - 1):
+            stock = level[s].copy()
+            for i in range(segment_starts[s], segment_starts[s + 1]):
+                if kept[i]:
+                    if stock[pool[i]] > 0:
+                        stock[pool[i]] -= 1
+                    else:
+                        slow_lost.append(i)
+        lost = lost_orders(unkept, kept_mask(n_events, unkept), starts, before, orders, served)
+        assert lost.tolist() == slow_lost
+        assert lost.dtype == np.int64
+        if kept.all():  # exactly as many orders as stock: none lost from such a group
+            exact = (shift == 0) & (orders > 0)
+            assert exact.any()
