@@ -60,12 +60,26 @@ def format_value(value: object) -> str:
     return f"{float(value):g}"
 
 
+def _format_template(template: str, value: object) -> str:
+    """Format ``value`` with ``template``; a whole-percent template that would print a nonzero
+    value as 0% prints it with one decimal instead ("-0.1%", not "-0%")."""
+    text = template.format(value)
+    if (".0%" in template and text.lstrip("+-") == "0%" and isinstance(value, float)
+            and math.isfinite(value) and value != 0):
+        text = template.replace(".0%", ".1%").format(value)
+    return text
+
+
 def format_cell(template: str, value: object) -> str:
-    """Format a table cell with ``template``; ``n/a`` for None, the value as text if it won't fit."""
+    """Format a table cell with ``template``; ``n/a`` for None, the value as text if it won't fit.
+
+    >>> format_cell("{:+.0%}", -0.0012), format_cell("{:+.0%}", 0.0), format_cell("{:+.0%}", 0.03)
+    ('-0.1%', '+0%', '+3%')
+    """
     if value is None:
         return "n/a"
     try:
-        return template.format(value)
+        return _format_template(template, value)
     except (ValueError, TypeError):
         return str(value)
 
@@ -78,7 +92,7 @@ def format_quantity(value: object, template: str = "{:.4g}") -> str:
         return str(value)
     if isinstance(value, int):
         return f"{value:,}"
-    return template.format(value) if value == value else "n/a"
+    return _format_template(template, value) if value == value else "n/a"
 
 
 def wrap_text(text: str, width: int = TEXT_WIDTH, *, indent: str = "") -> str:
