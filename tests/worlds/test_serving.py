@@ -31,11 +31,16 @@ def _events(rng, n_segments=4, n_pools=5, size=300):
     return pool[order], segment_starts
 
 
-def test_group_starts_match_a_loop(rng):
-    pool, segment_starts = _events(rng)
-    starts = group_starts(pool, segment_starts, 5)
+@pytest.mark.parametrize("size", [300, 6, 0])
+def test_group_starts_match_a_loop(rng, size):
+    # against a loop; 6 events over 4 segments and 7 pools leave pools (and likely segments)
+    # without events; size 0 has none
+    pool, segment_starts = _events(rng, size=size)
+    starts = group_starts(pool, segment_starts, 7)
+    assert starts.shape == (segment_starts.size - 1, 8)
+    assert (starts[:, -1] == segment_starts[1:]).all()
     for s in range(segment_starts.size - 1):
-        for p in range(5):
+        for p in range(7):
             members = [i for i in range(segment_starts[s], segment_starts[s + 1])
                        if pool[i] == p]
             assert list(range(starts[s, p], starts[s, p + 1])) == members
