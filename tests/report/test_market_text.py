@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from importlib import resources
 
+import pytest
+
 from spillgauge.market.build import build_market
 from spillgauge.report.text import market_text
 from spillgauge.study.market_summary import summarise_market
@@ -51,3 +53,31 @@ def test_new_template_shows_every_demand_key():
         body = template.split(f"[{section}]")[1].split("\n[")[0]
         for key in keys:
             assert f"\n{key} = " in body, (section, key)
+
+
+def test_check_says_when_a_trend_makes_stock_bind_late():
+    # Stock levels come from the base demand (docs/model.md, stock pools); with a trend g
+    # demand at the horizon is (1 + g)^(hours / 168) times the start (docs/model.md, trend),
+    # here 1.2^4 = 2.0736 over 28 days, so a start cover of ~1.5 is ~0.72 on the last cycle.
+    def supply(trend):
+        scenario = make_scenario(users={"count": 300},
+                                 calendar={"days": 28, "trend_per_week": trend},
+                                 pools={"count": 6, "stock_cover": 1.5},
+                                 effect={"lift": 0.0, "peer_lift": 0.0})
+        market = summarise_market(build_market(scenario, 1))
+        lines = market_text(scenario, market).splitlines()
+        start = next(i for i, line in enumerate(lines) if line.strip().startswith("->"))
+        end = next(i for i in range(start + 1, len(lines)) if not lines[i].startswith(" " * 12))
+        return market, " ".join(line.strip() for line in lines[start:end])
+
+    market, flat = supply(0.0)
+    assert market["demand_growth_by_end"] == 1.0
+    assert flat == "-> stock covers expected demand in both worlds (stock-outs only by chance)"
+    market, growing = supply(0.2)
+    assert market["demand_growth_by_end"] == pytest.approx(1.2 ** 4, rel=1e-12)
+    cover = market["cover_all_control"]["median"]
+    assert cover > 1 > cover / 1.2 ** 4
+    assert growing.startswith("-> stock covers expected demand at the start, but demand grows "
+                              "107% by the end (trend +20.0% a week), so stock binds on late "
+                              "cycles even with no one treated")
+    assert f"{cover / 1.2 ** 4:.2f} with no one treated" in growing

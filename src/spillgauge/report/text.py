@@ -72,7 +72,17 @@ def market_text(scenario, market: dict) -> str:
                  if cc["median"] < 1 else
                  "stock binds when everyone is treated" if ct["median"] < 1 else
                  "stock covers expected demand in both worlds (stock-outs only by chance)")
-        lines.append(f"            -> {tight}")
+        growth = market.get("demand_growth_by_end", 1.0)
+        if growth > 1 and ct["median"] >= 1 > ct["median"] / growth:
+            # the covers are at the trend's starting level; demand grows over the horizon
+            late = ("even with no one treated" if cc["median"] / growth < 1
+                    else "when everyone is treated")
+            tight = (f"stock covers expected demand at the start, but demand grows "
+                     f"{growth - 1:.0%} by the end (trend {scenario.calendar.trend_per_week:+.1%}"
+                     f" a week), so stock binds on late cycles {late} (median cover on the "
+                     f"last cycle {cc['median'] / growth:.2f} with no one treated, "
+                     f"{ct['median'] / growth:.2f} with everyone)")
+        lines.append(wrap_text(f"            -> {tight}", indent="               "))
     clusters = ", ".join(f"{k} {v:,}" for k, v in market["clusters"].items())
     lines.append(f"clusters    {clusters}")
     effect = scenario.effect

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from spillgauge.market.build import Market
+from spillgauge.market.calendar import trend_multiplier
 
 __all__ = ["summarise_market", "sample_clustering"]
 
@@ -44,7 +45,9 @@ def summarise_market(market: Market, *, communities: bool | None = None) -> dict
     Supply tightness is each pool's order-up-to level S over its expected demand
     per restock cycle, with everyone untreated and with everyone treated (own
     lift, and peer lift for users with neighbours): a cover below 1 means stock
-    binds on an average cycle.
+    binds on an average cycle. ``demand_growth_by_end`` is the calendar trend's
+    demand multiplier at the horizon (1 without a trend): a cover divided by it is
+    the cover on the last cycle.
     """
     scenario = market.scenario
     population = market.population
@@ -87,5 +90,8 @@ def summarise_market(market: Market, *, communities: bool | None = None) -> dict
         "cover_all_treated": {"min": float(cover_treated[finite].min()) if finite.any() else None,
                               "median": float(np.median(cover_treated[finite]))
                               if finite.any() else None},
+        "demand_growth_by_end": float(trend_multiplier(
+            np.array([float(market.n_ticks * market.tick_hours)]),
+            scenario.calendar.trend_per_week)[0]),
         "clusters": clusters,
     }
