@@ -95,8 +95,6 @@ def test_estimate_equals_the_weighted_two_way_fixed_effects_regression(seed):
     # weights omega_i lambda_t (Arkhangelsky et al. 2021, eq. 1.1): launched pools weighted by
     # their users' shares, post-launch days by 1 / T_post. Reference: statsmodels WLS on
     # unit and day dummies.
-    import statsmodels.api as sm
-
     panel, schedule, _ = _panel(seed, lift=0.1)
     series, users, launched, n_pre = pool_day_series(panel, schedule, "test")
     tau, omega, lam = synthetic_did_fit(series, users, launched, n_pre)
@@ -105,16 +103,10 @@ def test_estimate_equals_the_weighted_two_way_fixed_effects_regression(seed):
     unit_weight[~launched] = omega
     unit_weight[launched] = users[launched] / users[launched].sum()
     day_weight = np.concatenate([lam, np.full(n_days - n_pre, 1 / (n_days - n_pre))])
-    unit, day = np.meshgrid(np.arange(n_units), np.arange(n_days), indexing="ij")
-    treated = (launched[unit] & (day >= n_pre)).astype(float).ravel()
-    weight = (unit_weight[unit] * day_weight[day]).ravel()
-    keep = weight > 0  # zero-weight cells drop out; so do their units' and days' dummies
-    units = np.eye(n_units)[unit.ravel()][keep][:, unit_weight > 0]
-    days = np.eye(n_days)[day.ravel()][keep][:, day_weight > 0][:, 1:]
-    design = np.column_stack([treated[keep], units, days])
-    fit = sm.WLS(series.ravel()[keep], design, weights=weight[keep]).fit()
-    assert np.linalg.matrix_rank(design) == design.shape[1]
-    assert tau == pytest.approx(fit.params[0], abs=1e-8)
+    reference, rank, columns = _weighted_twfe_fit(series, unit_weight, day_weight, launched,
+                                                  n_pre)
+    assert rank == columns
+    assert tau == pytest.approx(reference, abs=1e-8)
     # and the estimator scales it to orders per user over the post-launch days
     estimate = synthetic_difference_in_differences(panel, schedule)
     assert estimate.point == pytest.approx(tau * (n_days - n_pre))
@@ -160,17 +152,23 @@ def test_noiseless_parallel_series_give_the_effect_exactly():
 
 def _weighted_twfe_tau(series, unit_weight, day_weight, treated_units, n_pre):
     """Launch coefficient of Y_it ~ alpha_i + beta_t + tau W_it, WLS weights w_i l_t (statsmodels)."""
+    return _weighted_twfe_fit(series, unit_weight, day_weight, treated_units, n_pre)[0]
+
+
+def _weighted_twfe_fit(series, unit_weight, day_weight, treated_units, n_pre):
+    """Return that coefficient, the rank of the dummy design and its number of columns."""
     import statsmodels.api as sm
 
     n_units, n_days = series.shape
     unit, day = np.meshgrid(np.arange(n_units), np.arange(n_days), indexing="ij")
     treated = (treated_units[unit] & (day >= n_pre)).astype(float).ravel()
     weight = (unit_weight[unit] * day_weight[day]).ravel()
-    keep = weight > 0
+    keep = weight > 0  # zero-weight cells drop out; so do their units' and days' dummies
     units = np.eye(n_units)[unit.ravel()][keep][:, unit_weight > 0]
     days = np.eye(n_days)[day.ravel()][keep][:, day_weight > 0][:, 1:]
     design = np.column_stack([treated[keep], units, days])
-    return sm.WLS(series.ravel()[keep], design, weights=weight[keep]).fit().params[0]
+    tau = sm.WLS(series.ravel()[keep], design, weights=weight[keep]).fit().params[0]
+    return tau, np.linalg.matrix_rank(design), design.shape[1]
 
 
 @pytest.mark.parametrize("seed", [7, 8])

@@ -12,6 +12,16 @@ from tests.conftest import make_scenario
 N_SEEDS = 200
 
 
+def _null_estimates(scenario, label, folder):
+    """Yield, per seed, the estimate analyze reads back from a simulated null experiment."""
+    for seed in range(N_SEEDS):
+        out = folder / str(seed)
+        experiment = simulate_experiment(scenario, label, seed=seed, start="2027-03-01")
+        assert experiment.truth.gte == 0.0
+        write_experiment(experiment, out)
+        yield analyze_experiment(out).estimate
+
+
 @pytest.mark.slow
 @pytest.mark.parametrize("label", ["user", "cluster-pools", "switchback-24h",
                                    "user-strata-pools", "user-cuped-strata-pre"])
@@ -27,12 +37,7 @@ def test_intervals_from_files_cover_a_null_effect(tmp_path, label):
                                       {"kind": "user", "strata": "pools"},
                                       {"kind": "user", "strata": "pre_period", "adjust": True}])
     covered = usable = 0
-    for seed in range(N_SEEDS):
-        out = tmp_path / str(seed)
-        experiment = simulate_experiment(scenario, label, seed=seed, start="2027-03-01")
-        assert experiment.truth.gte == 0.0
-        write_experiment(experiment, out)
-        estimate = analyze_experiment(out).estimate
+    for estimate in _null_estimates(scenario, label, tmp_path):
         if estimate.ci_low == estimate.ci_low:
             usable += 1
             covered += estimate.ci_low <= 0.0 <= estimate.ci_high
@@ -63,12 +68,7 @@ def test_other_outcomes_from_files_cover_a_null_effect(tmp_path, outcome, label)
     # SE of 0 (a few conversion switchbacks: conversion falls day by day, so the control
     # days' mean is noisy); where it exists it covers 0 exactly when the effect's does.
     covered = relative_covered = usable = relative_usable = 0
-    for seed in range(N_SEEDS):
-        out = tmp_path / str(seed)
-        experiment = simulate_experiment(scenario, label, seed=seed, start="2027-03-01")
-        assert experiment.truth.gte == 0.0
-        write_experiment(experiment, out)
-        estimate = analyze_experiment(out).estimate
+    for estimate in _null_estimates(scenario, label, tmp_path):
         relative = relative_effect(estimate)
         if estimate.ci_low == estimate.ci_low:
             usable += 1

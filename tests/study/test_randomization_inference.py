@@ -181,6 +181,17 @@ def test_user_design_agrees_with_exact_enumeration():
     _assert_matches_exact(estimate.randomization_p_value, exact, 4000)
 
 
+def _market_switchback(orders, arms, block: int):
+    """A one-market panel of hourly orders and its switchback of Bernoulli(1/2) blocks."""
+    arms = np.array(arms, dtype=bool)
+    panel = OutcomePanel.from_arrays(fulfilled=orders[None, :])
+    schedule = AssignmentSchedule(
+        unit_of_user=np.zeros(1, dtype=np.int64), is_treated=arms[None, :],
+        period_start_ticks=np.arange(arms.size) * block, n_ticks=arms.size * block,
+        treated_probability=0.5, unit_kind="market", randomization="bernoulli")
+    return panel, schedule
+
+
 def test_switchback_agrees_with_exact_enumeration():
     # A market switchback of 6 daily blocks, each Bernoulli(1/2): all 2^6 = 64 arm
     # sequences are equally likely (Bojinov, Simchi-Levi & Zhao 2023); sequences with one
@@ -190,12 +201,7 @@ def test_switchback_agrees_with_exact_enumeration():
     orders = rng.poisson(20.0, size=n_blocks * block)
     orders[:block] += 6
     orders[2 * block:3 * block] += 6
-    panel = OutcomePanel.from_arrays(fulfilled=orders[None, :])
-    arms = np.array([1, 0, 1, 0, 0, 1], dtype=bool)
-    schedule = AssignmentSchedule(
-        unit_of_user=np.zeros(1, dtype=np.int64), is_treated=arms[None, :],
-        period_start_ticks=np.arange(n_blocks) * block, n_ticks=n_blocks * block,
-        treated_probability=0.5, unit_kind="market", randomization="bernoulli")
+    panel, schedule = _market_switchback(orders, [1, 0, 1, 0, 0, 1], block)
     spec = make_design_spec("switchback", {"inference": "randomization",
                                            "permutations": 1500})
     with warnings.catch_warnings():
@@ -220,12 +226,7 @@ def test_studentized_switchback_agrees_with_exact_enumeration():
     orders = rng.poisson(20.0, size=n_blocks * block)
     orders[block + 12:2 * block] += 5
     orders[3 * block + 12:4 * block] += 5
-    panel = OutcomePanel.from_arrays(fulfilled=orders[None, :])
-    arms = np.array([0, 1, 1, 1, 0, 0], dtype=bool)
-    schedule = AssignmentSchedule(
-        unit_of_user=np.zeros(1, dtype=np.int64), is_treated=arms[None, :],
-        period_start_ticks=np.arange(n_blocks) * block, n_ticks=n_blocks * block,
-        treated_probability=0.5, unit_kind="market", randomization="bernoulli")
+    panel, schedule = _market_switchback(orders, [0, 1, 1, 1, 0, 0], block)
     spec = make_design_spec("switchback", {"inference": "randomization", "burn_in_hours": 12,
                                            "permutations": 1500,
                                            "randomization_statistic": "studentized"})

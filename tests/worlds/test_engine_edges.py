@@ -18,16 +18,15 @@ import dataclasses
 import numpy as np
 import pytest
 
-from spillgauge.designs import draw_switchback_schedule, draw_user_schedule
 from spillgauge.market.build import build_market
 from spillgauge.market.calendar import stock_event_hours
-from spillgauge.schedule import AssignmentSchedule
 from spillgauge.worlds.engine import draw_candidates, simulate_worlds
 from tests.worlds.test_reference_engine import (
     FIELDS,
     _reference_pool_shocks,
     _reference_shocks,
     _tight,
+    basic_schedules,
     reference_world,
 )
 
@@ -66,17 +65,11 @@ EDGE_CASES = {
 
 
 def _schedules(market, seed):
-    """All control, all treated, users, a market-wide switchback and a per-pool one."""
-    n, n_ticks = market.n_users, market.scenario.calendar.n_ticks
-    rng = np.random.default_rng(seed)
-    schedules = [AssignmentSchedule.fixed(n_users=n, n_ticks=n_ticks, is_treated=b)
-                 for b in (False, True)]
-    schedules.append(draw_user_schedule(n, n_ticks, rng=rng))
-    schedules.append(draw_switchback_schedule(np.zeros(n, dtype=np.int64), n_ticks,
-                                              block_ticks=max(1, n_ticks // 9), rng=rng))
-    schedules.append(draw_switchback_schedule(market.pool_of_user, n_ticks,
-                                              block_ticks=max(1, n_ticks // 13), rng=rng))
-    return schedules
+    """The reference's basic schedules, with blocks scaled to the horizon (day ticks)."""
+    n_ticks = market.scenario.calendar.n_ticks
+    return basic_schedules(market, np.random.default_rng(seed),
+                           market_block_ticks=max(1, n_ticks // 9),
+                           pool_block_ticks=max(1, n_ticks // 13))
 
 
 def _check_against_reference(market, seed):

@@ -205,16 +205,23 @@ CASES = {
 }
 
 
-def _schedules(market, seed):
+def basic_schedules(market, rng, *, market_block_ticks=5, pool_block_ticks=3):
+    """All control, all treated, users, a market-wide switchback and a per-pool one."""
     n, n_ticks = market.n_users, market.scenario.calendar.n_ticks
-    rng = np.random.default_rng(seed)
     schedules = [AssignmentSchedule.fixed(n_users=n, n_ticks=n_ticks, is_treated=b)
                  for b in (False, True)]
     schedules.append(draw_user_schedule(n, n_ticks, rng=rng))
     schedules.append(draw_switchback_schedule(np.zeros(n, dtype=np.int64), n_ticks,
-                                              block_ticks=5, rng=rng))
-    schedules.append(draw_switchback_schedule(market.pool_of_user, n_ticks, block_ticks=3,
-                                              rng=rng))
+                                              block_ticks=market_block_ticks, rng=rng))
+    schedules.append(draw_switchback_schedule(market.pool_of_user, n_ticks,
+                                              block_ticks=pool_block_ticks, rng=rng))
+    return schedules
+
+
+def _schedules(market, seed):
+    n_ticks = market.scenario.calendar.n_ticks
+    rng = np.random.default_rng(seed)
+    schedules = basic_schedules(market, rng)
     schedules.append(draw_cluster_schedule(market.pool_of_user, n_ticks, unit_kind="pool",
                                            rng=rng))
     if market.adjacency.nnz:

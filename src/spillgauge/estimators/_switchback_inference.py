@@ -14,7 +14,7 @@ import math
 import numpy as np
 from scipy import optimize, sparse, special, stats
 
-__all__ = ["adjacent_pairs", "block_moments", "bound_form", "dense_block_matrix",
+__all__ = ["adjacent_pairs", "block_moments", "bound_form", "bound_weights", "dense_block_matrix",
            "probability_not_positive", "sparse_low_rank_moments", "working_model_df"]
 
 
@@ -101,6 +101,17 @@ def block_moments(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarr
     return float(np.sum(a ** 2)), trace, trace_square
 
 
+def bound_weights(first: np.ndarray, second: np.ndarray, n_blocks: int
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Return the bound's weights on ``psi_b^2`` and ``(psi_b^E)^2`` (see :func:`bound_form`).
+
+    ``1 +`` the pairs block ``b`` opens, and the pairs it closes.
+    """
+    opens = 1.0 + np.bincount(first, minlength=n_blocks)
+    closes = np.bincount(second, minlength=n_blocks).astype(float)
+    return opens, closes
+
+
 def bound_form(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarray,
                early: np.ndarray, first: np.ndarray, second: np.ndarray
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -119,8 +130,7 @@ def bound_form(users_used: np.ndarray, arm_users: np.ndarray, scale: np.ndarray,
     y = np.divide(users_used, arm_users, out=np.zeros_like(users_used), where=arm_users > 0)
     x = users_used * scale
     a = x.sum(axis=1)
-    opens = 1.0 + np.bincount(first, minlength=n_blocks)
-    closes = np.bincount(second, minlength=n_blocks).astype(float)
+    opens, closes = bound_weights(first, second, n_blocks)
     diagonal = np.zeros(n_blocks)
     lefts, rights = [], []
     for xk, yk, wk in ((x, y, opens), (x[:, early], y[:, early], closes)):

@@ -30,6 +30,7 @@ from spillgauge.estimators._switchback_inference import (
     adjacent_pairs,
     block_moments,
     bound_form,
+    bound_weights,
     dense_block_matrix,
     sparse_low_rank_moments,
     working_model_df,
@@ -279,15 +280,14 @@ def _block_variance(arms: list[_ArmScores], confidence: float, *, exact_df: bool
     unbiased under the working model. None when an arm's model variance has no
     trace (every position rests on a single block).
     """
-    variance, terms, parts, forms = 0.0, [], [], []
+    terms, parts, forms = [], [], []
     for arm in arms:
         inputs = (arm.users, arm.arm_users, arm.scale, arm.early, arm.first, arm.second)
         if bound:
             loading, diagonal, left, right = bound_form(*inputs)
             expected = float(np.sum(loading ** 2))
             trace, trace_square = sparse_low_rank_moments(diagonal, left, right)
-            opens = 1.0 + np.bincount(arm.first, minlength=arm.psi.size)
-            closes = np.bincount(arm.second, minlength=arm.psi.size)
+            opens, closes = bound_weights(arm.first, arm.second, arm.psi.size)
             raw = float(np.sum(opens * arm.psi ** 2) + np.sum(closes * arm.psi_early ** 2))
         else:
             expected, trace, trace_square = block_moments(*inputs)
@@ -297,7 +297,6 @@ def _block_variance(arms: list[_ArmScores], confidence: float, *, exact_df: bool
             return None, [], math.nan
         factor = expected / trace
         terms.append(factor * raw)
-        variance += factor * raw
         parts.append((expected, factor ** 2 * trace_square))
         if exact_df:
             if bound:
@@ -308,7 +307,7 @@ def _block_variance(arms: list[_ArmScores], confidence: float, *, exact_df: bool
     df = sum(e for e, _ in parts) ** 2 / sum(v for _, v in parts)
     if forms:
         df = working_model_df(forms, confidence, fallback=df)
-    return variance, terms, df
+    return sum(terms), terms, df
 
 
 def switchback_optimal_points(n_ticks: int, m: int) -> np.ndarray:
